@@ -1,0 +1,3 @@
+from afterlook.cli.main import entry
+
+entry()

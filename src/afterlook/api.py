@@ -1,0 +1,365 @@
+"""Python API: the CLI's operations on tables and DataFrames.
+
+Every result is a small dataclass whose ``to_dict()`` is exactly the CLI's
+``--json`` document, so a number in a notebook is the number in the terminal.
+"""
+
+from __future__ import annotations
+
+import os
+from dataclasses import dataclass, field
+from typing import Iterable, Mapping
+
+import numpy as np
+import pandas as pd
+
+from .core.errors import AfterlookError
+from .core.explain import FeatureEvidence, evidence
+from .core.gaussian import GaussianModel
+from .core.recipe import Recipe, parse_transform
+from .core.thresholds import Confusion, ThresholdPolicy, choose_threshold, confusion, flag, parse_policy
+from .model import Model, load_model, training_summary
+from .store.tables import Table, load_table, sha256_file, table_from_frame
+
+__all__ = [
+    "load_table", "load_model", "fit", "misses", "explain", "as_table",
+    "MissesResult", "Miss", "ExplainResult", "scored_cases",
+]
+
+DEFAULT_RATE = 0.01
+
+
+def as_table(data, *, id_col: str | None = None, label_col: str | None = None) -> Table:
+    """A :class:`Table` from a Table, a DataFrame or a path."""
+    if isinstance(data, Table):
+        return data
+    if isinstance(data, pd.DataFrame):
+        return table_from_frame(data, id_col=id_col, label_col=label_col)
+    if isinstance(data, (str, os.PathLike)):
+        return load_table(data, id_col=id_col, label_col=label_col)
+    raise AfterlookError(f"expected a table path or a DataFrame, got {type(data).__name__}")
+
+
+# --------------------------------------------------------------------------
+# fit
+# --------------------------------------------------------------------------
+
+
+def fit(
+    train,
+    *,
+    cases=None,
+    kind: str = "full",
+    robust: bool = False,
+    shrinkage=None,
+    derive: Mapping[str, str] | Iterable[tuple[str, str]] | None = None,
+    transform: Mapping[str, str] | Iterable[tuple[str, str]] | None = None,
+    threshold: str | ThresholdPolicy | None = None,
+    columns: list[str] | None = None,
+    recipe: Recipe | None = None,
+) -> Model:
+    """Fit a model on the normal rows of ``train``.
+
+    Parameters
+    ----------
+    train : path, DataFrame or Table
+        Rows labelled normal are used when the table has a label column,
+        otherwise every row.
+    cases : path, DataFrame or Table, optional
+        Labelled cases on which the threshold is picked.
+    kind : "independent" or "full"
+    robust : bool
+        Minimum covariance determinant fit (resists anomalies hidden in train).
+    shrinkage : None, "ledoit-wolf" or float
+    derive : {name: expression}
+    transform : {feature: expression | "boxcox" | "yeojohnson" | "boxcox(0.5)"}
+    threshold : "f1", "rate:R", "value:V"; default f1 with labelled cases, else rate:0.01
+    columns : base columns; default every numeric column of ``train``
+    recipe : a complete recipe, instead of columns/derive/transform (used for re-fits)
+    """
+    warnings: list[str] = []
+    table = as_table(train)
+    frame = table.frame
+    normal = np.ones(len(frame), dtype=bool) if table.labels is None else ~table.labels
+    n_labelled_anomaly = int((~normal).sum())
+    if n_labelled_anomaly:
+        warnings.append(f"fit uses the {int(normal.sum())} rows labelled normal; {n_labelled_anomaly} labelled anomaly left out")
+    if not normal.any():
+        raise AfterlookError("nothing normal to fit on: every training row is labelled anomaly")
+    normal_frame = frame.loc[normal]
+
+    if recipe is None:
+        recipe = _build_recipe(table, normal_frame, columns, derive, transform, warnings)
+    columns_map = _numeric_columns(normal_frame, recipe.required_columns())
+    recipe = recipe.fit(columns_map)
+    fm = recipe.apply(columns_map)
+    finite = fm.finite_rows
+    dropped = int((~finite).sum())
+    if dropped:
+        worst = max(fm.nan_by_feature, key=fm.nan_by_feature.get)
+        warnings.append(
+            f"dropped {dropped} training row(s) with NaN or infinite features "
+            f"(most in '{worst}': {fm.nan_by_feature[worst]})"
+        )
+    X = fm.values[finite]
+    if X.shape[0] < 2:
+        raise AfterlookError(f"nothing normal to fit on: {X.shape[0]} usable normal row(s); need at least 2")
+    density = GaussianModel(kind=kind, shrinkage=shrinkage, robust=robust).fit(X, fm.names)
+    if density.support_fraction_ is not None:
+        warnings.append(f"robust fit kept {density.support_fraction_:.1%} of the training rows as its core")
+
+    policy = _policy(threshold)
+    case_table = as_table(cases) if cases is not None else None
+    case_ld = case_y = None
+    if case_table is not None and case_table.labels is not None:
+        case_ld = density.log_density(recipe.apply(_numeric_columns(case_table.frame, recipe.required_columns())).values)
+        case_y = case_table.labels
+    if policy is None:
+        if case_y is not None and case_y.any():
+            policy = ThresholdPolicy("f1")
+        else:
+            policy = ThresholdPolicy("rate", DEFAULT_RATE)
+            warnings.append(
+                f"no labelled cases with anomalies: threshold set to flag {DEFAULT_RATE:.0%} of the training rows "
+                "(give --cases or --threshold)"
+            )
+    if policy.kind == "f1" and (case_y is None or not case_y.any()):
+        raise AfterlookError("--threshold f1 needs labelled cases with at least one anomaly (--cases FILE)")
+    train_ld = density.log_density(X)
+    value = choose_threshold(policy, case_log_density=case_ld, case_is_anomaly=case_y, normal_log_density=train_ld)
+    if policy.kind == "value":
+        basis = "given"
+    elif case_y is not None and (policy.kind == "f1" or (~case_y).any()):
+        basis = f"{_name(case_table)} ({len(case_y)} cases, {int(case_y.sum())} labelled anomaly)"
+    else:
+        basis = f"training rows ({X.shape[0]})"
+
+    stats, grid = training_summary(X, fm.names)
+    training = {
+        "path": table.path,
+        "sha256": sha256_file(table.path) if table.path else None,
+        "rows": int(len(frame)),
+        "rows_used": int(X.shape[0]),
+        "rows_dropped_nonfinite": dropped,
+        "rows_labelled_anomaly": n_labelled_anomaly,
+        "columns": stats,
+    }
+    return Model(recipe=recipe, density=density, threshold=value, policy=policy, threshold_basis=basis,
+                 training=training, quantiles=grid, warnings=warnings + list(table.warnings))
+
+
+def _policy(threshold) -> ThresholdPolicy | None:
+    if threshold is None or isinstance(threshold, ThresholdPolicy):
+        return threshold
+    return parse_policy(threshold)
+
+
+def _pairs(obj) -> list[tuple[str, str]]:
+    if obj is None:
+        return []
+    if isinstance(obj, Mapping):
+        return [(str(k), str(v)) for k, v in obj.items()]
+    return [(str(k), str(v)) for k, v in obj]
+
+
+def _build_recipe(table: Table, normal_frame: pd.DataFrame, columns, derive, transform, warnings) -> Recipe:
+    if columns:
+        base = list(columns)
+        unknown = [c for c in base if c not in table.frame.columns]
+        if unknown:
+            raise AfterlookError(f"training table has no column '{unknown[0]}'")
+        not_numeric = [c for c in base if c not in table.numeric_columns]
+        if not_numeric:
+            raise AfterlookError(f"column '{not_numeric[0]}' is not numeric and cannot be modelled")
+    else:
+        base = list(table.numeric_columns)
+        values = _numeric_columns(normal_frame, base)
+        constant = [c for c in base if np.nanmin(values[c]) == np.nanmax(values[c])] if len(normal_frame) else []
+        if constant:
+            warnings.append(f"left out {len(constant)} constant column(s): {', '.join(constant)}")
+            base = [c for c in base if c not in constant]
+    derived = _pairs(derive)
+    if not base and not derived:
+        raise AfterlookError("no numeric columns to model")
+    transforms = {name: parse_transform(name, text) for name, text in _pairs(transform)}
+    return Recipe(base, derived, transforms)
+
+
+def _numeric_columns(frame: pd.DataFrame, names: list[str]) -> dict[str, np.ndarray]:
+    out = {}
+    for name in names:
+        if name not in frame.columns:
+            raise AfterlookError(f"the table has no column '{name}', which the model uses")
+        col = frame[name]
+        if isinstance(col, pd.DataFrame):
+            raise AfterlookError(f"column '{name}' appears more than once in the table")
+        try:
+            out[name] = pd.to_numeric(col, errors="raise").to_numpy(dtype=np.float64, na_value=np.nan)
+        except (ValueError, TypeError):
+            raise AfterlookError(f"column '{name}' must be numeric for the model") from None
+    return out
+
+
+def _name(table: Table | None) -> str:
+    if table is None or not table.path:
+        return "cases"
+    return os.path.basename(table.path)
+
+
+# --------------------------------------------------------------------------
+# scoring cases
+# --------------------------------------------------------------------------
+
+
+@dataclass
+class ScoredCases:
+    """Cases scored by a model: what misses, explain and the workbench share."""
+
+    model: Model
+    table: Table
+    features: np.ndarray  # (n, d) model features
+    log_density: np.ndarray
+    flagged: np.ndarray
+
+    @property
+    def labels(self) -> np.ndarray | None:
+        return self.table.labels
+
+    @property
+    def margin(self) -> np.ndarray:
+        return self.log_density - self.model.threshold
+
+    def confusion(self) -> Confusion:
+        if self.labels is None:
+            raise AfterlookError(f"{_name(self.table)} has no label column (--label-col)")
+        return confusion(self.flagged, self.labels)
+
+
+def scored_cases(model: Model, cases) -> ScoredCases:
+    table = as_table(cases)
+    columns = _numeric_columns(table.frame, model.recipe.required_columns())
+    fm = model.recipe.apply(columns)
+    ld = model.density.log_density(fm.values)
+    return ScoredCases(model, table, fm.values, ld, flag(ld, model.threshold))
+
+
+# --------------------------------------------------------------------------
+# misses
+# --------------------------------------------------------------------------
+
+
+@dataclass
+class Miss:
+    case: str
+    log_density: float
+    margin: float
+    context: dict = field(default_factory=dict)
+
+    def to_dict(self) -> dict:
+        return {"case": self.case, "log_density": self.log_density, "margin": self.margin, "context": self.context}
+
+
+@dataclass
+class MissesResult:
+    """Misses (labelled anomalies left unflagged), worst margin first."""
+
+    threshold: float
+    n_cases: int
+    n_anomalies: int
+    misses: list[Miss]
+    metrics: Confusion
+    unscored: list[str]
+    model_kind: str = ""
+    warnings: list[str] = field(default_factory=list)
+
+    def to_dict(self) -> dict:
+        return {
+            "threshold": self.threshold,
+            "n_cases": self.n_cases,
+            "n_anomalies": self.n_anomalies,
+            "n_misses": len(self.misses),
+            "misses": [m.to_dict() for m in self.misses],
+            "metrics": self.metrics.to_dict(),
+            "unscored_anomalies": list(self.unscored),
+        }
+
+
+def misses(model: Model, cases) -> MissesResult:
+    """Labelled anomalies the model left unflagged, largest margin first.
+
+    ``margin = log_density - threshold`` (> 0 for a miss): how far above the
+    threshold the case sat. Anomalies whose features are NaN (e.g. a derived
+    feature divided by zero) cannot be scored; they are listed separately
+    in ``unscored_anomalies`` rather than silently counted either way.
+    """
+    sc = scored_cases(model, cases)
+    table = sc.table
+    if table.labels is None:
+        raise AfterlookError(f"{_name(table)} has no label column; misses need labelled cases (--label-col)")
+    y = table.labels
+    finite = np.isfinite(sc.log_density)
+    is_miss = y & ~sc.flagged & finite
+    idx = np.flatnonzero(is_miss)
+    idx = idx[np.argsort(-sc.margin[idx], kind="mergesort")]
+    rows = [Miss(str(table.ids[i]), float(sc.log_density[i]), float(sc.margin[i]), _context(table, i)) for i in idx]
+    unscored = [str(table.ids[i]) for i in np.flatnonzero(y & ~finite)]
+    warnings = list(table.warnings)
+    if (~finite).any():
+        warnings.append(f"{int((~finite).sum())} case(s) have NaN or infinite features and were not scored")
+    return MissesResult(model.threshold, int(len(y)), int(y.sum()), rows, sc.confusion(), unscored,
+                        model.describe_kind(), warnings)
+
+
+def _context(table: Table, i: int) -> dict:
+    out = {}
+    for col in table.context_columns:
+        v = table.frame[col].iloc[i]
+        out[col] = None if pd.isna(v) else str(v)
+    return out
+
+
+# --------------------------------------------------------------------------
+# explain
+# --------------------------------------------------------------------------
+
+
+@dataclass
+class ExplainResult:
+    """Per-feature evidence for one case."""
+
+    case: str
+    log_density: float
+    threshold: float
+    features: list[FeatureEvidence]
+    flagged: bool
+    label: bool | None
+    context: dict
+    model_kind: str
+
+    @property
+    def margin(self) -> float:
+        return self.log_density - self.threshold
+
+    def to_dict(self) -> dict:
+        ld = self.log_density if np.isfinite(self.log_density) else None
+        return {
+            "case": self.case,
+            "log_density": ld,
+            "threshold": self.threshold,
+            "margin": None if ld is None else self.margin,
+            "flagged": bool(self.flagged),
+            "label": None if self.label is None else ("anomaly" if self.label else "normal"),
+            "model_kind": self.model_kind,
+            "context": self.context,
+            "features": [f.to_dict() for f in self.features],
+        }
+
+
+def explain(model: Model, cases, case_id) -> ExplainResult:
+    """Why one case scored as it did: per-feature z, percentile, contribution, conditional z."""
+    sc = scored_cases(model, cases)
+    i = sc.table.row_index(str(case_id))
+    ev = evidence(model.density, sc.features[i], model.quantiles)
+    label = None if sc.labels is None else bool(sc.labels[i])
+    return ExplainResult(str(sc.table.ids[i]), float(sc.log_density[i]), model.threshold, ev,
+                         bool(sc.flagged[i]), label, _context(sc.table, i), model.describe_kind())

@@ -1,0 +1,300 @@
+"""Command line: argument parsing, exit codes, output. No numerics.
+
+Every command accepts ``--json`` (one JSON document on stdout, nothing
+else). Errors are one line on stderr. Exit codes are in
+:mod:`afterlook.cli.exit_codes`.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import os
+import sys
+from pathlib import Path
+
+from .. import _version
+from ..core.errors import AfterlookError
+from .exit_codes import EXIT_BAD_INPUT, EXIT_CHECK_FAILED, EXIT_INTERNAL, EXIT_OK
+
+CAUTION = (
+    "Caution: pump, process and machine alarms can protect people and property. afterlook is an "
+    "analysis aid: it does not replace protection devices, interlocks or site procedures, and a "
+    "model change must go through the site's normal review. Defer to local codes and licensed practice."
+)
+
+
+class _Parser(argparse.ArgumentParser):
+    """argparse that reports a usage error as one line and exit code 2."""
+
+    def error(self, message: str):  # noqa: D401 - argparse API
+        raise AfterlookError(f"{self.prog}: {message} (see '{self.prog} --help')")
+
+
+def _add_common(p: argparse.ArgumentParser) -> None:
+    p.add_argument("--json", action="store_true", help="print one JSON document on stdout and nothing else")
+
+
+def _add_table_opts(p: argparse.ArgumentParser) -> None:
+    p.add_argument("--id-col", help="id column (default: 'id' if present, else row number)")
+    p.add_argument("--label-col", help="label column (default: 'label'; values 1/0, true/false, anomaly/normal, yes/no)")
+
+
+def build_parser() -> argparse.ArgumentParser:
+    parser = _Parser(
+        prog="afterlook",
+        description="Find out why real failures scored as normal under a Gaussian anomaly detector, "
+        "and which derived or transformed feature would have exposed them.",
+        epilog=CAUTION,
+    )
+    parser.add_argument("--version", action="version", version=f"afterlook {_version.__version__}")
+    sub = parser.add_subparsers(dest="command", metavar="COMMAND", parser_class=_Parser)
+
+    p = sub.add_parser("demo", help="write the invented pump-station demo and show the analysis", epilog=CAUTION)
+    p.add_argument("--dir", default="afterlook-demo", help="folder for train.csv, cases.csv, model.json")
+    p.add_argument("--no-tui", action="store_true", help="print the analysis as text instead of opening the workbench")
+    p.add_argument("--seed", type=int, default=7, help="seed of the invented data (default 7)")
+    _add_common(p)
+
+    p = sub.add_parser("fit", help="fit a model on the normal rows of a table", epilog=CAUTION)
+    p.add_argument("train", metavar="TRAIN", help="training table (CSV or Parquet)")
+    p.add_argument("--out", required=True, metavar="MODEL", help="model file to write (JSON)")
+    p.add_argument("--cases", metavar="CASES", help="labelled cases on which to pick the threshold")
+    p.add_argument("--kind", default="full", help="independent or full (default full)")
+    p.add_argument("--robust", action="store_true", help="minimum covariance determinant fit (resists masking)")
+    p.add_argument("--shrinkage", help="ledoit-wolf or a number in [0, 1] (full model)")
+    p.add_argument("--columns", nargs="+", metavar="COL", help="base columns (default: every numeric column)")
+    p.add_argument("--derive", action="append", default=[], metavar="NAME=EXPR", help="derived feature (repeatable)")
+    p.add_argument("--transform", action="append", default=[], metavar="COL=EXPR",
+                   help="per-feature transform: an expression over COL, boxcox, yeojohnson, boxcox(0.3) (repeatable)")
+    p.add_argument("--threshold", help="f1 | rate:R | value:V (default f1 with labelled cases, else rate:0.01)")
+    _add_table_opts(p)
+    _add_common(p)
+
+    p = sub.add_parser("score", help="add log_density and flagged columns to a table", epilog=CAUTION)
+    p.add_argument("model", metavar="MODEL")
+    p.add_argument("data", metavar="DATA")
+    p.add_argument("--out", metavar="FILE", help="write the scored table (CSV or Parquet by extension)")
+    _add_table_opts(p)
+    _add_common(p)
+
+    p = sub.add_parser("misses", help="labelled anomalies the model left unflagged, worst margin first", epilog=CAUTION)
+    p.add_argument("model", metavar="MODEL")
+    p.add_argument("cases", metavar="CASES")
+    p.add_argument("--limit", type=int, default=30, help="rows in the table (default 30; --json lists all)")
+    _add_table_opts(p)
+    _add_common(p)
+
+    p = sub.add_parser("explain", help="per-feature evidence for one case", epilog=CAUTION)
+    p.add_argument("model", metavar="MODEL")
+    p.add_argument("cases", metavar="CASES")
+    p.add_argument("case_id", metavar="CASE_ID")
+    _add_table_opts(p)
+    _add_common(p)
+
+    from . import extra_commands
+
+    extra_commands.register(sub, _add_common, _add_table_opts, CAUTION)
+    return parser
+
+
+# --------------------------------------------------------------------------
+# commands
+# --------------------------------------------------------------------------
+
+
+def _warn(messages, args) -> None:
+    for m in messages:
+        print(f"afterlook: warning: {m}", file=sys.stderr)
+
+
+def _emit_json(doc: dict) -> None:
+    sys.stdout.write(json.dumps(doc, indent=2, allow_nan=False) + "\n")
+
+
+def cmd_fit(args) -> int:
+    from .. import api
+    from ..core.recipe import parse_assignment
+
+    derive = [parse_assignment(d, "--derive") for d in args.derive]
+    transform = [parse_assignment(t, "--transform") for t in args.transform]
+    _check_writable(args.out)
+    train = api.load_table(args.train, id_col=args.id_col, label_col=args.label_col)
+    cases = api.load_table(args.cases, id_col=args.id_col, label_col=args.label_col, require_labels=True) if args.cases else None
+    model = api.fit(train, cases=cases, kind=args.kind, robust=args.robust, shrinkage=args.shrinkage,
+                    derive=derive, transform=transform, threshold=args.threshold, columns=args.columns)
+    model.save(args.out)
+    _warn(model.warnings, args)
+    summary = {
+        "model": args.out,
+        "kind": model.kind,
+        "features": model.features,
+        "threshold": model.threshold,
+        "policy": str(model.policy),
+        "chosen_on": model.threshold_basis,
+        "rows_used": model.training["rows_used"],
+        "fingerprint": model.fingerprint(),
+    }
+    if cases is not None and cases.labels is not None:
+        summary["metrics"] = api.scored_cases(model, cases).confusion().to_dict()
+    if args.json:
+        _emit_json(summary)
+        return EXIT_OK
+    from . import render
+
+    out = render.console()
+    out.print(render.model_line(model, args.out))
+    out.print(f"fitted on {model.training['rows_used']} normal rows; features: {', '.join(model.features)}")
+    if "metrics" in summary:
+        m = summary["metrics"]
+        out.print(f"on {args.cases}: precision {m['precision']:.3f}, recall {m['recall']:.3f}, F1 {m['f1']:.3f} "
+                  f"(tp {m['tp']}, fp {m['fp']}, fn {m['fn']}, tn {m['tn']})")
+    return EXIT_OK
+
+
+def cmd_score(args) -> int:
+    from .. import api
+
+    model = api.load_model(args.model)
+    table = api.load_table(args.data, id_col=args.id_col, label_col=args.label_col)
+    if args.out:
+        _check_writable(args.out)
+    scored = model.score(table.frame)
+    _warn(table.warnings, args)
+    n_bad = int(scored["log_density"].isna().sum())
+    if n_bad:
+        _warn([f"{n_bad} row(s) have NaN or infinite features: log_density is empty and they are not flagged"], args)
+    if args.out:
+        from ..store.tables import write_table
+
+        write_table(scored, args.out)
+    doc = {
+        "model": args.model,
+        "data": args.data,
+        "threshold": model.threshold,
+        "n_rows": int(len(scored)),
+        "n_flagged": int(scored["flagged"].sum()),
+        "n_unscored": n_bad,
+        "out": args.out,
+    }
+    if args.json:
+        if not args.out:
+            doc["rows"] = [
+                {"case": str(cid), "log_density": (None if ld != ld else float(ld)), "flagged": bool(fl)}
+                for cid, ld, fl in zip(table.ids, scored["log_density"], scored["flagged"])
+            ]
+        _emit_json(doc)
+        return EXIT_OK
+    if not args.out:
+        cols = ([table.id_col] if table.id_col else []) + ["log_density", "flagged"]
+        sys.stdout.write(scored[cols].to_csv(index=table.id_col is None))
+    else:
+        print(f"wrote {args.out}: {doc['n_rows']} rows, {doc['n_flagged']} flagged (threshold {model.threshold:.6g})")
+    return EXIT_OK
+
+
+def cmd_misses(args) -> int:
+    from .. import api
+
+    model = api.load_model(args.model)
+    cases = api.load_table(args.cases, id_col=args.id_col, label_col=args.label_col, require_labels=True)
+    result = api.misses(model, cases)
+    _warn(result.warnings, args)
+    if args.json:
+        _emit_json(result.to_dict())
+        return EXIT_OK
+    from . import render
+
+    out = render.console()
+    out.print(render.model_line(model, args.model))
+    out.print(render.misses_table(result, limit=args.limit))
+    return EXIT_OK
+
+
+def cmd_explain(args) -> int:
+    from .. import api
+
+    model = api.load_model(args.model)
+    cases = api.load_table(args.cases, id_col=args.id_col, label_col=args.label_col)
+    result = api.explain(model, cases, args.case_id)
+    _warn(cases.warnings, args)
+    if args.json:
+        _emit_json(result.to_dict())
+        return EXIT_OK
+    from . import render
+
+    out = render.console()
+    out.print(render.model_line(model, args.model))
+    out.print(render.explain_table(result))
+    return EXIT_OK
+
+
+def cmd_demo(args) -> int:
+    from . import demo_command
+
+    return demo_command.run(args)
+
+
+COMMANDS = {
+    "fit": cmd_fit,
+    "score": cmd_score,
+    "misses": cmd_misses,
+    "explain": cmd_explain,
+    "demo": cmd_demo,
+}
+
+
+def _check_writable(path: str) -> None:
+    p = Path(path)
+    folder = p.parent if str(p.parent) else Path(".")
+    if p.is_dir():
+        raise AfterlookError(f"cannot write {p}: it is a directory")
+    if not folder.is_dir():
+        raise AfterlookError(f"cannot write {p}: folder '{folder}' does not exist")
+    if not os.access(folder, os.W_OK) or (p.exists() and not os.access(p, os.W_OK)):
+        raise AfterlookError(f"cannot write {p}: permission denied")
+
+
+def main(argv: list[str] | None = None) -> int:
+    """Run the CLI; returns the exit code (never raises for bad input)."""
+    try:
+        parser = build_parser()
+        args = parser.parse_args(argv)
+        if not args.command:
+            parser.print_help()
+            return EXIT_BAD_INPUT
+        handler = COMMANDS.get(args.command)
+        if handler is None:
+            from . import extra_commands
+
+            handler = extra_commands.COMMANDS[args.command]
+        return handler(args)
+    except AfterlookError as exc:
+        print(f"afterlook: error: {exc.message}", file=sys.stderr)
+        return exc.exit_code
+    except KeyboardInterrupt:
+        print("afterlook: interrupted", file=sys.stderr)
+        return 130
+    except BrokenPipeError:
+        # e.g. `afterlook score ... | head`: the reader went away; not an error of ours.
+        try:
+            sys.stdout = open(os.devnull, "w")
+        except OSError:
+            pass
+        return EXIT_OK
+    except MemoryError:
+        print("afterlook: error: out of memory (try a smaller table or the chunked engine)", file=sys.stderr)
+        return EXIT_BAD_INPUT
+    except Exception as exc:  # a bug in afterlook, not bad input
+        if os.environ.get("AFTERLOOK_DEBUG"):
+            raise
+        print(f"afterlook: internal error: {type(exc).__name__}: {exc} "
+              "(please report it; set AFTERLOOK_DEBUG=1 for the traceback)", file=sys.stderr)
+        return EXIT_INTERNAL
+
+
+def entry() -> None:
+    sys.exit(main())
+
+
+__all__ = ["main", "entry", "build_parser", "EXIT_OK", "EXIT_CHECK_FAILED", "EXIT_BAD_INPUT"]

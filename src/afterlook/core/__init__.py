@@ -1,0 +1,1 @@
+"""Pure numerics of afterlook: numpy and scipy only, no files, no UI."""

@@ -1,0 +1,381 @@
+"""Gaussian density models scored in log space.
+
+Two kinds:
+
+* **independent**: ``log p(x) = sum_j log N(x_j; mu_j, sigma_j^2)``;
+* **full**: ``log p(x) = -1/2 (d log 2 pi + log|S| + (x - mu)^T S^-1 (x - mu))``
+  evaluated through the Cholesky factor ``S = L L^T`` so that nothing is
+  inverted explicitly and the log-determinant is ``2 sum log diag L``.
+
+Estimates are maximum likelihood (divide by ``n``), the convention of
+scikit-learn's ``EmpiricalCovariance``. The full model may be shrunk
+(Ledoit and Wolf, "A well-conditioned estimator for large-dimensional
+covariance matrices", J. Multivariate Analysis 88(2), 2004, 365-411, as
+implemented by ``sklearn.covariance.ledoit_wolf``) and either kind may be
+fitted robustly with the minimum covariance determinant (Rousseeuw, "Least
+median of squares regression", JASA 79, 1984, 871-880; the FAST-MCD
+algorithm of Rousseeuw and Van Driessen, Technometrics 41, 1999, 212-223, as
+implemented by ``sklearn.covariance.MinCovDet``), which resists the
+*masking* of anomalies hidden among the training rows.
+
+Each algorithm is a pure function; :class:`GaussianModel` only stores the
+fitted values (names ending in ``_``).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+from scipy import linalg
+
+from .errors import AfterlookError
+
+LOG_2PI = float(np.log(2.0 * np.pi))
+KINDS = ("independent", "full")
+
+# A column whose variance, after regressing it on the columns before it, is
+# below this share of its own variance is called collinear (1 - R^2 < tol).
+COLLINEAR_TOL = 1e-10
+
+
+# --------------------------------------------------------------------------
+# Sufficient statistics (count, mean, centred scatter), mergeable in any order
+# --------------------------------------------------------------------------
+
+
+@dataclass
+class SufficientStats:
+    """Count, mean and centred scatter matrix ``sum (x - mean)(x - mean)^T``.
+
+    Chunks are merged with the pairwise update of Chan, Golub and LeVeque
+    ("Updating formulae and a pairwise algorithm for computing sample
+    variances", Stanford CS tech. report STAN-CS-79-773, 1979), which avoids
+    the cancellation of the textbook ``sum x x^T - n mean mean^T``.
+    """
+
+    n: int
+    mean: np.ndarray
+    scatter: np.ndarray
+
+    @classmethod
+    def empty(cls, d: int) -> "SufficientStats":
+        return cls(0, np.zeros(d), np.zeros((d, d)))
+
+    @classmethod
+    def of(cls, X: np.ndarray) -> "SufficientStats":
+        X = np.asarray(X, dtype=np.float64)
+        n = X.shape[0]
+        if n == 0:
+            return cls.empty(X.shape[1])
+        mean = X.mean(axis=0)
+        Xc = X - mean
+        return cls(n, mean, Xc.T @ Xc)
+
+    def merge(self, other: "SufficientStats") -> "SufficientStats":
+        if other.n == 0:
+            return self
+        if self.n == 0:
+            return other
+        n = self.n + other.n
+        delta = other.mean - self.mean
+        mean = self.mean + delta * (other.n / n)
+        scatter = self.scatter + other.scatter + np.outer(delta, delta) * (self.n * other.n / n)
+        return SufficientStats(n, mean, scatter)
+
+    def covariance(self) -> np.ndarray:
+        """Maximum-likelihood covariance (divides by n)."""
+        return self.scatter / self.n
+
+
+# --------------------------------------------------------------------------
+# Pure functions
+# --------------------------------------------------------------------------
+
+
+def independent_log_density(X: np.ndarray, mean: np.ndarray, var: np.ndarray) -> np.ndarray:
+    """Sum of univariate normal log-densities, one per column.
+
+    Parameters
+    ----------
+    X : ndarray of shape (n, d)
+    mean, var : ndarray of shape (d,)
+
+    Returns
+    -------
+    ndarray of shape (n,); NaN where a row has a non-finite value.
+    """
+    X = np.asarray(X, dtype=np.float64)
+    z2 = ((X - mean) ** 2) / var
+    const = -0.5 * (X.shape[1] * LOG_2PI + np.log(var).sum())
+    return const - 0.5 * z2.sum(axis=1)
+
+
+def full_log_density(X: np.ndarray, mean: np.ndarray, chol: np.ndarray) -> np.ndarray:
+    """Multivariate normal log-density through the lower Cholesky factor.
+
+    ``log p = -1/2 (d log 2 pi + 2 sum log diag L + ||L^-1 (x - mu)||^2)``.
+    Rows are processed in blocks so memory stays bounded for millions of rows.
+    """
+    X = np.asarray(X, dtype=np.float64)
+    d = X.shape[1]
+    const = -0.5 * d * LOG_2PI - np.log(np.diag(chol)).sum()
+    # Whitening with the explicit inverse of the triangular factor turns the
+    # work into one matrix product per block (BLAS gemm); L is well
+    # conditioned here because fit() refuses or shrinks a singular S.
+    whiten = linalg.solve_triangular(chol, np.eye(d), lower=True).T
+    out = np.empty(X.shape[0])
+    block = max(1, 2_000_000 // max(d, 1))
+    for start in range(0, X.shape[0], block):
+        W = (X[start : start + block] - mean) @ whiten
+        out[start : start + block] = const - 0.5 * np.einsum("ij,ij->i", W, W)
+    return out
+
+
+def collinear_columns(cov: np.ndarray, names: list[str], tol: float = COLLINEAR_TOL) -> list[tuple[str, list[str]]]:
+    """Columns that are (nearly) linear combinations of earlier ones.
+
+    Works on the correlation matrix: for each column in turn, its unexplained
+    share ``1 - R^2`` given the kept columns is ``1 / (C_kept^-1)_jj`` of the
+    augmented block; below ``tol`` the column is reported together with the
+    kept columns that carry weight in the combination.
+    """
+    sd = np.sqrt(np.clip(np.diag(cov), 0.0, None))
+    problems: list[tuple[str, list[str]]] = []
+    kept: list[int] = []
+    for j in range(cov.shape[0]):
+        if sd[j] == 0 or not np.isfinite(sd[j]):
+            problems.append((names[j], []))
+            continue
+        if kept:
+            idx = np.array(kept)
+            C = cov[np.ix_(idx, idx)] / np.outer(sd[idx], sd[idx])
+            c = cov[idx, j] / (sd[idx] * sd[j])
+            beta, *_ = np.linalg.lstsq(C, c, rcond=None)
+            unexplained = 1.0 - float(c @ beta)
+            if unexplained < tol:
+                weight = np.abs(beta)
+                partners = [names[idx[k]] for k in np.argsort(-weight) if weight[k] > 1e-6 * weight.max()]
+                problems.append((names[j], partners))
+                continue
+        kept.append(j)
+    return problems
+
+
+def fit_moments(X: np.ndarray, robust: bool = False, random_state: int = 0) -> tuple[np.ndarray, np.ndarray, np.ndarray | None]:
+    """Location and covariance, classical or robust (minimum covariance determinant).
+
+    Returns ``(mean, covariance, support)``; ``support`` is the boolean mask of
+    rows the robust fit kept (None for the classical fit).
+    """
+    X = np.asarray(X, dtype=np.float64)
+    if not robust:
+        stats = SufficientStats.of(X)
+        return stats.mean, stats.covariance(), None
+    from sklearn.covariance import MinCovDet  # local import: scikit-learn is slow to load
+
+    try:
+        mcd = MinCovDet(random_state=random_state).fit(X)
+    except ValueError as exc:
+        raise AfterlookError(f"robust fit failed: {exc}") from None
+    return mcd.location_, mcd.covariance_, mcd.support_
+
+
+def ledoit_wolf_shrink(X: np.ndarray) -> tuple[np.ndarray, float]:
+    """Ledoit-Wolf shrunk covariance and shrinkage intensity (scikit-learn)."""
+    from sklearn.covariance import ledoit_wolf
+
+    cov, shrinkage = ledoit_wolf(np.asarray(X, dtype=np.float64), assume_centered=False)
+    return cov, float(shrinkage)
+
+
+def shrink_towards_diagonal(cov: np.ndarray, shrinkage: float) -> np.ndarray:
+    """``(1 - a) S + a mu I`` with ``mu = trace(S) / d`` (the Ledoit-Wolf target)."""
+    d = cov.shape[0]
+    mu = np.trace(cov) / d
+    return (1.0 - shrinkage) * cov + shrinkage * mu * np.eye(d)
+
+
+# --------------------------------------------------------------------------
+# Thin model class
+# --------------------------------------------------------------------------
+
+
+@dataclass
+class GaussianModel:
+    """A fitted Gaussian density over named features.
+
+    Options are stored by ``__init__``; :meth:`fit` sets the fitted values
+    (``mean_``, ``covariance_``, ``chol_``, ``shrinkage_``).
+
+    Parameters
+    ----------
+    kind : {"independent", "full"}
+    shrinkage : None, "ledoit-wolf", or float in [0, 1]
+        Full model only. None fits the plain covariance and refuses a
+        singular one with an error naming the collinear columns.
+    robust : bool
+        Fit location and scatter with the minimum covariance determinant.
+    """
+
+    kind: str = "full"
+    shrinkage: object = None
+    robust: bool = False
+    random_state: int = 0
+    names: list[str] = field(default_factory=list)
+    mean_: np.ndarray | None = None
+    covariance_: np.ndarray | None = None
+    chol_: np.ndarray | None = None
+    shrinkage_: float = 0.0
+    support_fraction_: float | None = None
+
+    def __post_init__(self) -> None:
+        if self.kind not in KINDS:
+            raise AfterlookError(f"unknown model kind '{self.kind}' (choose: {', '.join(KINDS)})")
+        if self.shrinkage not in (None, "ledoit-wolf"):
+            try:
+                value = float(self.shrinkage)
+            except (TypeError, ValueError):
+                raise AfterlookError(f"shrinkage must be 'ledoit-wolf' or a number in [0, 1], got {self.shrinkage!r}") from None
+            if not 0.0 <= value <= 1.0:
+                raise AfterlookError(f"shrinkage must lie in [0, 1], got {value}")
+            self.shrinkage = value
+
+    # -- fitting ---------------------------------------------------------
+    def fit(self, X: np.ndarray, names: list[str] | None = None) -> "GaussianModel":
+        """Fit on the rows of ``X`` (all finite; the caller drops the rest)."""
+        X = np.asarray(X, dtype=np.float64)
+        if X.ndim != 2 or X.shape[1] == 0:
+            raise AfterlookError("nothing to fit: no feature columns")
+        n, d = X.shape
+        self.names = list(names) if names is not None else [f"x{j}" for j in range(d)]
+        if n < 2:
+            raise AfterlookError(f"nothing to fit on: {n} normal row(s) with finite values; need at least 2")
+        if not np.all(np.isfinite(X)):
+            raise AfterlookError("training rows contain NaN or infinite values")
+        mean, cov, support = fit_moments(X, robust=self.robust, random_state=self.random_state)
+        self.support_fraction_ = None if support is None else float(np.mean(support))
+        self.mean_ = mean
+        if self.kind == "independent":
+            var = np.diag(cov).copy()
+            zero = [self.names[j] for j in np.flatnonzero(~(var > 0))]
+            if zero:
+                raise AfterlookError(f"zero variance in the normal rows for column(s): {', '.join(zero)}")
+            self.covariance_ = np.diag(var)
+            self.chol_ = np.diag(np.sqrt(var))
+            return self
+        if self.shrinkage == "ledoit-wolf":
+            if self.robust:
+                # Ledoit-Wolf's intensity needs the rows; use the robust support.
+                cov_lw, a = ledoit_wolf_shrink(X[support])
+                cov = shrink_towards_diagonal(cov, a)
+            else:
+                cov, a = ledoit_wolf_shrink(X)
+            self.shrinkage_ = a
+        elif isinstance(self.shrinkage, float) and self.shrinkage > 0:
+            cov = shrink_towards_diagonal(cov, self.shrinkage)
+            self.shrinkage_ = self.shrinkage
+        self.covariance_ = cov
+        self.chol_ = self._cholesky(cov)
+        return self
+
+    def _cholesky(self, cov: np.ndarray) -> np.ndarray:
+        problems = collinear_columns(cov, self.names)
+        if problems:
+            parts = []
+            for col, partners in problems[:3]:
+                if partners:
+                    parts.append(f"'{col}' is a linear combination of {', '.join(repr(p) for p in partners[:4])}")
+                else:
+                    parts.append(f"'{col}' is constant")
+            raise AfterlookError(
+                "covariance is singular: " + "; ".join(parts)
+                + " (drop the column(s) or fit with shrinkage, e.g. --shrinkage ledoit-wolf)"
+            )
+        try:
+            return linalg.cholesky(cov, lower=True)
+        except linalg.LinAlgError:
+            raise AfterlookError(
+                "covariance is not positive definite (near-collinear columns); fit with shrinkage, e.g. --shrinkage ledoit-wolf"
+            ) from None
+
+    # -- scoring ---------------------------------------------------------
+    @property
+    def var_(self) -> np.ndarray:
+        return np.diag(self.covariance_)
+
+    def log_density(self, X: np.ndarray) -> np.ndarray:
+        """Log-density of each row; NaN for rows with non-finite values."""
+        self._check_fitted()
+        X = np.asarray(X, dtype=np.float64)
+        if X.ndim != 2 or X.shape[1] != len(self.mean_):
+            raise AfterlookError(f"expected {len(self.mean_)} feature columns, got {X.shape[-1] if X.ndim else 0}")
+        if self.kind == "independent":
+            out = independent_log_density(X, self.mean_, self.var_)
+        else:
+            out = full_log_density(X, self.mean_, self.chol_)
+        out[~np.isfinite(out)] = np.nan
+        return out
+
+    def precision(self) -> np.ndarray:
+        """Inverse covariance, from the Cholesky factor."""
+        self._check_fitted()
+        d = len(self.mean_)
+        Linv = linalg.solve_triangular(self.chol_, np.eye(d), lower=True)
+        return Linv.T @ Linv
+
+    def _check_fitted(self) -> None:
+        if self.mean_ is None:
+            raise AfterlookError("model is not fitted")
+
+    # -- serialisation ---------------------------------------------------
+    def to_dict(self) -> dict:
+        self._check_fitted()
+        out = {
+            "kind": self.kind,
+            "robust": bool(self.robust),
+            "shrinkage": self.shrinkage,
+            "shrinkage_used": float(self.shrinkage_),
+            "features": list(self.names),
+            "mean": self.mean_.tolist(),
+        }
+        if self.kind == "independent":
+            out["variance"] = self.var_.tolist()
+        else:
+            out["covariance"] = self.covariance_.tolist()
+        if self.support_fraction_ is not None:
+            out["robust_support_fraction"] = self.support_fraction_
+        return out
+
+    @classmethod
+    def from_dict(cls, data: dict) -> "GaussianModel":
+        try:
+            model = cls(
+                kind=data["kind"],
+                shrinkage=data.get("shrinkage"),
+                robust=bool(data.get("robust", False)),
+                names=list(data["features"]),
+            )
+            model.mean_ = np.asarray(data["mean"], dtype=np.float64)
+            d = len(model.mean_)
+            if model.kind == "independent":
+                var = np.asarray(data["variance"], dtype=np.float64)
+                if var.shape != (d,) or not np.all(var > 0):
+                    raise ValueError("variance")
+                model.covariance_ = np.diag(var)
+                model.chol_ = np.diag(np.sqrt(var))
+            else:
+                cov = np.asarray(data["covariance"], dtype=np.float64)
+                if cov.shape != (d, d):
+                    raise ValueError("covariance shape")
+                model.covariance_ = cov
+                model.chol_ = model._cholesky(cov)
+            if len(model.names) != d:
+                raise ValueError("feature count")
+            model.shrinkage_ = float(data.get("shrinkage_used", 0.0))
+            model.support_fraction_ = data.get("robust_support_fraction")
+        except AfterlookError:
+            raise
+        except (KeyError, TypeError, ValueError) as exc:
+            raise AfterlookError(f"model parameters are incomplete or malformed ({exc})") from None
+        return model

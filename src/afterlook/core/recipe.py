@@ -1,0 +1,277 @@
+"""The model's feature pipeline: base columns, derived features, transforms.
+
+Order of application:
+
+1. derived features are computed from the table's raw columns (a derived
+   feature may also use the derived features defined before it);
+2. the feature vector is ``base columns + derived features``;
+3. per-feature transforms are applied (to a base column or a derived one).
+
+Transforms are an expression over the feature's own name
+(``hours_since_service=log(hours_since_service + 1)``), or a Box-Cox /
+Yeo-Johnson power transform with a fixed or fitted lambda. Fitted lambdas
+are the maximum-likelihood values of ``scipy.stats.boxcox`` and
+``scipy.stats.yeojohnson`` on the finite training values.
+
+Columns are passed as a mapping of name -> 1-D array so the core stays free
+of pandas.
+"""
+
+from __future__ import annotations
+
+import re
+from dataclasses import dataclass, field
+from typing import Mapping
+
+import numpy as np
+from scipy import special, stats
+
+from . import expressions
+from .errors import AfterlookError
+
+POWER_KINDS = ("boxcox", "yeojohnson")
+_POWER_RE = re.compile(r"^\s*(boxcox|yeojohnson|box-cox|yeo-johnson)\s*(?:\(\s*([^)]*)\s*\))?\s*$", re.I)
+_NAME_RE = re.compile(r"^[A-Za-z_][A-Za-z0-9_]*$")
+
+
+@dataclass(frozen=True)
+class Transform:
+    """A per-feature transform.
+
+    ``kind`` is "expression" (``expression`` holds the text, written over the
+    feature's own name), "boxcox" or "yeojohnson" (``lmbda`` None until fitted).
+    """
+
+    kind: str
+    expression: str | None = None
+    lmbda: float | None = None
+
+    def describe(self, feature: str) -> str:
+        if self.kind == "expression":
+            return self.expression
+        lam = "fitted" if self.lmbda is None else f"{self.lmbda:.6g}"
+        return f"{self.kind}({lam})"
+
+    def to_dict(self) -> dict:
+        out = {"kind": self.kind}
+        if self.kind == "expression":
+            out["expression"] = self.expression
+        else:
+            out["lambda"] = self.lmbda
+        return out
+
+    @classmethod
+    def from_dict(cls, data: dict) -> "Transform":
+        kind = data.get("kind")
+        if kind == "expression":
+            return cls("expression", expression=str(data["expression"]))
+        if kind in POWER_KINDS:
+            lam = data.get("lambda")
+            return cls(kind, lmbda=None if lam is None else float(lam))
+        raise AfterlookError(f"unknown transform kind {kind!r}")
+
+
+def parse_transform(feature: str, text: str) -> Transform:
+    """Parse the right-hand side of ``--transform FEATURE=TEXT``."""
+    m = _POWER_RE.match(text)
+    if m:
+        kind = m.group(1).lower().replace("-", "")
+        arg = m.group(2)
+        if arg is None or not arg.strip():
+            return Transform(kind)
+        try:
+            lam = float(arg)
+        except ValueError:
+            raise AfterlookError(f"transform '{feature}={text}': lambda '{arg}' is not a number") from None
+        if not np.isfinite(lam):
+            raise AfterlookError(f"transform '{feature}={text}': lambda must be finite")
+        return Transform(kind, lmbda=lam)
+    expr = expressions.parse(text)
+    if set(expr.columns) - {feature}:
+        other = sorted(set(expr.columns) - {feature})[0]
+        raise AfterlookError(
+            f"transform '{feature}={text}' may only use '{feature}' itself, not '{other}' (use a derived feature for that)"
+        )
+    return Transform("expression", expression=expr.text)
+
+
+def apply_transform(t: Transform, feature: str, values: np.ndarray) -> np.ndarray:
+    values = np.asarray(values, dtype=np.float64)
+    if t.kind == "expression":
+        return expressions.parse(t.expression).evaluate({feature: values})
+    if t.lmbda is None:
+        raise AfterlookError(f"transform of '{feature}' is not fitted")
+    with np.errstate(all="ignore"):
+        if t.kind == "boxcox":
+            out = np.where(values > 0, special.boxcox(np.where(values > 0, values, 1.0), t.lmbda), np.nan)
+        else:
+            out = stats.yeojohnson(values, lmbda=t.lmbda)
+    out = np.asarray(out, dtype=np.float64)
+    out[~np.isfinite(out)] = np.nan
+    return out
+
+
+def fit_power_lambda(kind: str, values: np.ndarray) -> float:
+    """Maximum-likelihood lambda of scipy.stats.boxcox / yeojohnson on finite values."""
+    x = np.asarray(values, dtype=np.float64)
+    x = x[np.isfinite(x)]
+    if kind == "boxcox":
+        x = x[x > 0]
+        if x.size < 3:
+            raise AfterlookError("Box-Cox needs at least 3 positive values")
+        if np.ptp(x) == 0:
+            raise AfterlookError("Box-Cox needs a column that varies")
+        return float(stats.boxcox(x)[1])
+    if x.size < 3 or np.ptp(x) == 0:
+        raise AfterlookError("Yeo-Johnson needs at least 3 values that vary")
+    return float(stats.yeojohnson(x)[1])
+
+
+@dataclass
+class FeatureMatrix:
+    """Model features of a table after the recipe, with NaN bookkeeping."""
+
+    values: np.ndarray  # (n, d) float64
+    names: list[str]
+    nan_by_feature: dict[str, int]
+
+    @property
+    def finite_rows(self) -> np.ndarray:
+        return np.all(np.isfinite(self.values), axis=1)
+
+    @property
+    def n_nonfinite_rows(self) -> int:
+        return int((~self.finite_rows).sum())
+
+    def column(self, name: str) -> np.ndarray:
+        return self.values[:, self.names.index(name)]
+
+
+@dataclass
+class Recipe:
+    """Base columns, derived features (name, expression) and transforms."""
+
+    base: list[str]
+    derived: list[tuple[str, str]] = field(default_factory=list)
+    transforms: dict[str, Transform] = field(default_factory=dict)
+
+    def __post_init__(self) -> None:
+        self.base = list(self.base)
+        self.derived = [(str(n), str(e)) for n, e in self.derived]
+        seen = set()
+        for name in self.base:
+            if name in seen:
+                raise AfterlookError(f"column '{name}' is listed twice")
+            seen.add(name)
+        known = list(self.base)
+        for name, text in self.derived:
+            if not _NAME_RE.match(name):
+                raise AfterlookError(f"derived feature name '{name}' must be letters, digits and underscores")
+            if name in seen:
+                raise AfterlookError(f"derived feature '{name}' clashes with an existing feature name")
+            seen.add(name)
+            expressions.parse(text)  # syntax and whitelist now; columns are checked on apply
+            known.append(name)
+        for name in self.transforms:
+            if name not in seen:
+                raise AfterlookError(f"transform for '{name}', which is not a feature of the model")
+
+    @property
+    def features(self) -> list[str]:
+        return self.base + [n for n, _ in self.derived]
+
+    @property
+    def derived_names(self) -> list[str]:
+        return [n for n, _ in self.derived]
+
+    def required_columns(self) -> list[str]:
+        """Raw table columns the recipe reads."""
+        need = list(self.base)
+        defined = set(self.base)
+        for name, text in self.derived:
+            for col in expressions.parse(text).columns:
+                if col not in defined and col not in need:
+                    need.append(col)
+            defined.add(name)
+        return need
+
+    def with_derived(self, extra: list[tuple[str, str]]) -> "Recipe":
+        return Recipe(self.base, self.derived + list(extra), dict(self.transforms))
+
+    def _raw_features(self, columns: Mapping[str, np.ndarray]) -> dict[str, np.ndarray]:
+        env: dict[str, np.ndarray] = {}
+        for name in self.base:
+            if name not in columns:
+                raise AfterlookError(f"the table has no column '{name}', which the model uses")
+            env[name] = np.asarray(columns[name], dtype=np.float64)
+        scope = dict(columns)
+        for name, text in self.derived:
+            expr = expressions.parse(text)
+            missing = [c for c in expr.columns if c not in scope]
+            if missing:
+                raise AfterlookError(
+                    f"derived feature '{name} = {text}' needs column '{missing[0]}', which the table lacks"
+                )
+            values = expr.evaluate(scope)
+            env[name] = values
+            scope[name] = values
+        return env
+
+    def fit(self, columns: Mapping[str, np.ndarray]) -> "Recipe":
+        """Resolve fitted lambdas on training columns; returns a new recipe."""
+        env = self._raw_features(columns)
+        fitted = {}
+        for name, t in self.transforms.items():
+            if t.kind in POWER_KINDS and t.lmbda is None:
+                try:
+                    fitted[name] = Transform(t.kind, lmbda=fit_power_lambda(t.kind, env[name]))
+                except AfterlookError as exc:
+                    raise AfterlookError(f"transform of '{name}': {exc.message}") from None
+            else:
+                fitted[name] = t
+        return Recipe(self.base, self.derived, fitted)
+
+    def apply(self, columns: Mapping[str, np.ndarray]) -> FeatureMatrix:
+        env = self._raw_features(columns)
+        names = self.features
+        n = len(next(iter(env.values()))) if env else 0
+        X = np.empty((n, len(names)))
+        for j, name in enumerate(names):
+            values = env[name]
+            t = self.transforms.get(name)
+            X[:, j] = apply_transform(t, name, values) if t is not None else values
+        X[~np.isfinite(X)] = np.nan
+        nan_by = {name: int(np.isnan(X[:, j]).sum()) for j, name in enumerate(names)}
+        return FeatureMatrix(X, names, nan_by)
+
+    def describe(self) -> list[str]:
+        lines = [f"{n} = {e}" for n, e in self.derived]
+        lines += [f"{n} -> {t.describe(n)}" for n, t in self.transforms.items()]
+        return lines
+
+    def to_dict(self) -> dict:
+        return {
+            "base": list(self.base),
+            "derived": [{"name": n, "expression": e} for n, e in self.derived],
+            "transforms": {n: t.to_dict() for n, t in self.transforms.items()},
+        }
+
+    @classmethod
+    def from_dict(cls, data: dict) -> "Recipe":
+        try:
+            return cls(
+                base=[str(c) for c in data["base"]],
+                derived=[(d["name"], d["expression"]) for d in data.get("derived", [])],
+                transforms={n: Transform.from_dict(t) for n, t in data.get("transforms", {}).items()},
+            )
+        except (KeyError, TypeError) as exc:
+            raise AfterlookError(f"model recipe is malformed ({exc})") from None
+
+
+def parse_assignment(text: str, what: str = "--derive") -> tuple[str, str]:
+    """Split ``NAME=EXPR`` (the first '=' separates)."""
+    name, sep, expr = str(text).partition("=")
+    name, expr = name.strip(), expr.strip()
+    if not sep or not name or not expr:
+        raise AfterlookError(f"{what} expects NAME=EXPRESSION, got '{text}'")
+    return name, expr

@@ -1,0 +1,206 @@
+"""A fitted afterlook model: recipe + Gaussian density + threshold + training summary.
+
+This is the object the CLI, the workbench and notebooks share. Fitting and
+scoring call the pure functions in :mod:`afterlook.core`; only ``save`` and
+``load`` touch files, through :mod:`afterlook.store`.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+from dataclasses import dataclass, field
+from datetime import datetime, timezone
+from typing import Mapping
+
+import numpy as np
+import pandas as pd
+
+from ._version import __version__
+from .core.errors import AfterlookError
+from .core.explain import QUANTILE_POINTS, quantile_grid
+from .core.gaussian import GaussianModel
+from .core.recipe import FeatureMatrix, Recipe
+from .core.thresholds import ThresholdPolicy, flag, parse_policy
+from .store import model_file
+
+
+@dataclass
+class Model:
+    """A fitted model.
+
+    Attributes
+    ----------
+    recipe : Recipe
+    density : GaussianModel
+    threshold : float
+        Log-density below which a case is flagged.
+    policy : ThresholdPolicy
+        How the threshold was chosen.
+    threshold_basis : str
+        What the threshold was chosen on, in words.
+    training : dict
+        Rows used, rows dropped and why, per-feature statistics, the SHA-256
+        and path of the training file.
+    quantiles : ndarray (points, d)
+        Quantile grid of each feature over the normal population, for
+        percentiles in explanations.
+    warnings : list of str
+        What the fit had to drop or assume (not saved).
+    """
+
+    recipe: Recipe
+    density: GaussianModel
+    threshold: float
+    policy: ThresholdPolicy
+    threshold_basis: str
+    training: dict
+    quantiles: np.ndarray
+    created: str = field(default_factory=lambda: datetime.now(timezone.utc).replace(microsecond=0).isoformat())
+    tool_version: str = __version__
+    source_path: str | None = None
+    warnings: list[str] = field(default_factory=list)
+
+    # -- features and scores ---------------------------------------------
+    @property
+    def kind(self) -> str:
+        return self.density.kind
+
+    @property
+    def features(self) -> list[str]:
+        return self.recipe.features
+
+    def feature_matrix(self, columns: Mapping[str, np.ndarray] | pd.DataFrame) -> FeatureMatrix:
+        return self.recipe.apply(_columns_of(columns))
+
+    def log_density(self, columns: Mapping[str, np.ndarray] | pd.DataFrame) -> np.ndarray:
+        """Log-density of each row (NaN where a feature is NaN or infinite)."""
+        return self.density.log_density(self.feature_matrix(columns).values)
+
+    def score(self, df: pd.DataFrame) -> pd.DataFrame:
+        """A copy of ``df`` with ``log_density`` and ``flagged`` columns added."""
+        ld = self.log_density(df)
+        out = df.copy()
+        out["log_density"] = ld
+        out["flagged"] = flag(ld, self.threshold)
+        return out
+
+    def fingerprint(self) -> str:
+        """SHA-256 of the recipe, parameters and threshold (first 16 hex digits)."""
+        doc = {"recipe": self.recipe.to_dict(), "model": self.density.to_dict(), "threshold": self.threshold}
+        text = json.dumps(doc, sort_keys=True, separators=(",", ":"))
+        return hashlib.sha256(text.encode()).hexdigest()[:16]
+
+    # -- file ------------------------------------------------------------
+    def to_dict(self) -> dict:
+        return {
+            "format": model_file.FORMAT,
+            "version": model_file.VERSION,
+            "tool_version": self.tool_version,
+            "created": self.created,
+            "recipe": self.recipe.to_dict(),
+            "model": self.density.to_dict(),
+            "threshold": {
+                "value": self.threshold,
+                "policy": str(self.policy),
+                "description": self.policy.describe(),
+                "chosen_on": self.threshold_basis,
+            },
+            "training": {
+                **self.training,
+                "quantiles": {"points": int(self.quantiles.shape[0]), "values": self.quantiles.T.tolist()},
+            },
+        }
+
+    def save(self, path) -> None:
+        """Write the model file atomically."""
+        model_file.write_model_document(self.to_dict(), path)
+        self.source_path = str(path)
+
+    @classmethod
+    def from_dict(cls, doc: dict, source_path: str | None = None) -> "Model":
+        try:
+            recipe = Recipe.from_dict(doc["recipe"])
+            density = GaussianModel.from_dict(doc["model"])
+            if density.names != recipe.features:
+                raise AfterlookError("model file: the recipe's features and the density's features differ")
+            thr = doc["threshold"]
+            threshold = float(thr["value"])
+            policy = parse_policy(thr.get("policy", "f1"))
+            training = dict(doc["training"])
+            q = training.pop("quantiles")
+            quantiles = np.asarray(q["values"], dtype=np.float64).T
+            if quantiles.ndim != 2 or quantiles.shape[1] != len(recipe.features):
+                raise ValueError("quantile grid does not match the features")
+        except AfterlookError as exc:
+            where = f"model file {source_path}: " if source_path else ""
+            raise AfterlookError(where + exc.message) from None
+        except (KeyError, TypeError, ValueError) as exc:
+            where = f"model file {source_path}" if source_path else "model"
+            raise AfterlookError(f"{where} is malformed (missing or bad {exc})") from None
+        return cls(
+            recipe=recipe, density=density, threshold=threshold, policy=policy,
+            threshold_basis=str(thr.get("chosen_on", "")), training=training, quantiles=quantiles,
+            created=str(doc.get("created", "")), tool_version=str(doc.get("tool_version", "")),
+            source_path=source_path,
+        )
+
+    def describe_kind(self) -> str:
+        parts = [self.kind]
+        if self.density.robust:
+            parts.append("robust")
+        if self.density.shrinkage_:
+            parts.append(f"shrinkage {self.density.shrinkage_:.3g}")
+        return ", ".join(parts)
+
+
+def load_model(path) -> Model:
+    """Read a model file (clear error for anything that is not one)."""
+    return Model.from_dict(model_file.read_model_document(path), source_path=str(path))
+
+
+def training_summary(X: np.ndarray, names: list[str]) -> tuple[dict, np.ndarray]:
+    """Per-feature statistics and the quantile grid of the normal rows."""
+    stats = {}
+    for j, name in enumerate(names):
+        col = X[:, j]
+        stats[name] = {
+            "mean": float(col.mean()),
+            "std": float(col.std()),
+            "min": float(col.min()),
+            "max": float(col.max()),
+        }
+    return stats, quantile_grid(X, QUANTILE_POINTS)
+
+
+def _columns_of(obj) -> Mapping[str, np.ndarray]:
+    if isinstance(obj, pd.DataFrame):
+        return _FrameColumns(obj)
+    return obj
+
+
+class _FrameColumns(Mapping):
+    """Lazy numeric view of a DataFrame's columns (only the used ones are converted)."""
+
+    def __init__(self, frame: pd.DataFrame):
+        self.frame = frame
+
+    def __getitem__(self, key):
+        if key not in self.frame.columns:
+            raise KeyError(key)
+        col = self.frame[key]
+        if isinstance(col, pd.DataFrame):
+            raise AfterlookError(f"column '{key}' appears more than once in the table")
+        try:
+            return pd.to_numeric(col, errors="raise").to_numpy(dtype=np.float64, na_value=np.nan)
+        except (ValueError, TypeError):
+            raise AfterlookError(f"column '{key}' is not numeric") from None
+
+    def __contains__(self, key):
+        return key in self.frame.columns
+
+    def __iter__(self):
+        return iter(self.frame.columns)
+
+    def __len__(self):
+        return len(self.frame.columns)

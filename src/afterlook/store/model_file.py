@@ -1,0 +1,82 @@
+"""The model file: JSON with a format name and a schema version.
+
+``{"format": "afterlook-model", "version": 1, ...}``. A file that is not
+JSON, names another format, lacks required keys or carries a newer major
+version is refused with one clear line; nothing is guessed.
+"""
+
+from __future__ import annotations
+
+import json
+import os
+import tempfile
+from pathlib import Path
+
+from ..core.errors import AfterlookError
+
+FORMAT = "afterlook-model"
+VERSION = 1
+REQUIRED_KEYS = ("recipe", "model", "threshold", "training")
+
+
+def read_model_document(path: str | os.PathLike) -> dict:
+    """Read and validate a model file; returns the parsed document."""
+    p = Path(path)
+    if not p.exists():
+        raise AfterlookError(f"model file not found: {p}")
+    if p.is_dir():
+        raise AfterlookError(f"model path is a directory, not a file: {p}")
+    try:
+        raw = p.read_bytes()
+    except OSError as exc:
+        raise AfterlookError(f"cannot read model file {p}: {exc.strerror or exc}") from None
+    try:
+        doc = json.loads(raw.decode("utf-8"))
+    except (UnicodeDecodeError, json.JSONDecodeError):
+        raise AfterlookError(f"model file {p} is not JSON (is it a table or another file?)") from None
+    if not isinstance(doc, dict) or doc.get("format") != FORMAT:
+        raise AfterlookError(f"{p} is not an afterlook model file (expected \"format\": \"{FORMAT}\")")
+    version = doc.get("version")
+    if not isinstance(version, int) or isinstance(version, bool):
+        raise AfterlookError(f"model file {p} has no integer \"version\"")
+    if version > VERSION:
+        raise AfterlookError(
+            f"model file {p} has version {version}; this afterlook reads version {VERSION} (upgrade afterlook)"
+        )
+    if version < 1:
+        raise AfterlookError(f"model file {p} has unknown version {version}")
+    missing = [k for k in REQUIRED_KEYS if k not in doc]
+    if missing:
+        raise AfterlookError(f"model file {p} is missing key(s): {', '.join(missing)}")
+    return doc
+
+
+def write_json_atomic(doc: dict, path: str | os.PathLike, *, sort_keys: bool = False) -> None:
+    """Write JSON through a temp file in the same folder, fsync, then rename."""
+    p = Path(path)
+    folder = p.parent if str(p.parent) else Path(".")
+    if p.is_dir():
+        raise AfterlookError(f"cannot write {p}: it is a directory")
+    if not folder.exists():
+        raise AfterlookError(f"cannot write {p}: folder {folder} does not exist")
+    text = json.dumps(doc, indent=2, sort_keys=sort_keys, allow_nan=False) + "\n"
+    try:
+        fd, tmp = tempfile.mkstemp(prefix=f".{p.name}.", suffix=".tmp", dir=folder)
+    except OSError as exc:
+        raise AfterlookError(f"cannot write {p}: {exc.strerror or exc}") from None
+    try:
+        with os.fdopen(fd, "w", encoding="utf-8") as fh:
+            fh.write(text)
+            fh.flush()
+            os.fsync(fh.fileno())
+        os.replace(tmp, p)
+    except OSError as exc:
+        try:
+            os.unlink(tmp)
+        except OSError:
+            pass
+        raise AfterlookError(f"cannot write {p}: {exc.strerror or exc}") from None
+
+
+def write_model_document(doc: dict, path: str | os.PathLike) -> None:
+    write_json_atomic(doc, path)
