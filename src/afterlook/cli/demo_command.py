@@ -86,7 +86,7 @@ def print_analysis(doc, model, cases, result, folder: Path) -> int:
     out.print(render.model_line(model, doc["model"]))
     out.print()
     out.rule("1. misses: labelled failures the model scored as normal")
-    out.print(render.misses_table(result, limit=15))
+    out.print(render.misses_table(result, limit=10))
     if result.misses:
         worst = result.misses[0]
         out.print()

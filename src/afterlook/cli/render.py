@@ -12,7 +12,7 @@ from rich.text import Text
 from ..api import ExplainResult, MissesResult
 from ..model import Model
 
-BAR_HALF = 10  # characters each side of zero in a z bar
+BAR_HALF = 5  # characters each side of zero in a z bar
 BAR_FULL_SCALE = 4.0  # |z| that fills half a bar
 
 
@@ -68,12 +68,13 @@ def misses_table(result: MissesResult, limit: int | None = None) -> Group:
     head.append(f"precision {m.precision:.3f}, recall {m.recall:.3f}, F1 {m.f1:.3f}; false alarms {m.fp}")
     table = Table(box=box.SIMPLE_HEAD, show_edge=False)
     table.add_column("#", justify="right", style="dim")
-    table.add_column("case")
-    table.add_column("log-density", justify="right")
-    table.add_column("margin", justify="right")
+    width = max([len(m.case) for m in result.misses] + [4])
+    table.add_column("case", no_wrap=True, min_width=width)
+    table.add_column("log-density", justify="right", no_wrap=True, min_width=11)
+    table.add_column("margin", justify="right", no_wrap=True, min_width=8)
     ctx_cols = list(result.misses[0].context) if result.misses else []
     for c in ctx_cols:
-        table.add_column(c, overflow="fold")
+        table.add_column(c, overflow="ellipsis", no_wrap=True, max_width=28, ratio=1)
     shown = result.misses if limit is None else result.misses[:limit]
     for k, miss in enumerate(shown, 1):
         table.add_row(str(k), miss.case, fmt(miss.log_density), f"+{fmt(miss.margin)}",
@@ -96,32 +97,34 @@ def explain_table(result: ExplainResult) -> Group:
         head.append(f"  labelled {'anomaly' if result.label else 'normal'}")
     verdict = "FLAGGED" if result.flagged else "not flagged"
     head.append(f"  {verdict}", style="bold red" if result.flagged else "bold")
-    head.append(f"  log-density {fmt(result.log_density)} vs threshold {fmt(result.threshold)}")
+    head.append(f"  ({result.model_kind} model)", style="dim")
+    head.append(f"\nlog-density {fmt(result.log_density)} vs threshold {fmt(result.threshold)}")
     if math.isfinite(result.log_density):
         head.append(f" (margin {result.margin:+.3f})")
     ctx = "  ".join(f"{k}: {v}" for k, v in result.context.items() if v)
     full = any(f.conditional_z is not None for f in result.features)
     table = Table(box=box.SIMPLE_HEAD, show_edge=False)
-    table.add_column("feature")
-    table.add_column("value", justify="right")
-    table.add_column(f"z  (-{BAR_FULL_SCALE:g} .. +{BAR_FULL_SCALE:g})", justify="center", no_wrap=True)
-    table.add_column("z", justify="right")
-    table.add_column("pct", justify="right")
-    table.add_column("contribution", justify="right")
+    table.add_column("feature", no_wrap=True, overflow="ellipsis", max_width=20)
+    table.add_column("value", justify="right", no_wrap=True)
+    table.add_column("z bar", justify="center", no_wrap=True)
+    table.add_column("z", justify="right", no_wrap=True)
+    table.add_column("pct", justify="right", no_wrap=True)
+    table.add_column("contrib", justify="right", no_wrap=True)
     if full:
-        table.add_column("conditional z", justify="right")
-        table.add_column("", no_wrap=True)
+        table.add_column("cond z", justify="right", no_wrap=True)
     order = sorted(result.features, key=lambda f: (f.contribution if math.isfinite(f.contribution) else 0.0))
+    broken = False
     for f in order:
-        row = [f.name, fmt(f.value), z_bar(f.z), f"{f.z:+.2f}", fmt(f.percentile, 1), fmt(f.contribution)]
+        row = [f.name, _short_num(f.value), z_bar(f.z), f"{f.z:+.2f}", fmt(f.percentile, 1), f"{f.contribution:.2f}"]
         if full:
             cz = f.conditional_z
-            row.append(f"{cz:+.2f}" if cz is not None else "n/a")
-            row.append(_relation_note(f.z, cz))
+            mark = _relation_mark(f.z, cz)
+            broken = broken or bool(mark)
+            row.append((f"{cz:+.2f}" if cz is not None else "n/a") + mark)
         table.add_row(*row)
     note = Text(
-        "z: distance from the normal mean in standard deviations; pct: share of normal rows at or below the value; "
-        "contribution: the feature's share (nats) of the log-density below its peak",
+        f"z: standard deviations from the normal mean (bar: - left, + right, full at {BAR_FULL_SCALE:g}); "
+        "pct: % of normal rows at or below; contrib: nats of log-density below its peak",
         style="dim",
     )
     parts = [head]
@@ -129,19 +132,21 @@ def explain_table(result: ExplainResult) -> Group:
         parts.append(Text(ctx, style="dim"))
     parts += [table, note]
     if full:
-        parts.append(Text("conditional z: distance from the value expected given all other features "
-                          "(large while z is small = a broken relation)", style="dim"))
+        parts.append(Text("cond z: standard deviations from the value expected given all other features"
+                          + ("; ! = relation broken (|cond z| >= 3 while |z| < 2)" if broken else ""), style="dim"))
     return Group(*parts)
 
 
-def _relation_note(z: float, cz: float | None) -> str:
+def _short_num(x: float) -> str:
+    if x is None or not math.isfinite(x):
+        return "n/a"
+    return f"{x:.4g}" if abs(x) < 1e6 else f"{x:.3e}"
+
+
+def _relation_mark(z: float, cz: float | None) -> str:
     if cz is None or not math.isfinite(cz):
-        return ""
-    if abs(cz) >= 3 and abs(z) < 2:
-        return "relation broken"
-    if abs(cz) >= 3:
-        return "extreme"
-    return ""
+        return " "
+    return "!" if abs(cz) >= 3 and abs(z) < 2 else " "
 
 
 def console(stderr: bool = False) -> Console:
