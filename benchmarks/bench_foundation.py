@@ -11,12 +11,16 @@ Each operation is timed against the obvious alternative in the same run:
            summing ``SufficientStats`` vs ``pandas.read_csv(chunksize=...)`` doing
            the same.
 
-Every (operation, implementation) pair runs in its own child process so that
-its peak memory is its own: the child builds its input, resets the kernel's
-peak-RSS mark (``/proc/self/clear_refs``), then times the call (best of
-``--repeat``) and reports ``ru_maxrss`` together with the resident size just
-before timing. "Extra" memory is the difference: what the call needed on top
-of its input.
+Timing: one child process per operation builds the input once, warms every
+implementation up with one untimed call, then lets the implementations take
+turns for ``--repeat`` rounds (default 3), so a burst of background load hits
+both sides alike; the best time is compared, the median is printed too.
+
+Memory: one more child per (operation, implementation), so that its peak is
+its own. It builds the input, makes one warm-up call, resets the kernel's
+peak-RSS mark (``/proc/self/clear_refs``), makes one call and reads the
+peak (``VmHWM``, the per-process figure behind ``ru_maxrss``). "Extra" is that peak minus the resident size just before the
+call: what the call needed on top of its input.
 
 Usage::
 
@@ -32,6 +36,7 @@ another file; smaller runs write nothing unless ``--out`` is given).
 from __future__ import annotations
 
 import argparse
+import ctypes
 import datetime as _dt
 import gc
 import json
@@ -132,6 +137,15 @@ def current_rss_mib() -> float:
 
 
 def peak_rss_mib() -> float:
+    """Peak resident size of this process.
+
+    Linux's ``ru_maxrss`` survives fork and exec (a child starts with its
+    parent's peak) and ``clear_refs`` does not lower it, so the same peak is
+    read per address space from ``VmHWM`` where it exists.
+    """
+    kib = _status_kib("VmHWM")
+    if kib is not None:
+        return kib / 1024.0
     kib = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss
     if sys.platform == "darwin":  # bytes there, KiB on Linux
         kib //= 1024
@@ -155,10 +169,15 @@ def release_pools() -> None:
     gc.collect()
     if "pyarrow" in sys.modules:
         sys.modules["pyarrow"].default_memory_pool().release_unused()
+    try:  # glibc keeps freed blocks below its (adaptive) mmap threshold resident
+        ctypes.CDLL(None).malloc_trim(0)
+    except (OSError, AttributeError):
+        pass
 
 
 # --------------------------------------------------------------------------
-# workers: one (operation, implementation) per child process
+# workers: timing runs one child per operation (implementations interleaved);
+# memory runs one child per (operation, implementation)
 # --------------------------------------------------------------------------
 
 
@@ -178,90 +197,123 @@ def _max_rel_diff(a: np.ndarray, b: np.ndarray) -> float:
     return float(np.max(np.abs(a - b) / denom))
 
 
-def run_worker(op: str, impl: str, rows: int, repeat: int, path: str | None) -> dict:
+IMPLS = {
+    "score": ("afterlook", "scipy"),
+    "fit": ("afterlook", "afterlook-stats", "numpy"),
+    "load": ("afterlook", "pandas"),
+    "chunks": ("afterlook", "pandas"),
+}
+
+
+def make_calls(op: str, rows: int, path: str | None) -> tuple[dict, dict]:
+    """The zero-argument calls to time for *op*, by implementation, and their shared inputs."""
     from afterlook.core.gaussian import GaussianModel, SufficientStats
 
-    info: dict = {}
+    ctx: dict = {}
     if op == "score":
+        from scipy.stats import multivariate_normal
+
         X = make_matrix(rows)
         model = GaussianModel("full").fit(X)
         mean, cov = model.mean_, model.covariance_
-        if impl == "afterlook":
-            fn = lambda: model.log_density(X)  # noqa: E731
-        else:
-            from scipy.stats import multivariate_normal
-
-            fn = lambda: multivariate_normal(mean, cov).logpdf(X)  # noqa: E731
+        ctx.update(X=X, mean=mean, cov=cov)
+        calls = {
+            "afterlook": lambda: model.log_density(X),
+            "scipy": lambda: multivariate_normal(mean, cov).logpdf(X),
+        }
     elif op == "fit":
         X = make_matrix(rows)
-        if impl == "afterlook":
-            fn = lambda: GaussianModel("full").fit(X)  # noqa: E731
-        elif impl == "afterlook-stats":
-            fn = lambda: SufficientStats.of(X)  # noqa: E731
-        else:
-            fn = lambda: np.cov(X, rowvar=False)  # noqa: E731
+        ctx.update(X=X)
+        calls = {
+            "afterlook": lambda: GaussianModel("full").fit(X),
+            "afterlook-stats": lambda: SufficientStats.of(X),
+            "numpy": lambda: np.cov(X, rowvar=False),
+        }
     elif op == "load":
-        if impl == "afterlook":
-            from afterlook.store.tables import load_table
+        import pandas as pd
 
-            fn = lambda: load_table(path)  # noqa: E731
-        else:
-            import pandas as pd
+        from afterlook.store.tables import load_table
 
-            fn = lambda: pd.read_csv(path)  # noqa: E731
+        calls = {"afterlook": lambda: load_table(path), "pandas": lambda: pd.read_csv(path)}
     elif op == "chunks":
+        import pandas as pd
+
+        from afterlook.store.tables import iter_numeric_chunks
+
         cols = column_names()
-        if impl == "afterlook":
-            from afterlook.store.tables import iter_numeric_chunks
-
-            fn = lambda: _sufficient_sum(iter_numeric_chunks(path, cols, chunk_rows=CHUNK_ROWS))  # noqa: E731
-        else:
-            import pandas as pd
-
-            fn = lambda: _sufficient_sum(  # noqa: E731
+        calls = {
+            "afterlook": lambda: _sufficient_sum(iter_numeric_chunks(path, cols, chunk_rows=CHUNK_ROWS)),
+            "pandas": lambda: _sufficient_sum(
                 c.to_numpy(dtype=np.float64) for c in pd.read_csv(path, usecols=cols, chunksize=CHUNK_ROWS)
-            )
+            ),
+        }
     else:
         raise SystemExit(f"unknown operation {op!r}")
+    return calls, ctx
 
-    # One untimed warm-up call: first-call costs (lazy imports, BLAS thread
-    # buffers, page cache) belong to neither side's steady-state numbers.
-    fn()
+
+def _agreement(op: str, impl: str, result, ctx: dict, rows: int) -> dict:
+    """How closely an afterlook result matches an independent computation."""
+    if op == "score" and impl == "afterlook":
+        from scipy.stats import multivariate_normal
+
+        ref = multivariate_normal(ctx["mean"], ctx["cov"]).logpdf(ctx["X"])
+        return {"max_rel_diff": _max_rel_diff(result, ref)}
+    if op == "fit" and impl in ("afterlook", "afterlook-stats"):
+        cov = result.covariance_ if impl == "afterlook" else result.covariance()
+        return {"max_rel_diff": _max_rel_diff(cov, np.cov(ctx["X"], rowvar=False, bias=True))}
+    if op == "load" and impl == "afterlook":
+        expected = np.round(make_matrix(rows), DECIMALS)
+        return {
+            "rows": result.n_rows,
+            "numeric_columns": len(result.numeric_columns),
+            "max_rel_diff": _max_rel_diff(result.numeric(column_names()), expected),
+        }
+    if op == "chunks" and impl == "afterlook":
+        expected = np.cov(np.round(make_matrix(rows), DECIMALS), rowvar=False, bias=True)
+        return {"max_rel_diff": _max_rel_diff(result.covariance(), expected)}
+    return {}
+
+
+def time_worker(op: str, rows: int, repeat: int, path: str | None) -> dict:
+    """Time every implementation of *op* in one process, interleaved.
+
+    Each call is warmed up once (lazy imports, BLAS thread buffers, page
+    cache), then the implementations take turns for ``repeat`` rounds, so a
+    burst of background load hits both sides alike. Best and median are kept.
+    """
+    calls, ctx = make_calls(op, rows, path)
+    for fn in calls.values():
+        fn()
+    release_pools()
+    times: dict[str, list[float]] = {impl: [] for impl in calls}
+    for _ in range(repeat):
+        for impl, fn in calls.items():
+            run_times, result = timed_runs(fn, 1)
+            times[impl] += run_times
+            del result
+    out = {}
+    for impl, fn in calls.items():
+        out[impl] = {"seconds": min(times[impl]), "median_seconds": float(np.median(times[impl]))}
+        out[impl].update(_agreement(op, impl, fn(), ctx, rows))
+    return out
+
+
+def memory_worker(op: str, impl: str, rows: int, path: str | None) -> dict:
+    """Peak resident memory of one warmed-up call of one implementation."""
+    calls, _ = make_calls(op, rows, path)
+    fn = calls[impl]
+    calls.clear()
+    fn()  # warm-up, as for timing
     release_pools()
     reset_ok = reset_peak()
     base = current_rss_mib()
     if not reset_ok:
         base = max(base, peak_rss_mib())
-    times, result = timed_runs(fn, repeat)
+    result = fn()
     peak = peak_rss_mib()
-    info.update(
-        seconds=min(times),
-        median_seconds=float(np.median(times)),
-        peak_mib=peak,
-        base_mib=base,
-        extra_mib=max(0.0, peak - base),
-        peak_reset=reset_ok,
-    )
-
-    # Agreement checks (after timing and after the peak was read).
-    if op == "score" and impl == "afterlook":
-        from scipy.stats import multivariate_normal
-
-        ref = multivariate_normal(mean, cov).logpdf(X)
-        info["max_rel_diff"] = _max_rel_diff(result, ref)
-    elif op == "fit" and impl in ("afterlook", "afterlook-stats"):
-        cov = result.covariance_ if impl == "afterlook" else result.covariance()
-        ref = np.cov(X, rowvar=False, bias=True)
-        info["max_rel_diff"] = _max_rel_diff(cov, ref)
-    elif op == "load" and impl == "afterlook":
-        info["rows"] = result.n_rows
-        info["numeric_columns"] = len(result.numeric_columns)
-        expected = np.round(make_matrix(rows), DECIMALS)
-        info["max_rel_diff"] = _max_rel_diff(result.numeric(column_names()), expected)
-    elif op == "chunks" and impl == "afterlook":
-        expected = np.cov(np.round(make_matrix(rows), DECIMALS), rowvar=False, bias=True)
-        info["max_rel_diff"] = _max_rel_diff(result.covariance(), expected)
-    return info
+    del result
+    return {"peak_mib": peak, "base_mib": base, "extra_mib": max(0.0, peak - base), "peak_reset": reset_ok}
 
 
 # --------------------------------------------------------------------------
@@ -278,14 +330,14 @@ STEPS = [
 ]
 
 
-def _child(op: str, impl: str, rows: int, repeat: int, path: str | None) -> dict:
-    cmd = [sys.executable, str(Path(__file__).resolve()), "--worker", op, impl, "--rows", str(rows), "--repeat", str(repeat)]
+def _child(args: list[str], rows: int, repeat: int, path: str | None) -> dict:
+    cmd = [sys.executable, str(Path(__file__).resolve()), "--worker", *args, "--rows", str(rows), "--repeat", str(repeat)]
     if path is not None:
         cmd += ["--data", path]
     proc = subprocess.run(cmd, capture_output=True, text=True)
     if proc.returncode != 0:
         sys.stderr.write(proc.stderr)
-        raise SystemExit(f"benchmark child failed: {op} {impl} (exit {proc.returncode})")
+        raise SystemExit(f"benchmark child failed: {' '.join(args)} (exit {proc.returncode})")
     return json.loads(proc.stdout.strip().splitlines()[-1])
 
 
@@ -366,8 +418,8 @@ def build_tables(rows: int, results: list[dict]) -> str:
         )
     lines += [
         "",
-        "peak = the child process's ru_maxrss while timing; extra = peak minus the resident size just before "
-        "timing (the input array, or nothing for the file steps).",
+        "peak = peak resident size (VmHWM) of a child process making one warmed-up call; extra = peak minus "
+        "the resident size just before the call (which holds the input array for score and fit).",
     ]
     return "\n".join(lines)
 
@@ -380,7 +432,7 @@ def main(argv: list[str] | None = None) -> int:
     parser.add_argument("--out", default=None, help="Markdown results file (default: results_foundation.md for a full-size run)")
     parser.add_argument("--data-dir", default=None, help="folder for the benchmark CSV (default: a temporary folder, removed after)")
     parser.add_argument("--strict", action="store_true", help="exit 1 when a target is not met")
-    parser.add_argument("--worker", nargs=2, metavar=("OP", "IMPL"), help=argparse.SUPPRESS)
+    parser.add_argument("--worker", nargs="+", help=argparse.SUPPRESS)
     parser.add_argument("--data", default=None, help=argparse.SUPPRESS)
     args = parser.parse_args(argv)
 
@@ -389,7 +441,12 @@ def main(argv: list[str] | None = None) -> int:
         parser.error("--rows must be >= 2 and --repeat >= 1")
 
     if args.worker:
-        print(json.dumps(run_worker(args.worker[0], args.worker[1], rows, args.repeat, args.data)))
+        kind, op, *impl = args.worker
+        if kind == "time":
+            report = time_worker(op, rows, args.repeat, args.data)
+        else:
+            report = memory_worker(op, impl[0], rows, args.data)
+        print(json.dumps(report))
         return 0
 
     versions = _versions()
@@ -410,13 +467,17 @@ def main(argv: list[str] | None = None) -> int:
             print(f"wrote {csv_path} ({csv_path.stat().st_size / 2**20:.0f} MiB) in {time.perf_counter() - start:.1f} s")
         else:
             print(f"using existing {csv_path}")
-        cache: dict[tuple[str, str], dict] = {}
+        timing: dict[str, dict] = {}
+        memory: dict[tuple[str, str], dict] = {}
         for label, op, ours_impl, ref_impl, ref_label, target in STEPS:
             path = str(csv_path) if op in ("load", "chunks") else None
+            if op not in timing:
+                timing[op] = _child(["time", op], rows, args.repeat, path)
             for impl in (ours_impl, ref_impl):
-                if (op, impl) not in cache:
-                    cache[(op, impl)] = _child(op, impl, rows, args.repeat, path)
-            ours, ref = cache[(op, ours_impl)], cache[(op, ref_impl)]
+                if (op, impl) not in memory:
+                    memory[(op, impl)] = _child(["memory", op, impl], rows, 1, path)
+            ours = {**timing[op][ours_impl], **memory[(op, ours_impl)]}
+            ref = {**timing[op][ref_impl], **memory[(op, ref_impl)]}
             ratio = ours["seconds"] / ref["seconds"]
             results.append(dict(label=label, ref_label=ref_label, ours=ours, ref=ref, ratio=ratio, target=target))
             agree = f", max rel diff {ours['max_rel_diff']:.1e}" if "max_rel_diff" in ours else ""

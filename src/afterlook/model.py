@@ -184,6 +184,7 @@ class _FrameColumns(Mapping):
 
     def __init__(self, frame: pd.DataFrame):
         self.frame = frame
+        self.n_rows = len(frame)
 
     def __getitem__(self, key):
         if key not in self.frame.columns:

@@ -139,12 +139,6 @@ def test_arithmetic_and_precedence(text, ref):
     close(out, ref)
 
 
-@pytest.mark.xfail(
-    reason="BUG: Expression.evaluate (src/afterlook/core/expressions.py lines 84-90) takes the row count "
-    "only from the columns the expression uses, so a column-free expression returns 1 value for an "
-    "n-row table and expressions.evaluate() then counts 1 NaN row instead of n for e.g. '1/0'",
-    strict=True,
-)
 def test_constant_expression_broadcasts_to_the_columns_length():
     e = parse("2 * 3")
     assert e.columns == ()
@@ -169,22 +163,11 @@ def test_backtick_name_that_is_a_function_word_is_a_column():
     refused("`log`(a)")  # a column cannot be called
 
 
-@pytest.mark.xfail(
-    reason="BUG: src/afterlook/core/expressions.py parse() line 133 pads each backtick placeholder "
-    "with spaces, so text that starts with a backtick name becomes ' __col0__ ...' and "
-    "ast.parse(mode='eval') fails with 'unexpected indent'",
-    strict=True,
-)
 def test_expression_may_start_with_a_backtick_name():
     out = ev("`flow rate` / b", **{"flow rate": A, "b": B})
     close(out, A / B)
 
 
-@pytest.mark.xfail(
-    reason="BUG: Expression.rename_text() can emit text that does not parse (leading backtick, "
-    "see above) so a canonical form cannot be read back",
-    strict=True,
-)
 def test_canonical_text_with_leading_backtick_round_trips():
     e = parse("(`flow rate`) * b")  # parses; its canonical text starts with a backtick
     assert e.rename_text().startswith("`")
@@ -261,13 +244,6 @@ def test_evaluate_helper_counts_nan_rows():
     close(values, [0.0, np.nan, np.nan, np.log(2.0)])
 
 
-@pytest.mark.xfail(
-    reason="BUG: src/afterlook/core/expressions.py replaces non-finite values by NaN only on the final "
-    "result (line 91) and min/max use np.fmin/np.fmax (line 39), so an intermediate division by zero or "
-    "log of a non-positive value can vanish: 1/(x/0) -> 0, exp(log(0)) -> 0, max(log(-1), 0) -> 0, "
-    "min(2/0, 1) -> 1, instead of NaN",
-    strict=True,
-)
 @pytest.mark.parametrize(
     "text,x",
     [
@@ -285,13 +261,12 @@ def test_intermediate_domain_errors_stay_nan(text, x):
     assert np.isnan(ev(text, x=[x])[0])
 
 
-@pytest.mark.xfail(
-    reason="BUG: _unparse (src/afterlook/core/expressions.py line 291) writes an overflowing constant "
-    "as repr(inf) = 'inf', which reads back as a column named 'inf'",
-    strict=True,
-)
-def test_canonical_text_of_overflowing_constant_reads_back():
-    e = parse("x + 1e400")
+def test_overflowing_constant_is_refused_so_canonical_text_always_reads_back():
+    # Decision: a literal that overflows float64 (1e400 -> inf) is refused at
+    # parse time; otherwise its canonical text 'inf' would read back as a column.
+    with pytest.raises(AfterlookError, match="too large"):
+        parse("x + 1e400")
+    e = parse("x + 1e300")
     assert parse(e.rename_text()).columns == ("x",)
 
 

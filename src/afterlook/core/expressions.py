@@ -36,7 +36,7 @@ _UNARY_FUNCTIONS: dict[str, Callable[[np.ndarray], np.ndarray]] = {
     "abs": np.abs,
     "exp": np.exp,
 }
-_VARIADIC_FUNCTIONS = {"min": np.fmin, "max": np.fmax}
+_VARIADIC_FUNCTIONS = {"min": np.minimum, "max": np.maximum}  # NaN propagates
 FUNCTIONS = tuple(sorted([*_UNARY_FUNCTIONS, *_VARIADIC_FUNCTIONS, "clip"]))
 
 _BINARY_OPS = {
@@ -83,6 +83,10 @@ class Expression:
             )
         env = {ph: np.asarray(columns[col], dtype=np.float64) for ph, col in self._names.items()}
         n = _common_length(env.values())
+        if n is None:  # no column used: one value per row of the table
+            n = getattr(columns, "n_rows", None)
+            if n is None and len(columns):
+                n = len(np.asarray(columns[next(iter(columns))]))
         with np.errstate(all="ignore"):
             out = _Evaluator(env).visit(self._tree)
             out = np.asarray(out, dtype=np.float64)
@@ -136,7 +140,7 @@ def parse(text: str, known_columns: list[str] | tuple[str, ...] | None = None) -
         raise AfterlookError(f"unbalanced backtick in expression '{source}'")
     prepared = _BACKTICK.sub(_sub, source)
     try:
-        tree = ast.parse(prepared, mode="eval")
+        tree = ast.parse(prepared.strip(), mode="eval")
     except (SyntaxError, ValueError, RecursionError, MemoryError, OverflowError) as exc:
         detail = getattr(exc, "msg", None) or type(exc).__name__
         raise AfterlookError(f"cannot parse expression '{_short(source)}': {detail}") from None
@@ -202,6 +206,12 @@ class _Checker:
         elif isinstance(node, ast.Constant):
             if isinstance(node.value, bool) or not isinstance(node.value, (int, float)):
                 self.fail(f"the constant {node.value!r}")
+            try:
+                finite = np.isfinite(float(node.value))
+            except OverflowError:
+                finite = False
+            if not finite:
+                raise AfterlookError(f"expression '{_short(self.source)}': the number {_short(str(node.value), 20)} is too large")
         elif isinstance(node, ast.Name):
             if not isinstance(node.ctx, ast.Load):
                 self.fail("assignment")
@@ -245,8 +255,15 @@ class _Checker:
 
 
 class _Evaluator(ast.NodeVisitor):
+    """Evaluates a checked tree; every intermediate non-finite value becomes NaN,
+    so ``1 / (x / 0)`` stays NaN instead of quietly turning into 0."""
+
     def __init__(self, env: Mapping[str, np.ndarray]):
         self.env = env
+
+    def visit(self, node):
+        value = super().visit(node)
+        return np.where(np.isfinite(value), value, np.nan)
 
     def visit_BinOp(self, node: ast.BinOp):
         return _BINARY_OPS[type(node.op)](self.visit(node.left), self.visit(node.right))

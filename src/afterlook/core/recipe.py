@@ -97,6 +97,9 @@ def parse_transform(feature: str, text: str) -> Transform:
 
 def apply_transform(t: Transform, feature: str, values: np.ndarray) -> np.ndarray:
     values = np.asarray(values, dtype=np.float64)
+    # An infinite reading is a broken sensor, not a value: never let a power
+    # transform map it to a finite number (lambda < 0 would give -1/lambda).
+    values = np.where(np.isfinite(values), values, np.nan)
     if t.kind == "expression":
         return expressions.parse(t.expression).evaluate({feature: values})
     if t.lmbda is None:
