@@ -50,7 +50,7 @@ def _run_cli(*args, cwd: str | os.PathLike | None = None, env: dict | None = Non
     return proc.returncode, proc.stdout, proc.stderr
 
 
-@pytest.fixture
+@pytest.fixture(scope="session")
 def run_cli():
     """``run_cli(*args, cwd=None, env=None) -> (code, stdout, stderr)`` for the real console script."""
     return _run_cli
@@ -65,7 +65,7 @@ def _run_module(*args, cwd=None) -> tuple[int, str, str]:
     return proc.returncode, proc.stdout, proc.stderr
 
 
-@pytest.fixture
+@pytest.fixture(scope="session")
 def run_module():
     return _run_module
 
@@ -79,7 +79,7 @@ def parse_one_json(stdout: str):
     return doc
 
 
-@pytest.fixture
+@pytest.fixture(scope="session")
 def one_json():
     return parse_one_json
 
@@ -143,6 +143,12 @@ def tiny_frame(n: int = 40, seed: int = 0) -> pd.DataFrame:
     c = rng.normal(-3.0, 1.0, n)
     return pd.DataFrame({"id": [f"r{i}" for i in range(n)], "a": a.round(4), "b": b.round(4),
                          "c": c.round(4), "label": ["normal"] * n})
+
+
+@pytest.fixture(scope="session")
+def make_tiny_frame():
+    """``make_tiny_frame(n=40, seed=0)``: see :func:`tiny_frame`."""
+    return tiny_frame
 
 
 @pytest.fixture

@@ -5,4 +5,11 @@ COMMANDS: dict = {}
 
 def register(sub, add_common, add_table_opts, caution) -> None:
     """Add further subcommands to the parser (filled in as features land)."""
+    from . import shape_command
+
+    shape_command.register(sub, add_common, add_table_opts, caution)
+    COMMANDS["shape"] = shape_command.run
+    from . import discovery_commands
+
+    COMMANDS.update(discovery_commands.register(sub, add_common, add_table_opts, caution))
     return None

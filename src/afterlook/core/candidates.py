@@ -23,8 +23,8 @@ shaped_difference      standardized difference of the shaped        a shaping
    candidate over the sample follow from a handful of ``d x d`` matrix
    products (``A^T A``, ``(A^2)^T (A^2)``, ``A^T (1/A)``, ...), so thousands of
    candidates cost a few BLAS calls. The first-pass statistic is the plain
-   z of the target, ``(t - mean) / sd``; for several targets, the smallest
-   ``|z|`` (a candidate must expose all of them).
+   z of the target, ``(t - mean) / sd``; for several targets, the median
+   ``|z|``.
 2. *Exact, robust statistics for the best few hundred* (and a reserve of
    the best pairs correlated at ``|r| >= min_correlation``, so related pairs
    are always looked at): the columns are built with the expression engine
@@ -51,9 +51,12 @@ case by luck. Each candidate's tail is
   ``>= 0`` so that a light tail is extrapolated no thinner than an
   exponential one (conservative for Gaussian-like candidates).
 
-``adjusted_tail = min(1, m * tail)`` (Bonferroni over *all* candidates tried,
-conservative because candidates are correlated) and ``beyond_chance`` is
-``adjusted_tail < 0.05``. For several targets the largest tail is used.
+``adjusted_tail = min(1, m * k * tail)`` for ``k`` targets (Bonferroni over
+*all* candidates tried and all targets searched; conservative because the
+candidates are correlated) and ``beyond_chance`` is ``adjusted_tail < 0.05``.
+With several targets, ``targets_exposed`` counts the targets beyond chance,
+``adjusted_tail`` is that of the best-exposed target, ``case_z`` the median
+robust z, and the ranking puts candidates exposing more targets first.
 """
 
 from __future__ import annotations
@@ -96,7 +99,7 @@ class Candidate:
     inputs: tuple[str, str]
     r: float  # correlation of the input pair in the normal population
     first_pass_z: float = float("nan")
-    case_z: float = float("nan")  # robust z of the weakest target
+    case_z: float = float("nan")  # robust z of the target (median over several)
     case_z_by_case: dict = field(default_factory=dict)
     tail: float = float("nan")
     tail_method: str = ""
@@ -106,21 +109,18 @@ class Candidate:
     other_anomalies: int = 0
     other_misses_separated: int = 0
     other_misses: int = 0
+    targets_exposed: int = 0
     false_alarms_added: int | None = None
     catches_targets: int | None = None
     metrics_after: dict | None = None
 
-    @property
-    def correlated(self) -> bool:
-        return False
-
     def rank_key(self, min_correlation: float = 0.3):
-        """Order: extremeness (order of magnitude of the adjusted tail, so
+        """Order: targets exposed beyond chance, then extremeness (order of magnitude of the adjusted tail, so
         near-equal tails tie), then other anomalies separated, then false
         alarms added, then preference for correlated pairs, then |robust z|."""
         bucket = math.floor(math.log10(max(self.adjusted_tail, 1e-300))) if self.adjusted_tail < 1 else 0
         fa = self.false_alarms_added if self.false_alarms_added is not None else math.inf
-        return (bucket, -self.other_anomalies_separated, fa, -(abs(self.r) >= min_correlation),
+        return (-self.targets_exposed, bucket, -self.other_anomalies_separated, fa, -(abs(self.r) >= min_correlation),
                 -abs(self.case_z) if math.isfinite(self.case_z) else 0.0)
 
     def to_dict(self) -> dict:
@@ -136,6 +136,7 @@ class Candidate:
             "tail_method": self.tail_method,
             "adjusted_tail": _num(self.adjusted_tail),
             "beyond_chance": bool(self.beyond_chance),
+            "targets_exposed": int(self.targets_exposed),
             "other_anomalies_separated": int(self.other_anomalies_separated),
             "other_anomalies": int(self.other_anomalies),
             "other_misses_separated": int(self.other_misses_separated),
@@ -383,7 +384,7 @@ def generate_and_screen(
     for g in groups:
         with np.errstate(invalid="ignore", divide="ignore"):
             z = (g.target - g.mean) / np.sqrt(np.clip(g.var, 0, None))
-        zmin = np.min(np.abs(z), axis=0)
+        zmin = np.median(np.abs(z), axis=0)
         zmin[~np.isfinite(zmin)] = np.nan
         for k in range(len(g.i)):
             candidates.append(Candidate(g.texts[k], g.kind, (names[g.i[k]], names[g.j[k]]),
@@ -424,12 +425,16 @@ def second_pass(
             continue
         zs = robust_z(v, tv)
         tails = [tail_probability(v, float(t)) for t in tv]
-        worst = int(np.argmax([t[0] for t in tails]))
+        # Bonferroni over every candidate tried and every target searched.
+        family = n_tried * len(tv)
+        adjusted = np.array([min(1.0, t[0] * family) for t in tails])
+        best = int(np.argmin(adjusted))
         c.case_z_by_case = {cid: float(z) for cid, z in zip(target_ids, zs)}
-        c.case_z = float(zs[int(np.argmin(np.abs(zs)))])
-        c.tail, c.tail_method = float(tails[worst][0]), tails[worst][1]
-        c.adjusted_tail = float(min(1.0, c.tail * n_tried))
-        c.beyond_chance = bool(c.adjusted_tail < settings.chance_level)
+        c.case_z = float(np.median(zs)) if len(zs) > 1 else float(zs[0])
+        c.tail, c.tail_method = float(tails[best][0]), tails[best][1]
+        c.adjusted_tail = float(adjusted[best])
+        c.targets_exposed = int(np.sum(adjusted < settings.chance_level))
+        c.beyond_chance = bool(c.targets_exposed > 0)
         if other_anomalies is not None and other_is_miss is not None and len(other_is_miss):
             ov = expr.evaluate(other_anomalies)
             med = np.median(v)

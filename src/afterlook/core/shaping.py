@@ -460,16 +460,16 @@ def search_transform(
     skew_before = _skew(sample)
     p_before = _k2_pvalue(sample)
     if abs(skew_before) < SYMMETRIC_SKEW and p_before >= NEAR_GAUSSIAN_P:
-        choice, reason = candidates[0], "near-Gaussian already: left alone"
+        choice, reason = candidates[0], "near-Gaussian: left alone"
     elif choice.transform is not None and identity_stat - choice.statistic < max(CLEAR_GAIN * identity_stat, critical):
-        choice, reason = candidates[0], "no transform helps clearly: left alone"
+        choice, reason = candidates[0], "no clear gain: left alone"
     elif choice.transform is None:
-        reason = "no transform helps clearly: left alone"
+        reason = "no clear gain: left alone"
     else:
         side = "right-skewed" if skew_before > 0 else "left-skewed"
         if abs(skew_before) < SYMMETRIC_SKEW:
-            side = "heavy- or light-tailed"
-        reason = f"{side}: transform helps"
+            side = "tails not Gaussian"
+        reason = f"{side}: transformed"
 
     after = after_by_text[choice.description]
     skew_after = _skew(after)

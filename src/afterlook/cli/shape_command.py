@@ -1,0 +1,128 @@
+"""`afterlook shape DATA`: which per-column transform makes a skewed column look Gaussian.
+
+The search and the selection rule live in :mod:`afterlook.core.shaping`;
+this module parses arguments and renders the result (a table, ASCII
+histograms before/after, and the exact ``afterlook fit`` option to apply).
+"""
+
+from __future__ import annotations
+
+import json
+import math
+import shlex
+import sys
+
+from ..core.errors import AfterlookError
+from .exit_codes import EXIT_OK
+
+DESCRIPTION = (
+    "Search per numeric column for a transform (log(x + c), powers x ** p, Box-Cox, Yeo-Johnson) "
+    "under which the column looks most Gaussian, judged by a normality statistic on a seeded sample "
+    "(lower is more Gaussian). Rows labelled anomaly are left out, as fit does. A column that is "
+    "already near-Gaussian, or that no transform improves clearly, is left alone."
+)
+
+
+def _sample_size(text: str) -> int:
+    try:
+        n = int(text)
+    except ValueError:
+        raise AfterlookError(f"--sample expects a whole number of rows, got '{text}'") from None
+    if n < 8:
+        raise AfterlookError(f"--sample must be at least 8 rows, got {n}")
+    return n
+
+
+def register(sub, add_common, add_table_opts, caution) -> None:
+    p = sub.add_parser("shape", help="transform suggestions per column, with before/after normality",
+                       description=DESCRIPTION, epilog=caution)
+    p.add_argument("data", metavar="DATA", help="table (CSV or Parquet), usually the training table")
+    p.add_argument("--columns", nargs="+", metavar="COL", help="columns to shape (default: every numeric column)")
+    p.add_argument("--statistic", default="dagostino", choices=["dagostino", "anderson"],
+                   help="normality statistic: dagostino (D'Agostino-Pearson K^2, default) or anderson "
+                        "(Anderson-Darling A^2)")
+    p.add_argument("--sample", type=_sample_size, default=5000, metavar="N",
+                   help="rows sampled (seeded) for the statistics (default 5000)")
+    p.add_argument("--no-hist", action="store_true", help="do not draw the before/after histograms")
+    add_table_opts(p)
+    add_common(p)
+
+
+def _fmt(x, significant: int | None = None) -> str:
+    """Two decimals (skewness), or ``significant`` digits without exponent (statistics)."""
+    if x is None or not math.isfinite(x):
+        return "n/a"
+    if significant is None or abs(x) < 1:
+        return f"{x:.2f}"
+    digits = max(0, significant - 1 - int(math.floor(math.log10(abs(x)))))
+    return f"{x:,.{digits}f}"
+
+
+def _short_transform(result) -> str:
+    """Table text for the transform: fitted lambdas shortened (the hint line keeps every digit)."""
+    t = result.transform
+    if t is None:
+        return "none"
+    if t.kind != "expression":
+        return t.describe(result.name)
+    return result.description
+
+
+def run(args) -> int:
+    from .. import api
+    from .render import console
+
+    table = api.load_table(args.data, id_col=args.id_col, label_col=args.label_col)
+    report = api.shape(table, columns=args.columns, statistic=args.statistic, sample_size=args.sample)
+    for w in report.warnings:
+        print(f"afterlook: warning: {w}", file=sys.stderr)
+    if args.json:
+        sys.stdout.write(json.dumps(report.to_dict(), indent=2, allow_nan=False) + "\n")
+        return EXIT_OK
+
+    from rich import box
+    from rich.table import Table
+    from rich.text import Text
+
+    from .histogram import side_by_side
+
+    out = console()
+    from ..core.shaping import STATISTIC_LABELS
+
+    stat_label = STATISTIC_LABELS[report.statistic]
+    n_sample = max((r.sample_before.size for r in report.features), default=0)
+    out.print(Text.assemble(("shape ", "dim"), (args.data, "bold"), (f"  {report.rows_used} rows", "")))
+    out.print(f"{stat_label} on a seeded sample of {n_sample} rows; lower is more Gaussian", style="dim")
+    short = {"dagostino": "K^2", "anderson": "A^2"}[report.statistic]
+    grid = Table(box=box.SIMPLE_HEAD, show_edge=False)
+    grid.add_column("column", no_wrap=True, overflow="ellipsis", max_width=24)
+    grid.add_column("transform / verdict", overflow="fold", min_width=16)
+    grid.add_column("skew\nbefore -> after", justify="right", no_wrap=True)
+    grid.add_column(f"{short}\nbefore -> after", justify="right", no_wrap=True)
+    for r in report.features:
+        cell = Text(_short_transform(r), style="bold" if r.transform is not None else "dim")
+        cell.append("\n" + r.verdict, style="italic")
+        grid.add_row(
+            Text(r.name),
+            cell,
+            f"{_fmt(r.skew_before)} -> {_fmt(r.skew_after)}",
+            f"{_fmt(r.normality_before, 3)} -> {_fmt(r.normality_after, 3)}",
+        )
+    out.print(grid)
+
+    chosen = [r for r in report.features if r.transform is not None]
+    if not chosen:
+        out.print("No column needs a transform.")
+        return EXIT_OK
+    if not args.no_hist:
+        for r in chosen:
+            out.print(side_by_side(r.sample_before, r.sample_after, title_before=f"before: {r.name}",
+                                   title_after=f"after: {_short_transform(r)}"))
+            out.print()
+    table_opts = "".join(f" {flag} {shlex.quote(value)}" for flag, value in
+                         (("--id-col", args.id_col), ("--label-col", args.label_col)) if value)
+    lines = [f"afterlook fit {shlex.quote(args.data)} --out MODEL.json{table_opts}"]
+    lines += [f"  --transform {shlex.quote(r.fit_option)}" for r in chosen]
+    out.print("To apply, fit with (keep one --transform per column you accept):", style="dim")
+    out.print(Text(" \\\n".join(lines)), soft_wrap=True)
+    return EXIT_OK

@@ -1,0 +1,351 @@
+"""Feature discovery: suggest candidates for misses, and try features by re-fitting.
+
+Both operations need the normal population the model was fitted on. It is
+found, in order: the ``train`` argument; the model's recorded training file
+when its SHA-256 still matches (also looked for beside the model file);
+else the cases labelled normal, with a warning, because those rows are then
+used both to fit and to judge.
+"""
+
+from __future__ import annotations
+
+import os
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from .api import ScoredCases, _name, _numeric_columns, as_table, fit, scored_cases
+from .core import candidates as cand
+from .core.errors import AfterlookError
+from .core.recipe import Recipe, parse_assignment
+from .core.thresholds import Confusion
+from .model import Model
+from .store.tables import Table, sha256_file
+
+
+# --------------------------------------------------------------------------
+# the normal population
+# --------------------------------------------------------------------------
+
+
+@dataclass
+class TrainingRows:
+    table: Table
+    source: str
+    warnings: list[str] = field(default_factory=list)
+
+
+def resolve_training(model: Model, cases: Table, train=None) -> TrainingRows:
+    """The normal population for re-fits (see module docstring)."""
+    if train is not None:
+        t = as_table(train)
+        return TrainingRows(t, t.path or "given table")
+    recorded = model.training.get("path")
+    digest = model.training.get("sha256")
+    tried = []
+    if recorded and digest:
+        places = [recorded]
+        if model.source_path:
+            places.append(os.path.join(os.path.dirname(os.path.abspath(model.source_path)), os.path.basename(recorded)))
+        for place in places:
+            if os.path.isfile(place):
+                tried.append(place)
+                if sha256_file(place) == digest:
+                    t = as_table(place)
+                    return TrainingRows(t, f"{place} (recorded in the model; SHA-256 matches)")
+    if cases.labels is None or not (~cases.labels).any():
+        raise AfterlookError("no training rows: give --train (the model's recorded training file was not found "
+                             "or has changed) or cases with labelled normal rows")
+    why = ("the recorded training file changed since the fit (SHA-256 differs)" if tried
+           else "the model's recorded training file was not found")
+    frame = cases.frame.loc[~cases.labels]
+    t = as_table(frame.drop(columns=[cases.label_col]))
+    t.path = None
+    return TrainingRows(t, f"cases labelled normal in {_name(cases)}",
+                        [f"{why}; fitting on the cases labelled normal instead (give --train to avoid judging on fitted rows)"])
+
+
+def refit(model: Model, recipe: Recipe, train: TrainingRows, cases: Table) -> Model:
+    """Re-fit the model's kind and options with another recipe, threshold by the same policy."""
+    return fit(train.table, cases=cases, kind=model.density.kind, robust=model.density.robust,
+               shrinkage=model.density.shrinkage, threshold=model.policy, recipe=recipe)
+
+
+# --------------------------------------------------------------------------
+# try
+# --------------------------------------------------------------------------
+
+
+@dataclass
+class TryResult:
+    """Before/after a re-fit with extra derived features."""
+
+    before: Confusion
+    after: Confusion
+    threshold_before: float
+    threshold_after: float
+    cases: list[dict]
+    derive: list[tuple[str, str]]
+    training_source: str
+    model: Model
+    warnings: list[str] = field(default_factory=list)
+
+    @property
+    def false_alarms_added(self) -> int:
+        return self.after.fp - self.before.fp
+
+    def to_dict(self) -> dict:
+        return {
+            "derive": [{"name": n, "expression": e} for n, e in self.derive],
+            "training": self.training_source,
+            "before": {"threshold": self.threshold_before, **self.before.to_dict()},
+            "after": {"threshold": self.threshold_after, **self.after.to_dict()},
+            "false_alarms_added": self.false_alarms_added,
+            "misses_caught": sum(1 for c in self.cases if c["label"] == "anomaly" and c["after"]["flagged"] and not c["before"]["flagged"]),
+            "cases": self.cases,
+        }
+
+
+def try_features(model: Model, cases, derive, train=None, *, focus: list[str] | None = None) -> TryResult:
+    """Re-fit with extra derived features and compare before/after.
+
+    Parameters
+    ----------
+    derive : {name: expression} or list of "NAME=EXPR" / (name, expression)
+    focus : case ids always listed in ``cases`` (e.g. the miss under review),
+        besides every case whose flag changed.
+    """
+    table = as_table(cases)
+    if table.labels is None:
+        raise AfterlookError(f"{_name(table)} has no label column; try needs labelled cases")
+    pairs = _derive_pairs(derive)
+    if not pairs:
+        raise AfterlookError("nothing to try: give at least one --derive NAME=EXPR")
+    recipe = model.recipe.with_derived(pairs)
+    _check_columns(recipe, table, pairs)
+    training = resolve_training(model, table, train)
+    new = refit(model, recipe, training, table)
+    before = scored_cases(model, table)
+    after = scored_cases(new, table)
+    rows = _flip_rows(before, after, focus or [])
+    return TryResult(before.confusion(), after.confusion(), model.threshold, new.threshold, rows, pairs,
+                     training.source, new, training.warnings + new.warnings)
+
+
+def _derive_pairs(derive) -> list[tuple[str, str]]:
+    if derive is None:
+        return []
+    if isinstance(derive, dict):
+        return [(str(k), str(v)) for k, v in derive.items()]
+    out = []
+    for item in derive:
+        out.append(parse_assignment(item) if isinstance(item, str) else (str(item[0]), str(item[1])))
+    return out
+
+
+def _check_columns(recipe: Recipe, table: Table, pairs) -> None:
+    from .core import expressions
+
+    known = list(table.frame.columns) + recipe.features
+    for name, text in pairs:
+        expressions.parse(text, known_columns=known)
+
+
+def _flip_rows(before: ScoredCases, after: ScoredCases, focus: list[str]) -> list[dict]:
+    ids = before.table.ids
+    changed = before.flagged != after.flagged
+    want = changed.copy()
+    index = {str(c): i for i, c in enumerate(ids)}
+    for cid in focus:
+        if str(cid) in index:
+            want[index[str(cid)]] = True
+    rows = []
+    for i in np.flatnonzero(want):
+        rows.append({
+            "case": str(ids[i]),
+            "label": "anomaly" if before.labels[i] else "normal",
+            "before": {"log_density": _f(before.log_density[i]), "flagged": bool(before.flagged[i])},
+            "after": {"log_density": _f(after.log_density[i]), "flagged": bool(after.flagged[i])},
+        })
+    rows.sort(key=lambda r: (r["label"] != "anomaly", r["case"]))
+    return rows
+
+
+def _f(x) -> float | None:
+    return float(x) if np.isfinite(x) else None
+
+
+# --------------------------------------------------------------------------
+# suggest
+# --------------------------------------------------------------------------
+
+
+@dataclass
+class SuggestResult:
+    """Ranked candidates for one or more misses."""
+
+    cases: list[str]
+    tried: int
+    candidates: list[cand.Candidate]
+    training_source: str
+    sample_rows: int
+    chance_level: float
+    warnings: list[str] = field(default_factory=list)
+
+    @property
+    def any_beyond_chance(self) -> bool:
+        return any(c.beyond_chance for c in self.candidates)
+
+    def verdict(self) -> str:
+        if not self.candidates:
+            return "no candidate could be evaluated"
+        if self.any_beyond_chance:
+            n = sum(c.beyond_chance for c in self.candidates)
+            return f"{n} candidate(s) expose the case(s) beyond what chance explains over {self.tried} tried"
+        return (f"nothing beats chance: with {self.tried} candidates tried, the most extreme one is no more "
+                "extreme than luck alone would give; no candidate here is a finding")
+
+    def to_dict(self) -> dict:
+        return {
+            "cases": list(self.cases),
+            "tried": int(self.tried),
+            "training": self.training_source,
+            "sample_rows": int(self.sample_rows),
+            "chance_level": self.chance_level,
+            "any_beyond_chance": self.any_beyond_chance,
+            "verdict": self.verdict(),
+            "candidates": [c.to_dict() for c in self.candidates],
+        }
+
+
+def suggest(model: Model, cases, train=None, case_ids=None, top: int = 10, *,
+            exact: int | None = None, settings: cand.Settings | None = None,
+            shaping: bool = True, progress=None) -> SuggestResult:
+    """Ranked candidate derived features that would expose the given misses.
+
+    Parameters
+    ----------
+    case_ids : ids of target misses; default every miss
+    top : candidates returned
+    exact : candidates re-fitted exactly for false alarms added (default ``top``)
+    progress : optional callable(stage: str, fraction: float) for the workbench
+    """
+    settings = settings or cand.Settings()
+    table = as_table(cases)
+    if table.labels is None:
+        raise AfterlookError(f"{_name(table)} has no label column; suggest needs labelled cases")
+    before = scored_cases(model, table)
+    miss_mask = table.labels & ~before.flagged & np.isfinite(before.log_density)
+    if case_ids:
+        idx = [table.row_index(str(c)) for c in case_ids]
+    else:
+        idx = list(np.flatnonzero(miss_mask))
+        if not idx:
+            raise AfterlookError("there are no misses to explain: every labelled anomaly is flagged")
+    target_ids = [str(table.ids[i]) for i in idx]
+    warnings = []
+    for i in idx:
+        if not table.labels[i]:
+            warnings.append(f"case {table.ids[i]} is labelled normal; searching anyway")
+        elif before.flagged[i]:
+            warnings.append(f"case {table.ids[i]} is already flagged; searching anyway")
+    _report(progress, "normal population", 0.05)
+    training = resolve_training(model, table, train)
+    warnings += training.warnings
+
+    names = model.recipe.features
+    raw_train = model.recipe._raw_features(_numeric_columns(training.table.frame, model.recipe.required_columns()))
+    normal = np.ones(len(training.table.frame), bool) if training.table.labels is None else ~training.table.labels
+    A = np.column_stack([raw_train[n] for n in names])[normal]
+    A = A[np.all(np.isfinite(A), axis=1)]
+    rows = cand.sample_rows(A.shape[0], settings.sample_size, settings.random_state)
+    A = A[rows]
+    sample = {n: A[:, k] for k, n in enumerate(names)}
+    raw_cases = model.recipe._raw_features(_numeric_columns(table.frame, model.recipe.required_columns()))
+    C = np.column_stack([raw_cases[n] for n in names])
+    T = C[idx]
+    if not np.all(np.isfinite(T)):
+        raise AfterlookError("a target case has NaN or infinite features; it cannot be searched")
+
+    shaped = _shaping_expressions(model, sample) if shaping else {}
+    _report(progress, "screening candidates", 0.15)
+    candidates, tried, _ = cand.generate_and_screen(names, sample, T, shaped, settings)
+    _report(progress, "exact statistics", 0.35)
+    other = np.flatnonzero(table.labels)
+    other = np.array([i for i in other if i not in set(idx) and np.all(np.isfinite(C[i]))], dtype=int)
+    other_cols = {n: C[other, k] for k, n in enumerate(names)}
+    other_is_miss = miss_mask[other] if len(other) else np.zeros(0, bool)
+    ranked = cand.second_pass(candidates, tried, sample, {n: T[:, k] for k, n in enumerate(names)},
+                              target_ids, other_cols, other_is_miss, settings)
+
+    # Third pass: exact re-fit of the best few for the false alarms they add.
+    exact = top if exact is None else exact
+    head = ranked[: max(exact, 0)]
+    base_conf = before.confusion()
+    for k, c in enumerate(head):
+        _report(progress, f"re-fitting {k + 1}/{len(head)}", 0.4 + 0.6 * k / max(len(head), 1))
+        recipe = model.recipe.with_derived([(_candidate_name(names), c.expression)])
+        try:
+            new = refit(model, recipe, training, table)
+        except AfterlookError as exc:
+            warnings.append(f"could not re-fit with {c.expression}: {exc.message}")
+            continue
+        after = scored_cases(new, table)
+        conf = after.confusion()
+        c.false_alarms_added = conf.fp - base_conf.fp
+        c.catches_targets = int(after.flagged[idx].sum())
+        c.metrics_after = {"threshold": new.threshold, **conf.to_dict()}
+    head.sort(key=lambda c: c.rank_key(settings.min_correlation))
+    final = (head + ranked[len(head):])[:top]
+    _report(progress, "done", 1.0)
+    return SuggestResult(target_ids, tried, final, training.source, A.shape[0], settings.chance_level, warnings)
+
+
+def _candidate_name(existing: list[str]) -> str:
+    name, k = "candidate", 1
+    while name in existing:
+        k += 1
+        name = f"candidate_{k}"
+    return name
+
+
+def _shaping_expressions(model: Model, sample: dict) -> dict[str, str]:
+    """Expression text of a shaping transform per column (the recipe's own, else a search)."""
+    out = {}
+    for name, t in model.recipe.transforms.items():
+        if t.kind == "expression":
+            out[name] = t.expression
+    try:
+        from .core import shaping
+    except ImportError:  # pragma: no cover - shaping lands with its own change
+        return out
+    for name, values in sample.items():
+        if name in out:
+            continue
+        try:
+            res = shaping.search_transform(values, name=name)
+        except (AfterlookError, TypeError):
+            continue
+        text = _as_expression(res.transform, name)
+        if text:
+            out[name] = text
+    return out
+
+
+def _as_expression(transform, name: str) -> str | None:
+    from .core.expressions import quote_name
+
+    if transform is None:
+        return None
+    if transform.kind == "expression":
+        return transform.expression
+    lam = transform.lmbda
+    q = quote_name(name)
+    if transform.kind == "boxcox" and lam is not None:
+        return f"log({q})" if abs(lam) < 1e-12 else f"({q} ** {lam:.6g} - 1) / {lam:.6g}"
+    return None
+
+
+def _report(progress, stage: str, fraction: float) -> None:
+    if progress is not None:
+        progress(stage, fraction)
