@@ -16,6 +16,10 @@ from ..core.errors import AfterlookError
 from .exit_codes import EXIT_OK
 
 DEMO_KIND = "independent"
+# The demo model's recipe, as a practitioner would have set it up: hydraulic
+# power as a derived feature, and the skewed service counter log-shaped.
+DEMO_DERIVE = {"hydraulic_power": "flow_m3h * (discharge_bar - suction_bar)"}
+DEMO_TRANSFORM = {"hours_since_service": "log(hours_since_service + 1)"}
 
 
 def write_demo(folder: Path, seed: int = 7):
@@ -37,29 +41,42 @@ def write_demo(folder: Path, seed: int = 7):
     write_table(scenario.cases, cases_path)
     train = api.load_table(train_path)
     cases = api.load_table(cases_path, require_labels=True)
-    model = api.fit(train, cases=cases, kind=DEMO_KIND, threshold="f1")
+    model = api.fit(train, cases=cases, kind=DEMO_KIND, threshold="f1", derive=DEMO_DERIVE,
+                    transform=DEMO_TRANSFORM)
     model.save(model_path)
     return train_path, cases_path, model_path
 
 
 def analysis(model_path: Path, cases_path: Path, train_path: Path) -> dict:
-    """The demo's analysis as data: misses and the explanation of the worst."""
+    """The demo's analysis as data: misses, the worst explained, candidates for it, and the try."""
     from .. import api
+    from ..discovery import suggest, try_features
 
     model = api.load_model(model_path)
     cases = api.load_table(cases_path, require_labels=True)
+    train = api.load_table(train_path)
     result = api.misses(model, cases)
     doc = {"model": str(model_path), "cases": str(cases_path), "train": str(train_path),
-           "misses": result.to_dict(), "worst": None}
+           "misses": result.to_dict(), "worst": None, "suggest": None, "try": None}
+    extras = {}
     if result.misses:
-        doc["worst"] = api.explain(model, cases, result.misses[0].case).to_dict()
-    return doc, model, cases, result
+        worst = result.misses[0].case
+        doc["worst"] = api.explain(model, cases, worst).to_dict()
+        found = suggest(model, cases, train=train, case_ids=[worst], top=5)
+        doc["suggest"] = found.to_dict()
+        extras["suggest"] = found
+        best = next((c for c in found.candidates if c.beyond_chance), None)
+        if best is not None:
+            tried = try_features(model, cases, {best.name: best.expression}, train=train, focus=[worst])
+            doc["try"] = tried.to_dict()
+            extras["try"] = tried
+    return doc, model, cases, result, extras
 
 
 def run(args) -> int:
     folder = Path(args.dir)
     train_path, cases_path, model_path = write_demo(folder, seed=args.seed)
-    doc, model, cases, result = analysis(model_path, cases_path, train_path)
+    doc, model, cases, result, extras = analysis(model_path, cases_path, train_path)
     if args.json:
         import json
 
@@ -73,10 +90,10 @@ def run(args) -> int:
             launch = None
         if launch is not None:
             return launch(model_path, cases_path, train_path=train_path, casebook=None)
-    return print_analysis(doc, model, cases, result, folder)
+    return print_analysis(doc, model, cases, result, folder, extras)
 
 
-def print_analysis(doc, model, cases, result, folder: Path) -> int:
+def print_analysis(doc, model, cases, result, folder: Path, extras: dict) -> int:
     from .. import api
     from . import render
 
@@ -93,10 +110,21 @@ def print_analysis(doc, model, cases, result, folder: Path) -> int:
         out.rule(f"2. why did {worst.case} look normal?")
         out.print(render.explain_table(api.explain(model, cases, worst.case)))
         out.print()
-        out.print("Every single feature is inside its normal range, so a model that scores features one at a "
-                  "time sees nothing. Compare the relations between them:")
-        full = api.fit(api.load_table(doc["train"]), cases=cases, kind="full", threshold="f1")
-        out.print(render.explain_table(api.explain(full, cases, worst.case)))
+        out.print("Every single feature sits inside its normal range, so a model that scores features one "
+                  "at a time sees nothing unusual. The break is in a relation between features.")
+        found = extras.get("suggest")
+        if found is not None:
+            from .discovery_commands import suggest_table, try_table
+
+            out.print()
+            out.rule("3. which derived feature would have exposed it?")
+            out.print(suggest_table(found))
+            tried = extras.get("try")
+            if tried is not None:
+                out.print()
+                out.rule("4. try the best finding: re-fit, re-pick the threshold, re-score")
+                out.print(try_table(tried))
     out.print()
-    out.print(f"next: afterlook explain {doc['model']} {doc['cases']} CASE_ID   (or --json)", style="dim")
+    out.print("next: afterlook suggest / try / explain on these files (add --json for scripts); "
+              "afterlook --help lists every command", style="dim")
     return 0

@@ -59,7 +59,11 @@ def model_line(model: Model, path: str | None = None) -> Text:
     return t
 
 
-def misses_table(result: MissesResult, limit: int | None = None) -> Group:
+def width_of(result: MissesResult) -> int:
+    return max([len(m.case) for m in result.misses] + [4]) + 2
+
+
+def misses_table(result: MissesResult, limit: int | None = None, width: int | None = None) -> Group:
     m = result.metrics
     head = Text()
     head.append(f"{len(result.misses)} miss(es)", style="bold")
@@ -68,13 +72,23 @@ def misses_table(result: MissesResult, limit: int | None = None) -> Group:
     head.append(f"precision {m.precision:.3f}, recall {m.recall:.3f}, F1 {m.f1:.3f}; false alarms {m.fp}")
     table = Table(box=box.SIMPLE_HEAD, show_edge=False)
     table.add_column("#", justify="right", style="dim")
-    width = max([len(m.case) for m in result.misses] + [4])
-    table.add_column("case", no_wrap=True, min_width=width)
+    case_width = max([len(m.case) for m in result.misses] + [4])
+    table.add_column("case", no_wrap=True, min_width=case_width)
     table.add_column("log-density", justify="right", no_wrap=True, min_width=11)
     table.add_column("margin", justify="right", no_wrap=True, min_width=8)
     ctx_cols = list(result.misses[0].context) if result.misses else []
+    # Context columns are shown while they fit: the numbers never get squeezed.
+    room = (width or console().width) - width_of(result) - 11 - 8 - 4 - 8
+    kept = []
     for c in ctx_cols:
-        table.add_column(c, overflow="ellipsis", no_wrap=True, max_width=28, ratio=1)
+        longest = max([len(c)] + [len(m.context.get(c) or "") for m in result.misses[: limit or None]])
+        need = min(max(longest, 8), 28) + 2
+        if need <= room:
+            kept.append(c)
+            room -= need
+    ctx_cols = kept
+    for c in ctx_cols:
+        table.add_column(c, overflow="ellipsis", no_wrap=True, max_width=28)
     shown = result.misses if limit is None else result.misses[:limit]
     for k, miss in enumerate(shown, 1):
         table.add_row(str(k), miss.case, fmt(miss.log_density), f"+{fmt(miss.margin)}",

@@ -84,11 +84,10 @@ def run(args) -> int:
     from rich.table import Table
     from rich.text import Text
 
+    from ..core.shaping import STATISTIC_LABELS
     from .histogram import side_by_side
 
     out = console()
-    from ..core.shaping import STATISTIC_LABELS
-
     stat_label = STATISTIC_LABELS[report.statistic]
     n_sample = max((r.sample_before.size for r in report.features), default=0)
     out.print(Text.assemble(("shape ", "dim"), (args.data, "bold"), (f"  {report.rows_used} rows", "")))

@@ -114,6 +114,26 @@ class Candidate:
     catches_targets: int | None = None
     metrics_after: dict | None = None
 
+    @property
+    def name(self) -> str:
+        """A derived-feature name for the candidate (identifier-safe)."""
+        a, b = (_ident(x) for x in self.inputs)
+        pattern = {
+            "ratio": "{a}_per_{b}", "log_ratio": "log_{a}_per_{b}", "product": "{a}_times_{b}",
+            "square_ratio": "{a}_sq_per_{b}", "standardized_difference": "{a}_vs_{b}",
+            "shaped_difference": "shaped_{a}_vs_{b}",
+        }.get(self.kind, "{a}_{b}")
+        if self.kind in ("ratio", "square_ratio"):
+            # the orientation is in the expression: numerator first
+            first = self.expression.split(" ")[0].strip("`")
+            if _ident(first) == b:
+                a, b = b, a
+        elif self.kind == "log_ratio":
+            first = self.expression[4:].split(" ")[0].strip("`")
+            if _ident(first) == b:
+                a, b = b, a
+        return pattern.format(a=a, b=b)[:80]
+
     def rank_key(self, min_correlation: float = 0.3):
         """Order: targets exposed beyond chance, then extremeness (order of magnitude of the adjusted tail, so
         near-equal tails tie), then other anomalies separated, then false
@@ -125,6 +145,7 @@ class Candidate:
 
     def to_dict(self) -> dict:
         return {
+            "name": self.name,
             "expression": self.expression,
             "kind": self.kind,
             "inputs": list(self.inputs),
@@ -144,6 +165,11 @@ class Candidate:
             "false_alarms_added": self.false_alarms_added,
             "catches_targets": self.catches_targets,
         }
+
+
+def _ident(text: str) -> str:
+    out = "".join(ch if ch.isalnum() or ch == "_" else "_" for ch in text).strip("_")
+    return out if out and not out[0].isdigit() else f"c_{out}"
 
 
 def _num(x):
