@@ -1,1 +1,49 @@
-"""afterlook."""
+"""afterlook: why did real failures score as normal under a Gaussian anomaly detector?
+
+The Python API mirrors the CLI; every result has ``to_dict()`` equal to the
+CLI's ``--json`` document::
+
+    import afterlook
+    model = afterlook.load_model("model.json")
+    cases = afterlook.load_table("cases.csv")
+    afterlook.misses(model, cases).to_dict()
+    afterlook.explain(model, cases, "PS-01/2026-05-21T17:00")
+    afterlook.suggest(model, cases, train=afterlook.load_table("train.csv"))
+    afterlook.try_features(model, cases, derive={"r": "a / b"})
+    afterlook.shape(df)
+
+Names are imported lazily so that ``import afterlook.core`` stays light
+(numpy and scipy only).
+"""
+
+from ._version import __version__
+
+_EXPORTS = {
+    "load_table": "afterlook.api",
+    "load_model": "afterlook.api",
+    "fit": "afterlook.api",
+    "misses": "afterlook.api",
+    "explain": "afterlook.api",
+    "shape": "afterlook.api",
+    "Model": "afterlook.model",
+    "suggest": "afterlook.discovery",
+    "try_features": "afterlook.discovery",
+    "AfterlookError": "afterlook.core.errors",
+}
+
+__all__ = ["__version__", *_EXPORTS]
+
+
+def __getattr__(name: str):
+    module = _EXPORTS.get(name)
+    if module is None:
+        raise AttributeError(f"module 'afterlook' has no attribute {name!r}")
+    import importlib
+
+    value = getattr(importlib.import_module(module), name)
+    globals()[name] = value
+    return value
+
+
+def __dir__():
+    return sorted(__all__)

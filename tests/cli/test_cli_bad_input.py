@@ -19,7 +19,7 @@ import pandas as pd
 import pytest
 
 # A table of numbers only: `score` works on it even while text columns break
-# scoring (see test_score_on_a_table_with_text_columns at the end).
+# scoring (see test_score_out_keeps_text_columns in test_cli_json.py).
 NUMERIC_ONLY = "numeric_only.csv"
 
 
@@ -267,17 +267,3 @@ def test_duplicate_ids_warn_and_explain_uses_the_first_row(results, bad_dir, dem
         assert values[col] == pytest.approx(float(first[col]), rel=1e-12)
     # the two rows differ, so the check above really tells first from second
     assert any(values[c] != pytest.approx(float(second[c])) for c in ("flow_m3h", "motor_current_a"))
-
-
-# --------------------------------------------------------------------------
-# a bug: Model.score / `afterlook score` cannot handle text columns
-# --------------------------------------------------------------------------
-
-
-@pytest.mark.xfail(strict=True, reason="BUG: Recipe._raw_features does dict(columns) and converts every column "
-                   "(id, label, station ...) to float, so scoring any table with a text column fails")
-def test_score_on_a_table_with_text_columns(bad_dir, run_cli, one_json):
-    code, out, err = run_cli("score", "model.json", "demo_cases.csv", "--json", cwd=bad_dir)
-    assert code == 0, err
-    doc = one_json(out)
-    assert doc["n_rows"] == len(pd.read_csv(bad_dir / "demo_cases.csv"))

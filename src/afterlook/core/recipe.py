@@ -20,6 +20,7 @@ of pandas.
 from __future__ import annotations
 
 import re
+from collections import ChainMap
 from dataclasses import dataclass, field
 from typing import Mapping
 
@@ -207,7 +208,10 @@ class Recipe:
             if name not in columns:
                 raise AfterlookError(f"the table has no column '{name}', which the model uses")
             env[name] = np.asarray(columns[name], dtype=np.float64)
-        scope = dict(columns)
+        # Layered lookup: derived values first, then the table's columns, read
+        # lazily so text columns of the table are never converted.
+        scope = ChainMap({}, columns)
+        scope.n_rows = len(next(iter(env.values()))) if env else getattr(columns, "n_rows", None)
         for name, text in self.derived:
             expr = expressions.parse(text)
             missing = [c for c in expr.columns if c not in scope]
@@ -217,7 +221,7 @@ class Recipe:
                 )
             values = expr.evaluate(scope)
             env[name] = values
-            scope[name] = values
+            scope.maps[0][name] = values
         return env
 
     def fit(self, columns: Mapping[str, np.ndarray]) -> "Recipe":

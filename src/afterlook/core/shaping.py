@@ -30,7 +30,8 @@ Normality statistics (lower = more Gaussian)
     613-622.
 ``"anderson"``
     Anderson-Darling A^2 against a normal with estimated mean and variance,
-    ``scipy.stats.anderson``. M. A. Stephens (1974), JASA 69(347), 730-737.
+    ``scipy.stats.anderson``. T. W. Anderson and D. A. Darling (1954), JASA
+    49(268), 765-769; M. A. Stephens (1974), JASA 69(347), 730-737.
 
 Both statistics grow with the sample size for any fixed departure from
 normality, so they are computed on a seeded sample of at most
@@ -46,20 +47,25 @@ Selection rule
 2. A column that is already near-Gaussian keeps no transform: ``|skewness|
    < 0.5`` (common practice for "roughly symmetric"; no single source) and
    the K^2 p-value at least :data:`NEAR_GAUSSIAN_P`.
-3. The best candidate must beat the identity by a clear margin: its
+3. Near-ties prefer simpler transforms: among candidates whose statistic is
+   within ``max(TIE_REL * best, TIE_FLOOR_FRACTION * critical value)`` of
+   the best, the lowest :attr:`Candidate.complexity` wins (the identity;
+   then ``log(x)``, ``log(x + 1)`` for counts or a listed power; then
+   another shifted log; then a fitted Box-Cox / Yeo-Johnson), then the
+   lowest statistic.
+4. The candidate so chosen must beat the identity by a clear margin: its
    statistic must be at most half the identity's (a drop of at least
    :data:`CLEAR_GAIN` of the identity's statistic) *and* lower by at
    least the statistic's 5 % critical value under normality (K^2: the
-   chi-squared(2) 95 % point, 5.99; A^2: 0.752, Stephens 1974 Table 1A,
-   case 3, as returned by ``scipy.stats.anderson``). A gain smaller than
-   what a Gaussian sample produces by chance is not worth a transform.
-   Otherwise the column keeps no transform.
-4. Near-ties prefer simpler transforms: among candidates whose statistic is
-   within ``max(TIE_REL * best, TIE_FLOOR_FRACTION * critical value)`` of
-   the best, the lowest :attr:`Candidate.complexity` wins (log or a listed
-   power, then a shifted log, then a fitted Box-Cox / Yeo-Johnson), then
-   the lowest statistic. The margins are our choice, stated here so that a
-   reviewer can argue with them.
+   chi-squared(2) 95 % point, 5.99; A^2: 0.752, the large-sample 5 % value
+   for estimated mean and variance tabulated by ``scipy.stats.anderson``
+   from R. B. D'Agostino (1986), "Tests for the normal distribution", in
+   D'Agostino and Stephens (eds.), Goodness-of-Fit Techniques, Dekker). A
+   gain smaller than what a Gaussian sample produces by chance is not
+   worth a transform. Otherwise the column keeps no transform.
+
+The margins are our choice, stated here so that a reviewer can argue with
+them.
 """
 
 from __future__ import annotations
@@ -91,7 +97,7 @@ STATISTIC_LABELS = {"dagostino": "D'Agostino-Pearson K^2", "anderson": "Anderson
 
 #: Powers tried as ``x ** p`` (1 is the identity and is tried as "none").
 POWERS = (-1.0, -0.5, -0.33, -0.25, -0.1, -0.05, 0.05, 0.1, 0.2, 0.25, 0.33, 0.5, 0.75)
-#: Shifts of ``log(x + c)``: ``c = -min(x) + q * spread`` for these ``q``.
+#: Shifts of ``log(x + c)``: ``c = max(0, -min(x)) + q * spread`` for these ``q``.
 SHIFT_FRACTIONS = (0.001, 0.01, 0.1, 1.0)
 
 #: ``scipy.stats.normaltest`` needs at least 8 values (its skewness test does).
@@ -111,8 +117,8 @@ TIE_REL = 0.05
 TIE_FLOOR_FRACTION = 1.0 / 3.0
 
 # 5 % critical values under normality: chi-squared(2) 95 % point for K^2;
-# Stephens (1974) case 3 (mean and variance estimated) for A^2, before the
-# small-sample correction that scipy.stats.anderson applies.
+# for A^2 (mean and variance estimated) the large-sample value of the table in
+# scipy.stats.anderson (D'Agostino 1986), before its small-sample factor.
 _CRITICAL_5PCT = {"dagostino": float(stats.chi2.ppf(0.95, 2)), "anderson": 0.752}
 
 
@@ -151,7 +157,8 @@ class ShapeResult:
         The seeded sample the statistics were computed on, and the same rows
         after the transform (not serialised).
     tried : list of (description, statistic)
-        Every candidate that was valid on the column, in the order tried.
+        Every candidate that was valid on the column, in the order tried
+        (``"none"`` first).
     verdict : str
         The decision in words.
     n_values, n_nonfinite : int
@@ -461,7 +468,9 @@ def search_transform(
     p_before = _k2_pvalue(sample)
     if abs(skew_before) < SYMMETRIC_SKEW and p_before >= NEAR_GAUSSIAN_P:
         choice, reason = candidates[0], "near-Gaussian: left alone"
-    elif choice.transform is not None and identity_stat - choice.statistic < max(CLEAR_GAIN * identity_stat, critical):
+    elif choice.transform is not None and (
+        identity_stat - choice.statistic < max(CLEAR_GAIN * identity_stat, critical)
+    ):
         choice, reason = candidates[0], "no clear gain: left alone"
     elif choice.transform is None:
         reason = "no clear gain: left alone"

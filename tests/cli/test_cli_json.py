@@ -1,0 +1,331 @@
+"""`--json` documents of the real console script, checked against the Python API.
+
+Like the bad-input module, the invocations are independent and run up front
+in a small thread pool; each test then checks one of them.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+import math
+import os
+import re
+import shutil
+from concurrent.futures import ThreadPoolExecutor
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from afterlook import api
+from afterlook.demo import FEATURE_COLUMNS, generate
+
+DERIVE = "head_per_amp=(discharge_bar - suction_bar) / motor_current_a"
+TRANSFORM = "hours_since_service=log1p(hours_since_service)"
+CAUTION_WORDS = "does not replace protection devices"
+RELATION_KINDS = {"worn_impeller", "bearing_wear"}
+
+
+def _roundtrip(obj):
+    return json.loads(json.dumps(obj, allow_nan=False))
+
+
+def _numeric_only(frame: pd.DataFrame) -> pd.DataFrame:
+    """The demo cases without any text column (labels as 0/1, no id)."""
+    out = frame.loc[:, list(FEATURE_COLUMNS)].copy()
+    out["label"] = (frame["label"] == "anomaly").astype(int)
+    return out
+
+
+@pytest.fixture(scope="module")
+def work(tmp_path_factory, demo_files) -> Path:
+    folder = tmp_path_factory.mktemp("json")
+    shutil.copy(demo_files.train, folder / "train.csv")
+    shutil.copy(demo_files.cases, folder / "cases.csv")
+    shutil.copy(demo_files.model_full, folder / "full.json")
+    shutil.copy(demo_files.model_independent, folder / "independent.json")
+    _numeric_only(demo_files.cases_frame).to_csv(folder / "numeric_cases.csv", index=False)
+    return folder
+
+
+@pytest.fixture(scope="module")
+def case_id(work) -> str:
+    """The worst miss of the independent model (a case labelled anomaly that it scored as normal)."""
+    result = api.misses(api.load_model(work / "independent.json"), api.load_table(work / "cases.csv"))
+    assert result.misses, "the small demo scenario should have misses under the independent model"
+    return result.misses[0].case
+
+
+@pytest.fixture(scope="module")
+def runs(work, case_id, run_cli, run_module):
+    jobs = {
+        "fit_full": (run_cli, ["fit", "train.csv", "--out", "fit_full.json", "--cases", "cases.csv", "--kind", "full",
+                               "--derive", DERIVE, "--transform", TRANSFORM, "--json"]),
+        "fit_independent": (run_cli, ["fit", "train.csv", "--out", "fit_independent.json", "--kind", "independent",
+                                      "--threshold", "rate:0.02", "--json"]),
+        "score_json": (run_cli, ["score", "full.json", "numeric_cases.csv", "--json"]),
+        "score_out": (run_cli, ["score", "full.json", "numeric_cases.csv", "--out", "scored.csv"]),
+        "score_out_json": (run_cli, ["score", "full.json", "numeric_cases.csv", "--out", "scored2.parquet", "--json"]),
+        "misses_full": (run_cli, ["misses", "full.json", "cases.csv", "--json"]),
+        "misses_independent": (run_cli, ["misses", "independent.json", "cases.csv", "--json"]),
+        "explain_full": (run_cli, ["explain", "full.json", "cases.csv", case_id, "--json"]),
+        "explain_independent": (run_cli, ["explain", "independent.json", "cases.csv", case_id, "--json"]),
+        "demo_text": (run_cli, ["demo", "--no-tui", "--dir", "demo_text"]),
+        "demo_json": (run_cli, ["demo", "--json", "--dir", "demo_json"]),
+        "module_help": (run_module, ["--help"]),
+        "fit_help": (run_cli, ["fit", "--help"]),
+    }
+    workers = min(8, (os.cpu_count() or 2) + 1)
+    with ThreadPoolExecutor(max_workers=workers) as pool:
+        futures = {name: pool.submit(fn, *argv, cwd=work) for name, (fn, argv) in jobs.items()}
+        return {name: f.result() for name, f in futures.items()}
+
+
+def _ok_json(result, one_json):
+    code, out, err = result
+    assert "Traceback" not in err
+    assert code == 0, err
+    assert all(line.startswith("afterlook: warning:") for line in err.splitlines()), err
+    return one_json(out)
+
+
+def _finite_number(x) -> bool:
+    return isinstance(x, (int, float)) and not isinstance(x, bool) and math.isfinite(x)
+
+
+# --------------------------------------------------------------------------
+# fit and the model file
+# --------------------------------------------------------------------------
+
+
+def test_fit_json_and_model_file(runs, work, one_json):
+    doc = _ok_json(runs["fit_full"], one_json)
+    assert doc["model"] == "fit_full.json"
+    assert doc["kind"] == "full"
+    assert doc["features"] == list(FEATURE_COLUMNS) + ["head_per_amp"]
+    assert doc["rows_used"] == len(pd.read_csv(work / "train.csv"))
+    assert set(doc["metrics"]) >= {"tp", "fp", "fn", "tn", "precision", "recall", "f1"}
+    assert doc["policy"] == "f1"
+
+    saved = json.loads((work / "fit_full.json").read_text())
+    assert saved["format"] == "afterlook-model"
+    assert saved["version"] == 1
+    assert saved["training"]["sha256"] == hashlib.sha256((work / "train.csv").read_bytes()).hexdigest()
+    assert saved["training"]["path"].endswith("train.csv")
+    assert saved["threshold"]["value"] == doc["threshold"]
+    assert [d["name"] for d in saved["recipe"]["derived"]] == ["head_per_amp"]
+    assert "".join(saved["recipe"]["derived"][0]["expression"].split()) == "(discharge_bar-suction_bar)/motor_current_a"
+    assert saved["recipe"]["transforms"]["hours_since_service"]["kind"] == "expression"
+
+    doc_i = _ok_json(runs["fit_independent"], one_json)
+    assert doc_i["kind"] == "independent" and doc_i["policy"] == "rate:0.02"
+    assert "metrics" not in doc_i
+
+
+def test_saved_model_scores_like_the_in_memory_model(runs, work):
+    """CLI-fitted file, in-memory fit and its saved-and-reloaded copy give the same log-densities."""
+    assert runs["fit_full"][0] == 0, runs["fit_full"][2]
+    train = api.load_table(work / "train.csv")
+    cases = api.load_table(work / "cases.csv")
+    name, expr = DERIVE.split("=", 1)
+    col, texpr = TRANSFORM.split("=", 1)
+    memory = api.fit(train, cases=cases, kind="full", derive={name.strip(): expr.strip()},
+                     transform={col: texpr})
+    memory.save(work / "resaved.json")
+    reloaded = api.load_model(work / "resaved.json")
+    from_cli = api.load_model(work / "fit_full.json")
+
+    ld_memory = api.scored_cases(memory, cases).log_density
+    assert np.isfinite(ld_memory).all()
+    for other in (reloaded, from_cli):
+        np.testing.assert_allclose(api.scored_cases(other, cases).log_density, ld_memory, rtol=1e-12, atol=1e-12)
+        assert other.threshold == pytest.approx(memory.threshold, rel=1e-12, abs=1e-12)
+        assert other.features == memory.features
+    # the comparison can fail: a different model scores differently
+    other_kind = api.fit(train, kind="independent", derive={name.strip(): expr.strip()}, transform={col: texpr})
+    assert not np.allclose(api.scored_cases(other_kind, cases).log_density, ld_memory, rtol=1e-6)
+
+
+# --------------------------------------------------------------------------
+# score
+# --------------------------------------------------------------------------
+
+
+def test_score_json(runs, work, one_json):
+    doc = _ok_json(runs["score_json"], one_json)
+    frame = pd.read_csv(work / "numeric_cases.csv")
+    assert doc["n_rows"] == len(frame) == len(doc["rows"])
+    model = api.load_model(work / "full.json")
+    expected = model.log_density(frame)
+    got = np.array([r["log_density"] for r in doc["rows"]], dtype=float)
+    np.testing.assert_allclose(got, expected, rtol=1e-12)
+    flagged = [r["flagged"] for r in doc["rows"]]
+    assert flagged == list(expected < model.threshold)
+    assert doc["n_flagged"] == sum(flagged) > 0
+    assert [r["case"] for r in doc["rows"]] == [str(i) for i in range(len(frame))]
+
+
+def test_score_out_adds_two_columns(runs, work, one_json):
+    code, out, err = runs["score_out"]
+    assert code == 0, err
+    assert "scored.csv" in out
+    original = pd.read_csv(work / "numeric_cases.csv")
+    scored = pd.read_csv(work / "scored.csv")
+    assert len(scored) == len(original)
+    assert list(scored.columns) == list(original.columns) + ["log_density", "flagged"]
+    pd.testing.assert_frame_equal(scored[original.columns], original)
+    model = api.load_model(work / "full.json")
+    np.testing.assert_allclose(scored["log_density"], model.log_density(original), rtol=1e-12)
+    assert scored["flagged"].tolist() == (scored["log_density"] < model.threshold).tolist()
+
+    doc = _ok_json(runs["score_out_json"], one_json)  # --out with --json: the summary, no rows
+    assert doc["out"] == "scored2.parquet" and "rows" not in doc
+    parquet = pd.read_parquet(work / "scored2.parquet")
+    assert len(parquet) == len(original) == doc["n_rows"]
+    assert {"log_density", "flagged"} <= set(parquet.columns)
+
+
+@pytest.mark.xfail(strict=True, reason="BUG: core/recipe.py Recipe._raw_features does scope = dict(columns), which "
+                   "converts every column of the frame (id, station, label ...) to float, so Model.score and "
+                   "`afterlook score` fail with \"column 'id' is not numeric\" on any table with a text column")
+def test_score_out_keeps_text_columns(work, run_cli):
+    code, out, err = run_cli("score", "full.json", "cases.csv", "--out", "scored_text.csv", cwd=work)
+    assert code == 0, err
+    original = pd.read_csv(work / "cases.csv")
+    scored = pd.read_csv(work / "scored_text.csv")
+    assert len(scored) == len(original)
+    assert list(scored.columns) == list(original.columns) + ["log_density", "flagged"]
+    assert scored["id"].tolist() == original["id"].tolist()
+
+
+# --------------------------------------------------------------------------
+# misses and explain, CLI == API
+# --------------------------------------------------------------------------
+
+
+@pytest.mark.parametrize("kind", ["full", "independent"])
+def test_misses_json_matches_api(kind, runs, work, demo_files, one_json):
+    doc = _ok_json(runs[f"misses_{kind}"], one_json)
+    assert {"threshold", "n_cases", "n_anomalies", "misses"} <= set(doc)
+    frame = demo_files.cases_frame
+    assert doc["n_cases"] == len(frame)
+    assert doc["n_anomalies"] == int((frame["label"] == "anomaly").sum())
+    misses = doc["misses"]
+    assert misses, "the small demo has misses under both models"
+    labels = dict(zip(frame["id"].astype(str), frame["label"]))
+    for m in misses:
+        assert {"case", "log_density", "margin"} <= set(m)
+        assert labels[m["case"]] == "anomaly"
+        assert m["margin"] > 0
+        assert m["margin"] == pytest.approx(m["log_density"] - doc["threshold"], rel=1e-12, abs=1e-12)
+    margins = [m["margin"] for m in misses]
+    assert margins == sorted(margins, reverse=True)
+
+    model = api.load_model(work / f"{kind}.json")
+    expected = api.misses(model, api.load_table(work / "cases.csv")).to_dict()
+    assert doc == _roundtrip(expected)
+
+
+@pytest.mark.parametrize("kind", ["full", "independent"])
+def test_explain_json_matches_api(kind, runs, work, case_id, one_json):
+    doc = _ok_json(runs[f"explain_{kind}"], one_json)
+    assert doc["case"] == case_id
+    assert {"case", "log_density", "threshold", "features"} <= set(doc)
+    assert _finite_number(doc["log_density"]) and _finite_number(doc["threshold"])
+    names = [f["name"] for f in doc["features"]]
+    assert names == list(FEATURE_COLUMNS)
+    for f in doc["features"]:
+        assert set(f) >= {"name", "value", "z", "percentile", "contribution", "conditional_z"}
+        for key in ("value", "z", "percentile", "contribution"):
+            assert _finite_number(f[key]), (f["name"], key, f[key])
+        assert 0 <= f["percentile"] <= 100
+        if kind == "independent":
+            assert f["conditional_z"] is None
+        else:
+            assert _finite_number(f["conditional_z"])
+
+    model = api.load_model(work / f"{kind}.json")
+    expected = api.explain(model, api.load_table(work / "cases.csv"), case_id).to_dict()
+    assert doc == _roundtrip(expected)
+
+
+# --------------------------------------------------------------------------
+# demo
+# --------------------------------------------------------------------------
+
+
+def _first_miss_row(text: str) -> str:
+    """The first data row of the misses table printed by the demo."""
+    start = text.index("1. misses")
+    for line in text[start:].splitlines():
+        if re.match(r"^\s*1\s+\S", line):
+            return line
+    raise AssertionError("no first row in the misses table:\n" + text[start:start + 2000])
+
+
+def test_demo_text(runs, work):
+    code, out, err = runs["demo_text"]
+    assert code == 0, err
+    assert "Traceback" not in err
+    folder = work / "demo_text"
+    for name in ("train.csv", "cases.csv", "model.json"):
+        assert (folder / name).is_file(), name
+    saved = json.loads((folder / "model.json").read_text())
+    assert saved["format"] == "afterlook-model" and saved["model"]["kind"] == "independent"
+
+    model = api.load_model(folder / "model.json")
+    cases = api.load_table(folder / "cases.csv")
+    worst = api.misses(model, cases).misses[0]
+    kinds = generate(seed=7).kinds
+    assert kinds[worst.case] in RELATION_KINDS
+
+    row = _first_miss_row(out)
+    assert worst.case in row, row
+    assert re.search(r"impeller|bearing", row), row
+    note = pd.read_csv(folder / "cases.csv").set_index("id").loc[worst.case, "review_note"]
+    assert re.search(r"impeller|bearing", note)
+
+    why = out[out.index(f"why did {worst.case} look normal"):]
+    for col in FEATURE_COLUMNS:
+        assert col in why, col
+    assert "conditional z" in why  # the full-covariance comparison is shown too
+
+
+def test_demo_json(runs, work, one_json):
+    doc = _ok_json(runs["demo_json"], one_json)
+    folder = work / "demo_json"
+    for name in ("train.csv", "cases.csv", "model.json"):
+        assert (folder / name).is_file(), name
+    assert doc["misses"]["misses"], "the demo has misses"
+    worst = doc["worst"]
+    assert worst is not None
+    assert worst["case"] == doc["misses"]["misses"][0]["case"]
+    assert generate(seed=7).kinds[worst["case"]] in RELATION_KINDS
+    assert [f["name"] for f in worst["features"]] == list(FEATURE_COLUMNS)
+    for f in worst["features"]:
+        for key in ("value", "z", "percentile", "contribution"):
+            assert _finite_number(f[key]), (f["name"], key)
+        assert f["conditional_z"] is None  # the demo model is independent
+    # same analysis as the Python API on the written files
+    expected = api.explain(api.load_model(folder / "model.json"), api.load_table(folder / "cases.csv"),
+                           worst["case"]).to_dict()
+    assert worst == _roundtrip(expected)
+
+
+# --------------------------------------------------------------------------
+# help
+# --------------------------------------------------------------------------
+
+
+def test_help_carries_the_caution(runs):
+    for name in ("module_help", "fit_help"):
+        code, out, err = runs[name]
+        assert code == 0, err
+        assert err == ""
+        flat = " ".join(out.split())
+        assert flat.startswith("usage:"), flat[:80]
+        assert CAUTION_WORDS in flat, name
+    assert "fit" in " ".join(runs["module_help"][1].split())
+    assert "--derive" in runs["fit_help"][1]
