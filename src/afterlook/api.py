@@ -57,6 +57,7 @@ def fit(
     threshold: str | ThresholdPolicy | None = None,
     columns: list[str] | None = None,
     recipe: Recipe | None = None,
+    quantiles: bool = True,
 ) -> Model:
     """Fit a model on the normal rows of ``train``.
 
@@ -76,6 +77,8 @@ def fit(
     threshold : "f1", "rate:R", "value:V"; default f1 with labelled cases, else rate:0.01
     columns : base columns; default every numeric column of ``train``
     recipe : a complete recipe, instead of columns/derive/transform (used for re-fits)
+    quantiles : store the per-feature quantile grid used for percentiles (skipped
+        by the candidate search's throw-away re-fits, where it is the slowest step)
     """
     warnings: list[str] = []
     table = as_table(train)
@@ -134,7 +137,7 @@ def fit(
     else:
         basis = f"training rows ({X.shape[0]})"
 
-    stats, grid = training_summary(X, fm.names)
+    stats, grid = training_summary(X, fm.names, quantiles=quantiles)
     training = {
         "path": table.path,
         "sha256": sha256_file(table.path) if table.path else None,

@@ -65,10 +65,10 @@ def resolve_training(model: Model, cases: Table, train=None) -> TrainingRows:
                         [f"{why}; fitting on the cases labelled normal instead (give --train to avoid judging on fitted rows)"])
 
 
-def refit(model: Model, recipe: Recipe, train: TrainingRows, cases: Table) -> Model:
+def refit(model: Model, recipe: Recipe, train: TrainingRows, cases: Table, *, quantiles: bool = True) -> Model:
     """Re-fit the model's kind and options with another recipe, threshold by the same policy."""
     return fit(train.table, cases=cases, kind=model.density.kind, robust=model.density.robust,
-               shrinkage=model.density.shrinkage, threshold=model.policy, recipe=recipe)
+               shrinkage=model.density.shrinkage, threshold=model.policy, recipe=recipe, quantiles=quantiles)
 
 
 # --------------------------------------------------------------------------
@@ -286,7 +286,7 @@ def suggest(model: Model, cases, train=None, case_ids=None, top: int = 10, *,
         _report(progress, f"re-fitting {k + 1}/{len(head)}", 0.4 + 0.6 * k / max(len(head), 1))
         recipe = model.recipe.with_derived([(_candidate_name(names), c.expression)])
         try:
-            new = refit(model, recipe, training, table)
+            new = refit(model, recipe, training, table, quantiles=False)
         except AfterlookError as exc:
             warnings.append(f"could not re-fit with {c.expression}: {exc.message}")
             continue

@@ -55,7 +55,7 @@ class Model:
     policy: ThresholdPolicy
     threshold_basis: str
     training: dict
-    quantiles: np.ndarray
+    quantiles: np.ndarray | None
     created: str = field(default_factory=lambda: datetime.now(timezone.utc).replace(microsecond=0).isoformat())
     tool_version: str = __version__
     source_path: str | None = None
@@ -93,6 +93,8 @@ class Model:
 
     # -- file ------------------------------------------------------------
     def to_dict(self) -> dict:
+        if self.quantiles is None:
+            raise AfterlookError("this model was fitted without its quantile grid and cannot be saved")
         return {
             "format": model_file.FORMAT,
             "version": model_file.VERSION,
@@ -159,8 +161,8 @@ def load_model(path) -> Model:
     return Model.from_dict(model_file.read_model_document(path), source_path=str(path))
 
 
-def training_summary(X: np.ndarray, names: list[str]) -> tuple[dict, np.ndarray]:
-    """Per-feature statistics and the quantile grid of the normal rows."""
+def training_summary(X: np.ndarray, names: list[str], quantiles: bool = True) -> tuple[dict, np.ndarray | None]:
+    """Per-feature statistics and (optionally) the quantile grid of the normal rows."""
     stats = {}
     for j, name in enumerate(names):
         col = X[:, j]
@@ -170,7 +172,7 @@ def training_summary(X: np.ndarray, names: list[str]) -> tuple[dict, np.ndarray]
             "min": float(col.min()),
             "max": float(col.max()),
         }
-    return stats, quantile_grid(X, QUANTILE_POINTS)
+    return stats, (quantile_grid(X, QUANTILE_POINTS) if quantiles else None)
 
 
 def _columns_of(obj) -> Mapping[str, np.ndarray]:

@@ -253,11 +253,16 @@ class GaussianModel:
             raise AfterlookError(f"nothing to fit on: {n} normal row(s) with finite values; need at least 2")
         if not np.all(np.isfinite(X)):
             raise AfterlookError("training rows contain NaN or infinite values")
-        mean, cov, support = fit_moments(X, robust=self.robust, random_state=self.random_state)
+        if self.kind == "independent" and not self.robust:
+            # Only the variances are needed: O(n d), not the O(n d^2) scatter matrix.
+            mean, var, support = X.mean(axis=0), X.var(axis=0), None
+            cov = None
+        else:
+            mean, cov, support = fit_moments(X, robust=self.robust, random_state=self.random_state)
+            var = np.diag(cov).copy()
         self.support_fraction_ = None if support is None else float(np.mean(support))
         self.mean_ = mean
         if self.kind == "independent":
-            var = np.diag(cov).copy()
             zero = [self.names[j] for j in np.flatnonzero(~(var > 0))]
             if zero:
                 raise AfterlookError(f"zero variance in the normal rows for column(s): {', '.join(zero)}")
