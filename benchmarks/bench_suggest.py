@@ -100,8 +100,10 @@ def main() -> None:
     # Agreement of the sampled first pass with the same statistic on all rows.
     full = {n: train[n].to_numpy(dtype=float) for n in names}
     full_found, _, _ = cand.generate_and_screen(names, full, t_row, None, settings)
-    top_sample = [c.expression for c in sorted(found, key=lambda c: -np.nan_to_num(c.first_pass_z))[:10]]
-    top_full = [c.expression for c in sorted(full_found, key=lambda c: -np.nan_to_num(c.first_pass_z))[:10]]
+    # Identity of a candidate = kind + ordered inputs (the standardized
+    # difference's text embeds the sample's mean and sd, so text differs).
+    top_sample = [(c.kind, c.inputs) for c in sorted(found, key=lambda c: -np.nan_to_num(c.first_pass_z))[:10]]
+    top_full = [(c.kind, c.inputs) for c in sorted(full_found, key=lambda c: -np.nan_to_num(c.first_pass_z))[:10]]
     agree = len(set(top_sample) & set(top_full))
 
     # The whole suggest call, through the API, for information.
