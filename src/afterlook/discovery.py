@@ -121,6 +121,8 @@ def try_features(model: Model, cases, derive, train=None, *, focus: list[str] | 
     pairs = _derive_pairs(derive)
     if not pairs:
         raise AfterlookError("nothing to try: give at least one --derive NAME=EXPR")
+    for cid in focus or []:
+        table.row_index(str(cid))  # unknown id: the usual one-line error
     recipe = model.recipe.with_derived(pairs)
     _check_columns(recipe, table, pairs)
     training = resolve_training(model, table, train)

@@ -19,6 +19,9 @@ Relation kinds (``kind`` argument):
 ``square``
     ``b = a ** 2 (1 + 3% noise)``. A failure keeps both in range and has
     ``b`` 40% off ``a ** 2``.
+``signed_square``
+    As ``square`` but ``a`` takes both signs (``|a|`` in 3..9), as a signed
+    reading such as a velocity does; ``b = a ** 2`` stays positive.
 ``null``
     The "anomalies" are drawn from the normal population itself: nothing
     is planted, so no candidate should be a finding.
@@ -33,7 +36,12 @@ judge the tool against the planted structure, never against its own output.
 
 from __future__ import annotations
 
+import json
+import os
+import subprocess
+import sys
 from dataclasses import dataclass, field
+from pathlib import Path
 
 import numpy as np
 import pandas as pd
@@ -48,6 +56,9 @@ RATIO_K = 0.5
 DIFF_OFFSET = 30.0
 RELATION_SHIFT = 0.4  # planted ratio / square breaks: 40% off
 DIFF_SHIFT_SD = 8.0  # planted difference breaks: 8 noise sd
+
+
+KINDS = {"ratio": 1, "difference": 2, "square": 3, "null": 4, "signed_square": 5}  # also seeds the kind
 
 
 @dataclass
@@ -73,8 +84,10 @@ def _relation(kind: str, rng: np.random.Generator, n: int) -> tuple[np.ndarray, 
     elif kind == "difference":
         a = rng.normal(100.0, 15.0, n)
         b = a - DIFF_OFFSET + rng.normal(0.0, 1.0, n)
-    elif kind == "square":
+    elif kind in ("square", "signed_square"):
         a = rng.uniform(3.0, 9.0, n)
+        if kind == "signed_square":
+            a = a * rng.choice([-1.0, 1.0], n)
         b = a**2 * (1.0 + 0.03 * rng.standard_normal(n))
     else:  # pragma: no cover - test-suite misuse
         raise ValueError(kind)
@@ -97,7 +110,7 @@ def _frame(ids, a, b, others, labels=None) -> pd.DataFrame:
 
 
 def _planted_pairs(kind: str, rng: np.random.Generator, train_a: np.ndarray, train_b: np.ndarray,
-                   n: int) -> tuple[np.ndarray, np.ndarray]:
+                   n: int, shift: float) -> tuple[np.ndarray, np.ndarray]:
     """Failures whose a and b each sit inside their normal 5th-95th percentile but break the relation."""
     lo_a, hi_a = np.quantile(train_a, [0.05, 0.95])
     lo_b, hi_b = np.quantile(train_b, [0.05, 0.95])
@@ -108,13 +121,15 @@ def _planted_pairs(kind: str, rng: np.random.Generator, train_a: np.ndarray, tra
         if k > 100_000:  # pragma: no cover - generator bug, not a test result
             raise RuntimeError("could not plant in-range failures")
         a = rng.uniform(lo_a, hi_a)
+        if kind == "signed_square":  # stay on the normal support |a| >= 3 (and inside the 5th-95th percentile)
+            a = rng.choice([-1.0, 1.0]) * rng.uniform(4.0, 8.0)
         up = len(out_a) % 2 == 0  # alternate the direction of the break
         if kind == "ratio":
-            b = RATIO_K * a / ((1.0 + RELATION_SHIFT) if up else (1.0 - RELATION_SHIFT))
+            b = RATIO_K * a / ((1.0 + shift) if up else (1.0 - shift))
         elif kind == "difference":
-            b = a - DIFF_OFFSET + (DIFF_SHIFT_SD if up else -DIFF_SHIFT_SD)
-        else:  # square
-            b = a**2 * ((1.0 + RELATION_SHIFT) if up else (1.0 - RELATION_SHIFT))
+            b = a - DIFF_OFFSET + (shift if up else -shift)
+        else:  # square, signed_square
+            b = a**2 * ((1.0 + shift) if up else (1.0 - shift))
         if lo_b < b < hi_b:
             out_a.append(a)
             out_b.append(b)
@@ -122,9 +137,16 @@ def _planted_pairs(kind: str, rng: np.random.Generator, train_a: np.ndarray, tra
 
 
 def make_fleet(kind: str, seed: int = 0, n_train: int = N_TRAIN, n_normal_cases: int = N_NORMAL_CASES,
-               n_planted: int = N_PLANTED, n_loud: int = N_LOUD) -> Fleet:
-    """A seeded fleet with a planted relation of ``kind`` (see the module docstring)."""
-    rng = np.random.default_rng([seed, {"ratio": 1, "difference": 2, "square": 3, "null": 4}[kind]])
+               n_planted: int = N_PLANTED, n_loud: int = N_LOUD, shift: float | None = None) -> Fleet:
+    """A seeded fleet with a planted relation of ``kind`` (see the module docstring).
+
+    ``shift`` overrides the size of the planted break: the relative error of
+    ``b`` against ``K a`` or ``a ** 2`` (default 0.4), or the shift of
+    ``a - b`` in noise sd (default 8).
+    """
+    if shift is None:
+        shift = DIFF_SHIFT_SD if kind == "difference" else RELATION_SHIFT
+    rng = np.random.default_rng([seed, KINDS[kind]])
     a, b = _relation(kind, rng, n_train)
     train = _frame([f"t{i}" for i in range(n_train)], a, b, _others(rng, n_train))
 
@@ -146,7 +168,7 @@ def make_fleet(kind: str, seed: int = 0, n_train: int = N_TRAIN, n_normal_cases:
         null_ids = list(null["id"])
         parts.append(null)
     else:
-        a, b = _planted_pairs(kind, rng, train["a"].to_numpy(), train["b"].to_numpy(), n_planted)
+        a, b = _planted_pairs(kind, rng, train["a"].to_numpy(), train["b"].to_numpy(), n_planted, shift)
         planted = _frame([f"p{i}" for i in range(n_planted)], a, b, _others(rng, n_planted),
                          ["anomaly"] * n_planted)
         planted_ids = list(planted["id"])
@@ -170,6 +192,14 @@ class FittedFleet:
     def cases(self) -> pd.DataFrame:
         return self.fleet.cases
 
+    def unflagged(self, ids) -> list[str]:
+        """Those of ``ids`` the fitted model leaves unflagged (misses, for anomalies)."""
+        from afterlook import api
+
+        sc = api.scored_cases(self.model, self.cases)
+        flagged = dict(zip((str(i) for i in sc.table.ids), sc.flagged))
+        return [i for i in ids if not flagged[i]]
+
 
 def fit_fleet(fleet: Fleet) -> FittedFleet:
     """The per-column (independent) Gaussian: the kind that misses relation breaks."""
@@ -178,23 +208,96 @@ def fit_fleet(fleet: Fleet) -> FittedFleet:
     return FittedFleet(fleet, api.fit(fleet.train, cases=fleet.cases, kind="independent"))
 
 
-def unflagged(fitted: FittedFleet, ids) -> list[str]:
-    """Those of ``ids`` the fitted model leaves unflagged (misses, for anomalies)."""
-    from afterlook import api
+@pytest.fixture(scope="session")
+def fleet_factory():
+    """``fleet_factory(kind, seed=0, shift=None) -> FittedFleet`` (cached; treat as read-only)."""
+    cache: dict = {}
 
-    sc = api.scored_cases(fitted.model, fitted.cases)
-    flagged = dict(zip((str(i) for i in sc.table.ids), sc.flagged))
-    return [i for i in ids if not flagged[i]]
+    def get(kind: str, seed: int = 0, shift: float | None = None) -> FittedFleet:
+        key = (kind, seed, shift)
+        if key not in cache:
+            cache[key] = fit_fleet(make_fleet(kind, seed, shift=shift))
+        return cache[key]
+
+    return get
+
+
+# --------------------------------------------------------------------------
+# the real console script
+# --------------------------------------------------------------------------
+
+SCRIPT = Path(sys.executable).parent / "afterlook"
+
+
+def _run_cli(*args, cwd=None) -> tuple[int, str, str]:
+    """Run the installed ``afterlook`` script; return (exit code, stdout, stderr)."""
+    if not SCRIPT.exists():  # pragma: no cover - a broken install, not a test result
+        pytest.fail(f"console script not found next to the interpreter: {SCRIPT}")
+    env = dict(os.environ)
+    env.pop("AFTERLOOK_DEBUG", None)
+    env["COLUMNS"] = "200"
+    env["NO_COLOR"] = "1"
+    proc = subprocess.run([str(SCRIPT), *map(str, args)], cwd=cwd, env=env, capture_output=True, text=True,
+                          timeout=180, stdin=subprocess.DEVNULL)
+    return proc.returncode, proc.stdout, proc.stderr
 
 
 @pytest.fixture(scope="session")
-def fleet_factory():
-    """``fleet_factory(kind, seed=0) -> FittedFleet`` (cached per kind and seed)."""
+def run_cli():
+    """``run_cli(*args, cwd=None) -> (code, stdout, stderr)``."""
+    return _run_cli
+
+
+def _one_json(stdout: str):
+    """stdout parsed as exactly one JSON document."""
+    text = stdout.strip()
+    assert text, "stdout is empty; expected one JSON document"
+    doc, end = json.JSONDecoder().raw_decode(text)
+    assert end == len(text), f"extra output after the JSON document: {text[end:end + 80]!r}"
+    return doc
+
+
+@pytest.fixture(scope="session")
+def one_json():
+    return _one_json
+
+
+@dataclass
+class FleetFiles:
+    dir: Path
+    train: Path
+    cases: Path
+    model: Path
+    fleet: Fleet
+
+
+def write_fleet_files(fleet: Fleet, folder: Path, fit_model: bool = True) -> FleetFiles:
+    """train.csv and cases.csv in ``folder``; model.json fitted by ``afterlook fit`` (absolute paths)."""
+    folder.mkdir(parents=True, exist_ok=True)
+    files = FleetFiles(folder, folder / "train.csv", folder / "cases.csv", folder / "model.json", fleet)
+    fleet.train.to_csv(files.train, index=False)
+    fleet.cases.to_csv(files.cases, index=False)
+    if fit_model:
+        code, out, err = _run_cli("fit", files.train, "--out", files.model, "--cases", files.cases,
+                                  "--kind", "independent", "--json")
+        assert code == 0, err
+    return files
+
+
+@pytest.fixture(scope="session")
+def fleet_files(tmp_path_factory):
+    """``fleet_files(kind, seed=0) -> FleetFiles`` on disk, shared: copy before changing anything."""
     cache: dict = {}
 
-    def get(kind: str, seed: int = 0) -> FittedFleet:
+    def get(kind: str, seed: int = 0) -> FleetFiles:
         if (kind, seed) not in cache:
-            cache[kind, seed] = fit_fleet(make_fleet(kind, seed))
+            cache[kind, seed] = write_fleet_files(make_fleet(kind, seed), tmp_path_factory.mktemp(f"{kind}{seed}"))
         return cache[kind, seed]
 
     return get
+
+
+@pytest.fixture(scope="session")
+def fleet_maker():
+    """``make_fleet`` and ``write_fleet_files`` for tests that need their own copy on disk."""
+    return make_fleet, write_fleet_files

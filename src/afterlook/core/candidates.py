@@ -42,10 +42,11 @@ shaped_difference      standardized difference of the shaped        a shaping
 **Chance guard.** With ``m`` candidates tried, one will separate a single
 case by luck. Each candidate's tail is
 
-* the empirical add-one tail when at least ``MIN_TAIL_COUNT`` normal rows
-  are as extreme as the target;
-* otherwise, beyond the empirical range, a generalized Pareto tail fitted
-  to the largest 2% of ``|v - med|`` (peaks over threshold; parameters by
+* the empirical add-one tail whenever at least one normal row is as
+  extreme as the target (inside the empirical range nothing is
+  extrapolated, so nothing there can look rarer than the data show);
+* beyond the empirical range, a generalized Pareto tail fitted to the
+  largest 5% (at least 50) of ``|v - med|`` (peaks over threshold; parameters by
   the probability-weighted moments of Hosking and Wallis, Technometrics
   29(3), 1987, 339-349, cited from memory), with the shape clamped at
   ``>= 0`` so that a light tail is extrapolated no thinner than an
@@ -72,8 +73,9 @@ from .errors import AfterlookError
 
 KINDS = ("ratio", "log_ratio", "standardized_difference", "product", "square_ratio", "shaped_difference")
 MAD_TO_SD = 1.4826  # consistency constant of the MAD for a normal distribution
-MIN_TAIL_COUNT = 10
-TAIL_FRACTION = 0.02  # share of rows in the generalized Pareto tail fit
+MIN_TAIL_COUNT = 1  # any normal row as extreme as the target: no extrapolation
+TAIL_FRACTION = 0.05  # share of rows in the generalized Pareto tail fit
+MIN_EXCESSES = 50  # at least this many excesses in the tail fit
 CHANCE_LEVEL = 0.05
 
 
@@ -213,7 +215,7 @@ def gpd_tail(abs_dev: np.ndarray, target_dev: float, fraction: float = TAIL_FRAC
     """
     d = np.sort(np.asarray(abs_dev, dtype=np.float64))
     n = d.size
-    n_tail = max(20, int(math.ceil(fraction * n)))
+    n_tail = max(MIN_EXCESSES, int(math.ceil(fraction * n)))
     n_tail = min(n_tail, n - 1)
     u = d[n - n_tail - 1]
     excess = d[n - n_tail:] - u
@@ -242,7 +244,7 @@ def tail_probability(values: np.ndarray, target: float) -> tuple[float, str, int
     n = values.size
     if count >= MIN_TAIL_COUNT:
         return (count + 1) / (n + 1), "empirical", count
-    return min((count + 1) / (n + 1), gpd_tail(dev, t)), "pareto tail", count
+    return gpd_tail(dev, t), "pareto tail", count
 
 
 def robust_z(values: np.ndarray, target: np.ndarray | float) -> np.ndarray:
@@ -344,28 +346,36 @@ def generate_and_screen(
     add("product", iu, ju, G1[iu, ju] * s2, (G2[iu, ju] - G1[iu, ju] ** 2) * s2**2,
         T[:, iu] * T[:, ju], [f"{q[a]} * {q[b]}" for a, b in zip(iu, ju)])
 
-    # positive pairs: ratios, log ratio, square ratios
+    # ratios and log ratio need both columns positive; a square ratio only
+    # needs a positive divisor (the numerator is squared).
+    P = np.flatnonzero(positive)
+    if len(P):
+        inv = 1.0 / As[:, P]
+        pos_index = {c: k for k, c in enumerate(P)}
+        A2s = As**2
+        S1 = A2s.T @ inv / n  # E[a^2 / b] (scaled), every numerator, positive divisors
+        S2 = (A2s**2).T @ (inv**2) / n  # E[a^4 / b^2]
+        for a_, b_ in ((iu, ju), (ju, iu)):
+            keep_sq = positive[b_]
+            x_, y_ = a_[keep_sq], b_[keep_sq]
+            if len(x_):
+                iy = np.array([pos_index[y] for y in y_])
+                g = scale[x_] ** 2 / scale[y_]
+                add("square_ratio", x_, y_, S1[x_, iy] * g, (S2[x_, iy] - S1[x_, iy] ** 2) * g**2,
+                    T[:, x_] ** 2 / T[:, y_], [f"{q[x]} ** 2 / {q[y]}" for x, y in zip(x_, y_)])
     pmask = positive[iu] & positive[ju]
     pi, pj = iu[pmask], ju[pmask]
     if len(pi):
-        P = np.flatnonzero(positive)
         Ap = As[:, P]
-        inv = 1.0 / Ap
-        pos_index = {c: k for k, c in enumerate(P)}
         a_idx = np.array([pos_index[x] for x in pi])
         b_idx = np.array([pos_index[x] for x in pj])
         M1 = Ap.T @ inv / n  # E[a / b] (scaled)
         M2 = (Ap**2).T @ (inv**2) / n  # E[(a / b)^2]
-        S1 = (Ap**2).T @ inv / n  # E[a^2 / b]
-        S2 = (Ap**4).T @ (inv**2) / n  # E[a^4 / b^2]
         sc = scale[P]
-        for a_, b_, ia, ib, label in ((pi, pj, a_idx, b_idx, "ab"), (pj, pi, b_idx, a_idx, "ba")):
+        for a_, b_, ia, ib in ((pi, pj, a_idx, b_idx), (pj, pi, b_idx, a_idx)):
             f = sc[ia] / sc[ib]
             add("ratio", a_, b_, M1[ia, ib] * f, (M2[ia, ib] - M1[ia, ib] ** 2) * f**2,
                 T[:, a_] / T[:, b_], [f"{q[x]} / {q[y]}" for x, y in zip(a_, b_)])
-            g = sc[ia] ** 2 / sc[ib]
-            add("square_ratio", a_, b_, S1[ia, ib] * g, (S2[ia, ib] - S1[ia, ib] ** 2) * g**2,
-                T[:, a_] ** 2 / T[:, b_], [f"{q[x]} ** 2 / {q[y]}" for x, y in zip(a_, b_)])
         L = np.log(A[:, P])
         Lmu = L.mean(axis=0)
         LC = np.cov(L, rowvar=False, bias=True) if len(P) > 1 else np.zeros((1, 1))
