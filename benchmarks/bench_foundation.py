@@ -152,16 +152,18 @@ def peak_rss_mib() -> float:
     return kib / 1024.0
 
 
-def timed_runs(fn, repeat: int) -> tuple[list[float], object]:
-    """Wall times of ``repeat`` calls and the last result."""
-    times = []
-    result = None
-    for _ in range(repeat):
-        result = None  # drop the previous result before the next run
-        start = time.perf_counter()
-        result = fn()
-        times.append(time.perf_counter() - start)
-    return times, result
+def _cpu_seconds() -> float:
+    usage = resource.getrusage(resource.RUSAGE_SELF)  # all threads of this process
+    return usage.ru_utime + usage.ru_stime
+
+
+def timed_call(fn) -> tuple[float, float]:
+    """Wall and CPU seconds of one call (the result is dropped)."""
+    cpu = _cpu_seconds()
+    start = time.perf_counter()
+    fn()
+    wall = time.perf_counter() - start
+    return wall, _cpu_seconds() - cpu
 
 
 def release_pools() -> None:
@@ -195,14 +197,6 @@ def _max_rel_diff(a: np.ndarray, b: np.ndarray) -> float:
     b = np.asarray(b, dtype=np.float64)
     denom = np.maximum(np.abs(b), np.finfo(np.float64).tiny)
     return float(np.max(np.abs(a - b) / denom))
-
-
-IMPLS = {
-    "score": ("afterlook", "scipy"),
-    "fit": ("afterlook", "afterlook-stats", "numpy"),
-    "load": ("afterlook", "pandas"),
-    "chunks": ("afterlook", "pandas"),
-}
 
 
 def make_calls(op: str, rows: int, path: str | None) -> tuple[dict, dict]:
@@ -287,14 +281,20 @@ def time_worker(op: str, rows: int, repeat: int, path: str | None) -> dict:
         fn()
     release_pools()
     times: dict[str, list[float]] = {impl: [] for impl in calls}
+    cpu: dict[str, list[float]] = {impl: [] for impl in calls}
     for _ in range(repeat):
         for impl, fn in calls.items():
-            run_times, result = timed_runs(fn, 1)
-            times[impl] += run_times
-            del result
+            wall, used = timed_call(fn)
+            times[impl].append(wall)
+            cpu[impl].append(used)
     out = {}
     for impl, fn in calls.items():
-        out[impl] = {"seconds": min(times[impl]), "median_seconds": float(np.median(times[impl]))}
+        best = int(np.argmin(times[impl]))
+        out[impl] = {
+            "seconds": times[impl][best],
+            "median_seconds": float(np.median(times[impl])),
+            "cpu_seconds": cpu[impl][best],
+        }
         out[impl].update(_agreement(op, impl, fn(), ctx, rows))
     return out
 
@@ -378,6 +378,13 @@ def _mem_total_gib() -> str:
     return "?"
 
 
+def _load_average() -> str:
+    try:
+        return f"{os.getloadavg()[0]:.1f}"
+    except OSError:
+        return "?"
+
+
 def _fmt_ratio(ratio: float) -> str:
     return f"{ratio:.2f}x"
 
@@ -405,8 +412,9 @@ def build_tables(rows: int, results: list[dict]) -> str:
         "",
         "ratio = afterlook time / reference time (lower is better); times are the best of the repeats.",
         "",
-        "| operation | afterlook peak MiB (extra) | reference peak MiB (extra) | agreement (max rel diff) |",
-        "| --- | ---: | ---: | ---: |",
+        "| operation | afterlook peak MiB (extra) | reference peak MiB (extra) | afterlook / reference CPU s "
+        "| agreement (max rel diff) |",
+        "| --- | ---: | ---: | ---: | ---: |",
     ]
     for r in results:
         ours, ref = r["ours"], r["ref"]
@@ -414,12 +422,15 @@ def build_tables(rows: int, results: list[dict]) -> str:
         lines.append(
             f"| {r['label']} | {ours['peak_mib']:.0f} (+{ours['extra_mib']:.0f}) | "
             f"{ref['peak_mib']:.0f} (+{ref['extra_mib']:.0f}) | "
+            f"{ours['cpu_seconds']:.2f} / {ref['cpu_seconds']:.2f} | "
             f"{'-' if agree is None else f'{agree:.1e}'} |"
         )
     lines += [
         "",
         "peak = peak resident size (VmHWM) of a child process making one warmed-up call; extra = peak minus "
-        "the resident size just before the call (which holds the input array for score and fit).",
+        "the resident size just before the call (which holds the input array for score and fit). "
+        "CPU s = user + system time of all threads during the best timed call (above the wall time when "
+        "the call uses both cores).",
     ]
     return "\n".join(lines)
 
@@ -454,6 +465,8 @@ def main(argv: list[str] | None = None) -> int:
     print(f"afterlook foundation benchmark: {rows:,} rows x {N_COLS} columns, best of {args.repeat}")
     print(f"machine: {machine}")
     print("versions: " + ", ".join(f"{k} {v}" for k, v in versions.items()))
+    load_before = _load_average()
+    print(f"load average before: {load_before}")
 
     own_tmp = args.data_dir is None
     folder = Path(tempfile.mkdtemp(prefix="afterlook-bench-")) if own_tmp else Path(args.data_dir)
@@ -493,6 +506,8 @@ def main(argv: list[str] | None = None) -> int:
         if own_tmp:
             shutil.rmtree(folder, ignore_errors=True)
 
+    load_after = _load_average()
+    print(f"load average after: {load_after}")
     table = build_tables(rows, results)
     print()
     print(table)
@@ -508,6 +523,8 @@ def main(argv: list[str] | None = None) -> int:
             f"- date: {stamp}",
             f"- machine: {machine}",
             "- versions: " + ", ".join(f"{k} {v}" for k, v in versions.items()),
+            f"- 1-minute load average (other work on the machine): {load_before} before, {load_after} after; "
+            "timings are interleaved so both sides see the same load",
             f"- data: {rows:,} rows x {N_COLS} float columns (seed {SEED}); CSV with an integer `id` column, "
             f"values rounded to {DECIMALS} decimals",
             f"- command: `python benchmarks/bench_foundation.py{' --rows ' + str(rows) if rows != FULL_ROWS else ''}"

@@ -30,6 +30,13 @@ _EXPORTS = {
     "try_features": "afterlook.discovery",
     "AfterlookError": "afterlook.core.errors",
 }
+# casebook: reviewed misses, regression check against a model
+_EXPORTS.update({
+    "Casebook": "afterlook.casebook",
+    "review_entry": "afterlook.casebook",
+    "add_to_casebook": "afterlook.casebook",
+    "check_casebook": "afterlook.casebook",
+})
 
 __all__ = ["__version__", *_EXPORTS]
 

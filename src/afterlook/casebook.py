@@ -263,7 +263,7 @@ def _histogram(model: Model, feature: str, population) -> dict:
         return {"edges": [], "counts": [], "bins": 0, "rows": 0, "population": where}
     counts, edges = np.histogram(values, bins=HISTOGRAM_BINS)
     return {
-        "edges": [float(f"{e:.6g}") for e in edges],
+        "edges": [float(e) for e in edges],
         "counts": [int(c) for c in counts],
         "bins": HISTOGRAM_BINS,
         "rows": int(values.size),

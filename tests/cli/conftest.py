@@ -84,11 +84,6 @@ def one_json():
     return parse_one_json
 
 
-def roundtrip(obj):
-    """What a dict looks like after being printed as JSON and read back (tuples -> lists ...)."""
-    return json.loads(json.dumps(obj, allow_nan=False))
-
-
 # --------------------------------------------------------------------------
 # realistic input: the invented demo fleet, small
 # --------------------------------------------------------------------------

@@ -15,13 +15,7 @@ from concurrent.futures import ThreadPoolExecutor
 from pathlib import Path
 
 import numpy as np
-import pandas as pd
 import pytest
-
-# A table of numbers only: `score` works on it even while text columns break
-# scoring (see test_score_out_keeps_text_columns in test_cli_json.py).
-NUMERIC_ONLY = "numeric_only.csv"
-
 
 def assert_bad_input(result, *words):
     """Exit 2, nothing on stdout, exactly one 'afterlook: error:' line naming ``words``."""
@@ -82,12 +76,6 @@ def _write_files(folder: Path, demo, tiny_frame) -> None:
     maybe.to_csv(folder / "maybe_labels.csv", index=False)
     (folder / "dup_columns.csv").write_text("id,a,b,a\nr1,1,2,3\nr2,2,3,5\nr3,3,5,4\n")
 
-    # a table of numbers only (no id, numeric labels): scorable even with text-column bugs
-    numeric = train.drop(columns=["id"]).assign(label=0)
-    numeric.to_csv(folder / NUMERIC_ONLY, index=False)
-    from afterlook import api
-
-    api.fit(api.load_table(folder / NUMERIC_ONLY), kind="full", threshold="rate:0.05").save(folder / "tiny_model.json")
 
     # succeed-with-warning inputs
     nan_train = train.copy()
@@ -149,7 +137,7 @@ BAD = {
     "missing_required_out": (["fit", "train.csv"], ["--out"]),
     "missing_required_case_id": (["explain", "model.json", "demo_cases.csv"], ["CASE_ID"]),
     "bad_limit": (["misses", "model.json", "demo_cases.csv", "--limit", "lots"], ["lots"]),
-    "score_out_unknown_extension": (["score", "tiny_model.json", NUMERIC_ONLY, "--out", "scored.txt"], ["scored.txt"]),
+    "score_out_unknown_extension": (["score", "model.json", "demo_cases.csv", "--out", "scored.txt"], ["scored.txt"]),
 }
 
 #: runs that must succeed (exit 0) with warnings
@@ -267,3 +255,8 @@ def test_duplicate_ids_warn_and_explain_uses_the_first_row(results, bad_dir, dem
         assert values[col] == pytest.approx(float(first[col]), rel=1e-12)
     # the two rows differ, so the check above really tells first from second
     assert any(values[c] != pytest.approx(float(second[c])) for c in ("flow_m3h", "motor_current_a"))
+
+
+def test_usage_error_does_not_repeat_the_prefix(results):
+    line = results["unknown_subcommand"][2].strip()
+    assert not line.startswith("afterlook: error: afterlook:"), line

@@ -12,4 +12,10 @@ def register(sub, add_common, add_table_opts, caution) -> None:
     from . import discovery_commands
 
     COMMANDS.update(discovery_commands.register(sub, add_common, add_table_opts, caution))
+    from . import casebook_command
+
+    COMMANDS.update(casebook_command.register(sub, add_common, add_table_opts, caution))
+    from . import review_command
+
+    COMMANDS.update(review_command.register(sub, add_common, add_table_opts, caution))
     return None

@@ -17,18 +17,15 @@ from .. import _version
 from ..core.errors import AfterlookError
 from .exit_codes import EXIT_BAD_INPUT, EXIT_CHECK_FAILED, EXIT_INTERNAL, EXIT_OK
 
-CAUTION = (
-    "Caution: pump, process and machine alarms can protect people and property. afterlook is an "
-    "analysis aid: it does not replace protection devices, interlocks or site procedures, and a "
-    "model change must go through the site's normal review. Defer to local codes and licensed practice."
-)
+from ..cautions import CAUTION  # noqa: E402 (one sentence, shared with reports)
 
 
 class _Parser(argparse.ArgumentParser):
     """argparse that reports a usage error as one line and exit code 2."""
 
     def error(self, message: str):  # noqa: D401 - argparse API
-        raise AfterlookError(f"{self.prog}: {message} (see '{self.prog} --help')")
+        where = self.prog.removeprefix("afterlook").strip()
+        raise AfterlookError(f"{where + ': ' if where else ''}{message} (see '{self.prog} --help')")
 
 
 def _add_common(p: argparse.ArgumentParser) -> None:

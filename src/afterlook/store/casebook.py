@@ -49,12 +49,14 @@ import hashlib
 import json
 import math
 import os
-import tempfile
+import secrets
+import stat
 from datetime import datetime, timezone
 from pathlib import Path
 from typing import Iterator
 
 from ..core.errors import AfterlookError
+from .atomic import _write_atomic, write_bytes_atomic  # noqa: F401 (re-exported)
 
 __all__ = [
     "FORMAT",
@@ -65,6 +67,8 @@ __all__ = [
     "CasebookConflict",
     "check_status",
     "dumps",
+    "write_bytes_atomic",
+    "backup_path",
 ]
 
 FORMAT = "afterlook-casebook"
@@ -95,7 +99,7 @@ def check_status(status: str) -> str:
 def dumps(doc: dict) -> str:
     """The file text of a casebook document: stable key order, 2-space indent, trailing newline."""
     try:
-        return json.dumps(doc, indent=2, sort_keys=True, allow_nan=False, ensure_ascii=False) + "\n"
+        return json.dumps(doc, indent=2, sort_keys=True, allow_nan=False) + "\n"
     except (TypeError, ValueError) as exc:
         # NaN/inf or a non-JSON object in an entry: a bug of the caller, reported plainly.
         raise AfterlookError(f"casebook entry cannot be written as JSON: {exc}") from None
@@ -221,14 +225,14 @@ class Casebook:
                 raise AfterlookError(f"cannot read casebook {p} before writing it: {exc.strerror or exc}") from None
             if _sha256(current) != self._digest:
                 sibling = _conflict_path(p)
-                _write_atomic(sibling, data)
+                _write_atomic(sibling, data, mode_of=p)
                 what = "was deleted" if current is None else "was created" if self._digest is None else "changed"
                 raise CasebookConflict(
                     f"casebook {p} {what} on disk since it was read; it was left as it is and the new "
                     f"state was written to {sibling} (merge the two by hand, then delete the sibling)",
                     path=p, sibling=sibling)
             if current is not None:
-                _write_atomic(backup_path(p), current)
+                _write_atomic(backup_path(p), current, mode_of=p)
             _write_atomic(p, data)
         self._digest = _sha256(data)
         return p
@@ -301,44 +305,6 @@ def _conflict_path(p: Path) -> Path:
         candidate = p.with_name(f"{stem}.conflict-{stamp}-{k}.json")
         k += 1
     return candidate
-
-
-def _write_atomic(p: Path, data: bytes) -> None:
-    """Temp file in the same folder, fsync, ``os.replace``, fsync the folder.
-
-    Hand-written rather than shared with the model file's writer because the
-    casebook needs exact bytes (their SHA-256 is the conflict check) and the
-    folder fsync; the steps are the same.
-    """
-    folder = p.parent if str(p.parent) else Path(".")
-    try:
-        fd, tmp = tempfile.mkstemp(prefix=f".{p.name}.", suffix=".tmp", dir=folder)
-    except OSError as exc:
-        raise AfterlookError(f"cannot write {p}: {exc.strerror or exc}") from None
-    try:
-        with os.fdopen(fd, "wb") as fh:
-            fh.write(data)
-            fh.flush()
-            os.fsync(fh.fileno())
-        os.replace(tmp, p)
-    except OSError as exc:
-        with contextlib.suppress(OSError):
-            os.unlink(tmp)
-        raise AfterlookError(f"cannot write {p}: {exc.strerror or exc}; the previous file is unchanged") from None
-    _fsync_folder(folder)
-
-
-def _fsync_folder(folder: Path) -> None:
-    try:
-        fd = os.open(folder, os.O_RDONLY)
-    except OSError:  # pragma: no cover - e.g. platforms that cannot open a folder
-        return
-    try:
-        os.fsync(fd)
-    except OSError:  # pragma: no cover - some filesystems refuse fsync on a folder
-        pass
-    finally:
-        os.close(fd)
 
 
 @contextlib.contextmanager

@@ -9,10 +9,10 @@ from __future__ import annotations
 
 import json
 import os
-import tempfile
 from pathlib import Path
 
 from ..core.errors import AfterlookError
+from .atomic import write_bytes_atomic
 
 FORMAT = "afterlook-model"
 VERSION = 1
@@ -52,30 +52,12 @@ def read_model_document(path: str | os.PathLike) -> dict:
 
 
 def write_json_atomic(doc: dict, path: str | os.PathLike, *, sort_keys: bool = False) -> None:
-    """Write JSON through a temp file in the same folder, fsync, then rename."""
-    p = Path(path)
-    folder = p.parent if str(p.parent) else Path(".")
-    if p.is_dir():
-        raise AfterlookError(f"cannot write {p}: it is a directory")
-    if not folder.exists():
-        raise AfterlookError(f"cannot write {p}: folder {folder} does not exist")
-    text = json.dumps(doc, indent=2, sort_keys=sort_keys, allow_nan=False) + "\n"
+    """Write JSON atomically (see :mod:`afterlook.store.atomic`)."""
     try:
-        fd, tmp = tempfile.mkstemp(prefix=f".{p.name}.", suffix=".tmp", dir=folder)
-    except OSError as exc:
-        raise AfterlookError(f"cannot write {p}: {exc.strerror or exc}") from None
-    try:
-        with os.fdopen(fd, "w", encoding="utf-8") as fh:
-            fh.write(text)
-            fh.flush()
-            os.fsync(fh.fileno())
-        os.replace(tmp, p)
-    except OSError as exc:
-        try:
-            os.unlink(tmp)
-        except OSError:
-            pass
-        raise AfterlookError(f"cannot write {p}: {exc.strerror or exc}") from None
+        text = json.dumps(doc, indent=2, sort_keys=sort_keys, allow_nan=False) + "\n"
+    except ValueError:
+        raise AfterlookError(f"cannot write {path}: a value is NaN or infinite") from None
+    write_bytes_atomic(path, text.encode("utf-8"))
 
 
 def write_model_document(doc: dict, path: str | os.PathLike) -> None:

@@ -230,7 +230,9 @@ def _probe_csv_types(name: str, delimiter: str) -> dict[str, pa.DataType] | None
     names = _schema_names(name, schema)
     if len(set(names)) != len(names):
         _check_column_names(name, names)
-    return {n: f.type for n, f in zip(names, schema) if f.type in _FIXABLE_TYPES}
+    # Date/time-like text is context, kept exactly as written (never re-formatted).
+    return {n: (pa.string() if pa.types.is_temporal(f.type) else f.type)
+            for n, f in zip(names, schema) if f.type in _FIXABLE_TYPES or pa.types.is_temporal(f.type)}
 
 
 def _read_csv(name: str, head: bytes, delimiter: str, compressed: bool) -> pa.Table:
@@ -246,8 +248,9 @@ def _read_csv(name: str, head: bytes, delimiter: str, compressed: bool) -> pa.Ta
                 text = str(exc)
                 if "CSV parse error" in text and not newlines:
                     newlines = True  # a quoted value spans lines: slower mode
-                elif "conversion error" in text and types:
-                    types = None  # a later row does not fit the first block's types
+                elif "conversion error" in text and any(t != pa.string() for t in types.values()):
+                    # a later row does not fit the first block's types; keep text as text
+                    types = {n: t for n, t in types.items() if t == pa.string()}
                 else:
                     raise
     except (pa.ArrowException, OSError, ValueError, TypeError, IndexError, KeyError, MemoryError) as exc:

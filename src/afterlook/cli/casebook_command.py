@@ -1,0 +1,322 @@
+"""`afterlook casebook add|list|show|report|check`: argument parsing and output only.
+
+The entry is built by :mod:`afterlook.casebook`, the file is handled by
+:mod:`afterlook.store.casebook`, reports come from :mod:`afterlook.report`.
+"""
+
+from __future__ import annotations
+
+import json
+import os
+import sys
+from pathlib import Path
+
+from ..core.errors import AfterlookError
+from .exit_codes import EXIT_CHECK_FAILED, EXIT_OK
+
+ACTIONS = ("add", "list", "show", "report", "check")
+
+DESCRIPTION = (
+    "A casebook is a file of reviewed misses: per case the decision (status), a note, the reviewer, "
+    "the evidence the decision rests on and the derived feature that exposes the case, if any. "
+    "'check' re-scores the book's cases with a model and fails (exit 1) when a case marked explained "
+    "is no longer flagged, so a model update cannot silently undo a review."
+)
+
+
+def register(sub, add_common, add_table_opts, caution) -> dict:
+    from ..store.casebook import STATUSES
+
+    p = sub.add_parser("casebook", help="record reviewed misses; list, show, report, regression-check",
+                       description=DESCRIPTION, epilog=caution)
+    actions = p.add_subparsers(dest="casebook_action", metavar="ACTION", parser_class=type(p))
+
+    a = actions.add_parser("add", help="record a reviewed case (creates the book if missing)", epilog=caution)
+    a.add_argument("book", metavar="BOOK", help="casebook file (JSON)")
+    a.add_argument("--model", required=True, metavar="MODEL", help="model the case was reviewed against")
+    a.add_argument("--cases", required=True, metavar="CASES", help="table holding the case")
+    a.add_argument("--case", required=True, metavar="ID", help="id of the case")
+    a.add_argument("--status", required=True, metavar="S", help=f"one of: {', '.join(STATUSES)}")
+    a.add_argument("--derive", action="append", default=[], metavar="NAME=EXPR",
+                   help="derived feature that exposes the case (repeatable; the first is the deciding one)")
+    a.add_argument("--note", default="", metavar="TEXT", help="free-text note")
+    a.add_argument("--reviewer", metavar="NAME", help="reviewer (default: the OS user)")
+    a.add_argument("--train", metavar="TRAIN", help="normal population (default: the model's recorded training file)")
+    add_table_opts(a)
+    add_common(a)
+
+    a = actions.add_parser("list", help="one line per reviewed case", epilog=caution)
+    a.add_argument("book", metavar="BOOK")
+    add_common(a)
+
+    a = actions.add_parser("show", help="one case's entry with its evidence", epilog=caution)
+    a.add_argument("book", metavar="BOOK")
+    a.add_argument("case_id", metavar="ID")
+    add_common(a)
+
+    a = actions.add_parser("report", help="incident-review report (Markdown, or one self-contained HTML file)",
+                           epilog=caution)
+    a.add_argument("book", metavar="BOOK")
+    a.add_argument("--format", choices=("md", "html"), help="md or html (default: from --out's extension, else md)")
+    a.add_argument("--out", metavar="FILE", help="write the report here (default: stdout)")
+    a.add_argument("--title", help="report title (default: from the book's file name)")
+    add_common(a)
+
+    a = actions.add_parser("check", help="re-score the book's cases with a model; exit 1 if an explained case "
+                                         "is no longer flagged", epilog=caution)
+    a.add_argument("book", metavar="BOOK")
+    a.add_argument("--model", required=True, metavar="MODEL")
+    a.add_argument("--cases", required=True, metavar="CASES",
+                   help="table holding the cases (a case missing from it is scored from its stored snapshot)")
+    add_table_opts(a)
+    add_common(a)
+    return {"casebook": run}
+
+
+def run(args) -> int:
+    action = getattr(args, "casebook_action", None)
+    if not action:
+        raise AfterlookError(f"afterlook casebook: give an action: {', '.join(ACTIONS)} "
+                             "(see 'afterlook casebook --help')")
+    return {"add": run_add, "list": run_list, "show": run_show, "report": run_report, "check": run_check}[action](args)
+
+
+def _emit_json(doc) -> None:
+    sys.stdout.write(json.dumps(doc, indent=2, allow_nan=False) + "\n")
+
+
+def _warn(messages) -> None:
+    for m in messages:
+        print(f"afterlook: warning: {m}", file=sys.stderr)
+
+
+def _fmt(x) -> str:
+    from .render import fmt
+
+    return fmt(None if x is None else float(x), 2)
+
+
+# --------------------------------------------------------------------------
+# add
+# --------------------------------------------------------------------------
+
+
+def run_add(args) -> int:
+    from .. import api
+    from ..casebook import add_to_casebook
+    from ..core.recipe import parse_assignment
+    from ..store.casebook import Casebook, check_status
+
+    check_status(args.status)
+    pairs = [parse_assignment(d, "--derive") for d in args.derive]
+    existing = Casebook.open(args.book, create=True)  # refuse a bad book before the (slower) review
+    previous = existing.entries.get(str(args.case))
+    model = api.load_model(args.model)
+    cases = api.load_table(args.cases, id_col=args.id_col, label_col=args.label_col)
+    train = api.load_table(args.train, id_col=args.id_col, label_col=args.label_col) if args.train else None
+    entry = add_to_casebook(args.book, model, cases, args.case, args.status, derive=pairs or None, note=args.note,
+                            reviewer=args.reviewer, train=train, model_path=args.model)
+    _warn(entry.get("warnings") or [])
+    final = entry.get("after") or entry.get("before") or {}
+    if entry["status"] == "explained" and not final.get("flagged"):
+        _warn([f"case {entry['case']} is marked explained but the {'re-fitted' if entry.get('after') else 'given'} "
+               "model does not flag it; 'casebook check' will report it as regressed"])
+    if args.json:
+        _emit_json(entry)
+        return EXIT_OK
+    from . import render
+
+    out = render.console()
+    how = "added" if previous is None else f"updated (was {previous.get('status')})"
+    out.print(f"{how} case {entry['case']} as {entry['status']} in {args.book}", markup=False)
+    out.print(_score_words(entry), markup=False)
+    return EXIT_OK
+
+
+def _score_words(entry: dict) -> str:
+    b, a = entry.get("before") or {}, entry.get("after")
+    text = f"before: log-density {_fmt(b.get('log_density'))} vs threshold {_fmt(b.get('threshold'))} " \
+           f"({'flagged' if b.get('flagged') else 'unflagged'})"
+    if a:
+        d = entry.get("derived_feature") or {}
+        text += (f"; after adding {d.get('name')}: {_fmt(a.get('log_density'))} vs {_fmt(a.get('threshold'))} "
+                 f"({'flagged' if a.get('flagged') else 'unflagged'})")
+    return text
+
+
+# --------------------------------------------------------------------------
+# list / show
+# --------------------------------------------------------------------------
+
+
+def run_list(args) -> int:
+    from ..store.casebook import Casebook
+
+    book = Casebook.open(args.book, create=False)
+    entries = [book.entries[k] for k in sorted(book.entries)]
+    if args.json:
+        _emit_json({"book": args.book, "entries": [_list_row(e) for e in entries]})
+        return EXIT_OK
+    from rich import box
+    from rich.table import Table
+    from rich.text import Text
+
+    from . import render
+
+    out = render.console()
+    table = Table(box=box.SIMPLE_HEAD, show_edge=False, pad_edge=False,
+                  caption="log-density vs threshold: '<' flagged, '>=' unflagged", caption_justify="left")
+    table.add_column("case", no_wrap=True)
+    table.add_column("status", min_width=8)
+    table.add_column("deciding feature", overflow="fold", min_width=8)
+    table.add_column("before", min_width=8)
+    table.add_column("after", min_width=8)
+    table.add_column("reviewer", overflow="fold", min_width=6)
+    table.add_column("updated", min_width=10)
+    for e in entries:
+        row = _list_row(e)
+        table.add_row(Text(row["case"]), Text(row["status"], style=_STATUS_STYLE.get(row["status"], "")),
+                      Text(row["deciding_feature"] or "n/a"), Text(_versus(e.get("before"))),
+                      Text(_versus(e.get("after"))), Text(row["reviewer"] or ""), Text(row["updated"] or ""))
+    out.print(Text(f"{args.book}: {len(entries)} reviewed case(s)"))
+    out.print(table)
+    return EXIT_OK
+
+
+_STATUS_STYLE = {"explained": "green", "needs-signal": "yellow", "label-disputed": "magenta",
+                 "accepted-risk": "red", "open": "dim"}
+
+
+def _list_row(e: dict) -> dict:
+    b, a = e.get("before") or {}, e.get("after") or {}
+    return {
+        "case": e.get("case"),
+        "status": e.get("status"),
+        "deciding_feature": (e.get("deciding_feature") or {}).get("name"),
+        "derived_feature": e.get("derived_feature"),
+        "before": {"log_density": b.get("log_density"), "threshold": b.get("threshold"), "flagged": b.get("flagged")},
+        "after": None if not a else {"log_density": a.get("log_density"), "threshold": a.get("threshold"),
+                                     "flagged": a.get("flagged")},
+        "reviewer": e.get("reviewer"),
+        "updated": e.get("updated"),
+    }
+
+
+def _versus(part: dict | None) -> str:
+    """``log_density < threshold`` when flagged, ``>=`` when not (n/a without a score)."""
+    if not part:
+        return "n/a"
+    sign = "<" if part.get("flagged") else ">="
+    return f"{_fmt(part.get('log_density'))} {sign} {_fmt(part.get('threshold'))}"
+
+
+def run_show(args) -> int:
+    from ..store.casebook import Casebook
+
+    book = Casebook.open(args.book, create=False)
+    entry = book.get(args.case_id)
+    if args.json:
+        _emit_json(entry)
+        return EXIT_OK
+    from rich.markdown import Markdown
+
+    from .. import report
+    from . import render
+
+    render.console().print(Markdown(report.render_entry_markdown(entry)))
+    return EXIT_OK
+
+
+# --------------------------------------------------------------------------
+# report
+# --------------------------------------------------------------------------
+
+
+def run_report(args) -> int:
+    from .. import report
+    from ..store.casebook import Casebook, write_bytes_atomic
+
+    fmt = args.format
+    if fmt is None:
+        fmt = "html" if args.out and Path(args.out).suffix.lower() in (".html", ".htm") else "md"
+    book = Casebook.open(args.book, create=False)
+    if args.out:
+        _refuse_overwriting_a_book(Path(args.out), book.path)
+    text = (report.render_html if fmt == "html" else report.render_markdown)(book, title=args.title)
+    if args.out:
+        write_bytes_atomic(args.out, text.encode("utf-8"))
+    if args.json:
+        doc = {"book": args.book, "format": fmt, "out": args.out, "entries": len(book.entries)}
+        if not args.out:
+            doc["report"] = text
+        _emit_json(doc)
+        return EXIT_OK
+    if args.out:
+        print(f"wrote {args.out} ({fmt}, {len(book.entries)} case(s))")
+    else:
+        sys.stdout.write(text)
+    return EXIT_OK
+
+
+def _refuse_overwriting_a_book(out: Path, book: Path) -> None:
+    """A report must never replace a casebook (this one, its backup, or any other), nor a model file."""
+    from ..store.casebook import FORMAT, backup_path
+
+    for protected in (book, backup_path(book)):
+        if out.exists() and protected.exists() and os.path.samefile(out, protected):
+            raise AfterlookError(f"--out {out} is the casebook (or its backup) itself; choose another file")
+    if out.is_file():
+        try:
+            doc = json.loads(out.read_bytes().decode("utf-8"))
+        except (OSError, ValueError):
+            return  # not JSON (or unreadable; the write will say so): not a casebook
+        kind = doc.get("format") if isinstance(doc, dict) else None
+        if kind == FORMAT:
+            raise AfterlookError(f"--out {out} is an afterlook casebook; a report will not overwrite it")
+        if isinstance(kind, str) and kind.startswith("afterlook-"):
+            raise AfterlookError(f"--out {out} is an afterlook file ({kind}); a report will not overwrite it")
+
+
+# --------------------------------------------------------------------------
+# check
+# --------------------------------------------------------------------------
+
+
+def run_check(args) -> int:
+    from .. import api
+    from ..casebook import check_casebook
+    from ..store.casebook import Casebook
+
+    book = Casebook.open(args.book, create=False)
+    model = api.load_model(args.model)
+    cases = api.load_table(args.cases, id_col=args.id_col, label_col=args.label_col)
+    result = check_casebook(book, model, cases)
+    _warn(cases.warnings)
+    code = EXIT_OK if result.ok else EXIT_CHECK_FAILED
+    if args.json:
+        _emit_json(result.to_dict())
+        return code
+    from rich import box
+    from rich.table import Table
+    from rich.text import Text
+
+    from . import render
+
+    out = render.console()
+    out.print(render.model_line(model, args.model))
+    table = Table(box=box.SIMPLE_HEAD, show_edge=False, pad_edge=False)
+    for name, justify in (("case", "left"), ("status", "left"), ("log-density", "right"), ("threshold", "right"),
+                          ("now", "left"), ("verdict", "left")):
+        table.add_column(name, justify=justify, no_wrap=name == "case", min_width=6)
+    for d in result.details:
+        verdict = Text("regressed", style="bold red") if d["regressed"] else Text("ok", style="green")
+        where = " (from snapshot)" if d["source"] == "snapshot" else ""
+        table.add_row(Text(d["case"]), Text(str(d["status"])), _fmt(d["log_density"]), _fmt(d["threshold"]),
+                      Text(("flagged" if d["flagged"] else "unflagged") + where), verdict)
+    out.print(table)
+    if result.ok:
+        out.print(f"ok: {result.entries} case(s) checked, no explained case regressed")
+    else:
+        out.print(f"regressed: {len(result.regressed)} explained case(s) no longer flagged: "
+                  + ", ".join(result.regressed), style="bold red", markup=False)
+    return code

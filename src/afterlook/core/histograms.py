@@ -1,0 +1,187 @@
+"""Histogram counts for one feature: a normal population, one case, other anomalies.
+
+The workbench draws the normal population of a feature (or of a candidate
+derived feature) as bars, marks the case under review and shows the other
+labelled anomalies on the *same* bins, so the eye can judge whether the case
+and its fellow failures stand apart from normal operation.
+
+Bins
+----
+The bins are ``bins`` equal-width intervals over the normal values between
+their ``tail`` and ``1 - tail`` quantiles, widened to include the case value
+when it lies outside. Quantiles rather than the extremes keep one stray
+reading from squashing the whole population into a few bins; the normal
+values left outside are counted (``normal_below`` / ``normal_above``), never
+dropped silently. Widening to the case keeps the case on the picture even
+when it is far out, which is the point of the view. Interval convention as
+:func:`numpy.histogram`: ``[e_k, e_{k+1})`` except the last bin, which is
+closed on the right.
+
+Heights
+-------
+:func:`bar_heights` maps counts to bar heights in eighths of a character
+cell (the terminal's eighth-block glyphs), scaled to the tallest bin; a
+non-empty bin is at least one eighth tall so a sparse tail never vanishes.
+
+Pure numpy; no files, no UI.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from .errors import AfterlookError
+
+#: Share of the normal values left out at each end when placing the bins.
+DEFAULT_TAIL = 0.001
+#: Eighth-block glyphs give eight steps per character cell.
+STEPS_PER_CELL = 8
+
+__all__ = ["DEFAULT_TAIL", "STEPS_PER_CELL", "HistogramCounts", "shared_edges", "histogram_counts", "bar_heights"]
+
+
+@dataclass(frozen=True)
+class HistogramCounts:
+    """Counts of a normal population, one case and other anomalies on shared bins.
+
+    Attributes
+    ----------
+    edges : ndarray, shape (bins + 1,)
+        Bin edges, increasing.
+    normal : ndarray of int, shape (bins,)
+        Normal values per bin.
+    normal_below, normal_above : int
+        Finite normal values left of ``edges[0]`` / right of ``edges[-1]``.
+    normal_nonfinite : int
+        Normal values that were NaN or infinite (not counted anywhere else).
+    case_value : float
+        The case's value (NaN when it has none).
+    case_bin : int
+        Bin holding the case, or -1 when the case value is not finite.
+    others : ndarray of int, shape (bins,)
+        Other labelled anomalies per bin.
+    others_below, others_above, others_nonfinite : int
+        Other anomalies left of, right of the bins, or not finite.
+    """
+
+    edges: np.ndarray
+    normal: np.ndarray
+    normal_below: int
+    normal_above: int
+    normal_nonfinite: int
+    case_value: float
+    case_bin: int
+    others: np.ndarray
+    others_below: int
+    others_above: int
+    others_nonfinite: int
+
+    @property
+    def bins(self) -> int:
+        return int(self.normal.size)
+
+    @property
+    def n_normal(self) -> int:
+        """Finite normal values (inside the bins or beside them)."""
+        return int(self.normal.sum()) + self.normal_below + self.normal_above
+
+    @property
+    def n_others(self) -> int:
+        """Finite other anomalies (inside the bins or beside them)."""
+        return int(self.others.sum()) + self.others_below + self.others_above
+
+
+def _finite(values) -> tuple[np.ndarray, int]:
+    x = np.asarray(values, dtype=np.float64).ravel()
+    ok = np.isfinite(x)
+    return x[ok], int((~ok).sum())
+
+
+def shared_edges(normal, case_value: float, bins: int, tail: float = DEFAULT_TAIL) -> np.ndarray:
+    """Bin edges over the normal values' ``[tail, 1 - tail]`` quantiles, widened to the case.
+
+    Parameters
+    ----------
+    normal : array_like, shape (n,)
+        Normal values (NaN and infinite values are ignored).
+    case_value : float
+        The case; the range is widened to include it when finite.
+    bins : int
+        Number of bins (>= 1).
+    tail : float
+        Quantile left out at each end, ``0 <= tail < 0.5``.
+
+    Returns
+    -------
+    ndarray, shape (bins + 1,)
+        ``numpy.linspace`` edges. A zero-width range (a constant column) is
+        widened symmetrically so that the bins still have positive width.
+    """
+    if int(bins) < 1:
+        raise AfterlookError(f"a histogram needs at least one bin, got {bins}")
+    if not 0.0 <= tail < 0.5:
+        raise AfterlookError(f"histogram tail must lie in [0, 0.5), got {tail}")
+    x, _ = _finite(normal)
+    if x.size == 0:
+        raise AfterlookError("no finite normal values to draw a histogram of")
+    lo, hi = (float(v) for v in np.quantile(x, [tail, 1.0 - tail]))
+    if np.isfinite(case_value):
+        lo, hi = min(lo, float(case_value)), max(hi, float(case_value))
+    if hi <= lo:
+        half = max(abs(lo) * 0.01, 0.5)
+        lo, hi = lo - half, hi + half
+    return np.linspace(lo, hi, int(bins) + 1)
+
+
+def _count(x: np.ndarray, edges: np.ndarray) -> tuple[np.ndarray, int, int]:
+    below = int((x < edges[0]).sum())
+    above = int((x > edges[-1]).sum())
+    inside = x[(x >= edges[0]) & (x <= edges[-1])]
+    counts, _ = np.histogram(inside, bins=edges)
+    return counts.astype(np.int64), below, above
+
+
+def histogram_counts(normal, case_value: float, others=(), *, bins: int = 40,
+                     tail: float = DEFAULT_TAIL) -> HistogramCounts:
+    """Count the normal values and the other anomalies on :func:`shared_edges`.
+
+    Parameters
+    ----------
+    normal : array_like, shape (n,)
+    case_value : float
+    others : array_like, shape (m,)
+        Values of the other labelled anomalies (the case itself excluded).
+    bins, tail : see :func:`shared_edges`.
+    """
+    edges = shared_edges(normal, case_value, bins, tail)
+    x, normal_nonfinite = _finite(normal)
+    o, others_nonfinite = _finite(others)
+    normal_counts, n_below, n_above = _count(x, edges)
+    other_counts, o_below, o_above = _count(o, edges)
+    case_value = float(case_value)
+    if np.isfinite(case_value):
+        # searchsorted(side="right") - 1 is numpy.histogram's [e_k, e_k+1) rule;
+        # the right edge belongs to the last bin.
+        case_bin = int(min(np.searchsorted(edges, case_value, side="right") - 1, edges.size - 2))
+    else:
+        case_bin = -1
+    return HistogramCounts(edges, normal_counts, n_below, n_above, normal_nonfinite, case_value, case_bin,
+                           other_counts, o_below, o_above, others_nonfinite)
+
+
+def bar_heights(counts, rows: int, steps: int = STEPS_PER_CELL) -> np.ndarray:
+    """Bar heights in ``1/steps`` of a cell for ``rows`` rows, scaled to the tallest bin.
+
+    ``height_k = round(counts_k / max(counts) * rows * steps)``, at least 1
+    for a non-empty bin, 0 for an empty one; all zeros when every bin is empty.
+    """
+    if int(rows) < 1 or int(steps) < 1:
+        raise AfterlookError("bar heights need at least one row and one step per row")
+    c = np.asarray(counts, dtype=np.float64)
+    if c.size == 0 or c.max() <= 0:
+        return np.zeros(c.shape, dtype=np.int64)
+    full = int(rows) * int(steps)
+    h = np.rint(c / c.max() * full).astype(np.int64)
+    return np.where(c > 0, np.maximum(h, 1), 0)

@@ -1,0 +1,85 @@
+"""Atomic file writes: the one place afterlook replaces a file on disk.
+
+Temp file in the same folder (mode 0666 minus the umask, or the mode of the
+file it replaces), write, fsync, ``os.replace``, fsync the folder. A reader
+never sees half a file, and a crash leaves either the old or the new bytes.
+A failed write raises :class:`AfterlookError` and leaves the old file alone.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import os
+import secrets
+import stat
+from pathlib import Path
+
+from ..core.errors import AfterlookError
+
+
+def write_bytes_atomic(path: str | os.PathLike, data: bytes) -> None:
+    """Write ``data`` to ``path`` atomically (see :func:`_write_atomic`)."""
+    p = Path(path)
+    folder = p.parent if str(p.parent) else Path(".")
+    if p.is_dir():
+        raise AfterlookError(f"cannot write {p}: it is a folder")
+    if not folder.is_dir():
+        raise AfterlookError(f"cannot write {p}: folder '{folder}' does not exist")
+    _write_atomic(p, data)
+
+
+def _write_atomic(p: Path, data: bytes, *, mode_of: Path | None = None) -> None:
+    """Temp file in the same folder, fsync, ``os.replace``, fsync the folder.
+
+    Exact bytes (the casebook's SHA-256 is its conflict check), the folder
+    fsync and the file's permissions kept: the temp file is created
+    with mode 0666 minus the umask, like any new file, and takes the mode of
+    ``mode_of`` (default: the file it replaces) when that exists, so a book
+    shared with a team stays readable by it.
+    """
+    folder = p.parent if str(p.parent) else Path(".")
+    tmp = None
+    try:
+        fd = None
+        for _ in range(100):
+            tmp = folder / f".{p.name}.{secrets.token_hex(6)}.tmp"
+            try:
+                fd = os.open(tmp, os.O_WRONLY | os.O_CREAT | os.O_EXCL | getattr(os, "O_BINARY", 0), 0o666)
+                break
+            except FileExistsError:
+                continue
+        if fd is None:  # pragma: no cover - 100 random names all taken
+            raise OSError(17, "could not create a temp file")
+    except OSError as exc:
+        raise AfterlookError(f"cannot write {p}: {exc.strerror or exc}") from None
+    try:
+        with os.fdopen(fd, "wb") as fh:
+            fh.write(data)
+            fh.flush()
+            os.fsync(fh.fileno())
+        source = mode_of if mode_of is not None else p
+        try:
+            os.chmod(tmp, stat.S_IMODE(os.stat(source).st_mode))
+        except FileNotFoundError:
+            pass  # a new file: 0666 minus the umask, as created
+        os.replace(tmp, p)
+    except OSError as exc:
+        with contextlib.suppress(OSError):
+            os.unlink(tmp)
+        raise AfterlookError(f"cannot write {p}: {exc.strerror or exc}; the previous file is unchanged") from None
+    _fsync_folder(folder)
+
+
+def _fsync_folder(folder: Path) -> None:
+    try:
+        fd = os.open(folder, os.O_RDONLY)
+    except OSError:  # pragma: no cover - e.g. platforms that cannot open a folder
+        return
+    try:
+        os.fsync(fd)
+    except OSError:  # pragma: no cover - some filesystems refuse fsync on a folder
+        pass
+    finally:
+        os.close(fd)
+
+

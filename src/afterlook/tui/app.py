@@ -1,0 +1,569 @@
+"""The workbench App: owns the state, runs the slow work in workers, tells the widgets what to show.
+
+State lives here and only here (the selected case, toggles, candidates per
+case, the last try, the casebook's case ids). Widgets post messages up
+(:mod:`afterlook.tui.messages`); the App answers by calling their ``show``
+methods or setting their attributes. Slow work (the candidate search, a
+re-fit, histogram counts, casebook reads and writes) runs in
+``@work(thread=True, exclusive=True)`` workers, one group per kind, so a new
+request cancels the stale one; a cancelled worker's result is dropped.
+
+Every number comes from :mod:`afterlook.workbench_data` or the API; the
+widgets only format it.
+"""
+
+from __future__ import annotations
+
+import os
+
+from textual import on, work
+from textual.app import App
+from textual.binding import Binding
+from textual.theme import Theme
+from textual.widgets import TabbedContent
+from textual.worker import get_current_worker
+
+from .. import workbench_data as wd
+from ..core.errors import AfterlookError
+from . import messages as msg
+from .screens.help import HelpScreen
+from .screens.save_case import SaveCaseScreen, SaveRequest
+from .screens.workbench import WorkbenchScreen
+from .widgets.candidates import CandidatesPanel
+from .widgets.case_list import CaseList, context_widths
+from .widgets.evidence import EvidencePanel
+from .widgets.histogram import HistogramPanel
+from .widgets.status_line import StatusLine
+from .widgets.try_panel import TryPanel
+
+#: Our own palette: copper and teal on a dark slate.
+THEME = Theme(
+    name="afterlook",
+    primary="#C9853A",
+    secondary="#3F8F8A",
+    accent="#D9B44A",
+    warning="#D9A441",
+    error="#D2584F",
+    success="#6BAF72",
+    foreground="#E4E1D8",
+    background="#15171C",
+    surface="#1C1F26",
+    panel="#262A33",
+    dark=True,
+)
+
+#: Seconds the cursor must rest on a miss before its candidate search starts.
+CANDIDATE_DELAY = 0.4
+
+
+class _Stale(Exception):
+    """Raised inside a worker's progress callback once the worker was cancelled."""
+
+
+class WorkbenchApp(App[int]):
+    CSS_PATH = "app.tcss"
+    TITLE = "afterlook"
+    ENABLE_COMMAND_PALETTE = False
+    BINDINGS = [Binding("ctrl+q", "quit", "quit", show=False, priority=True)]
+
+    def __init__(self, session: wd.Session, *, auto_candidates: bool = True,
+                 candidate_delay: float = CANDIDATE_DELAY, candidates_top: int = 10) -> None:
+        super().__init__()
+        self.session = session
+        self.auto_candidates = auto_candidates
+        self.candidate_delay = candidate_delay
+        self.candidates_top = candidates_top
+        self.summary = wd.status_summary(session)
+        self.counts = wd.case_counts(session)
+        self.context_columns = context_widths(session.cases.frame, session.cases.context_columns)
+        # case list
+        self.show_near = False
+        self.show_false_alarms = False
+        self.filter_text = ""
+        self.rows: list[wd.CaseRow] = []
+        self.selected_case: str | None = None
+        self.evidence: wd.EvidenceView | None = None
+        self.feature: str | None = None
+        # candidates, per case
+        self.candidates: dict[str, object] = {}
+        self.candidates_running: str | None = None
+        self.candidate_index = 0
+        self._candidate_timer = None
+        # histogram
+        self.hist_source: wd.HistogramSource | None = None
+        self.hist_shaped = False
+        self.hist_bins = 60
+        self.histogram: wd.HistogramView | None = None
+        # the last try
+        self.trial = None
+        self.trial_view: wd.TrialView | None = None
+        self.trial_case: str | None = None
+        self.trial_label = ""
+        self.trial_running: str | None = None
+        # casebook
+        self.book_ids: set[str] = set()
+        self.book_loaded = False
+        self.saving = False
+        self.zoomed = False
+        self.register_theme(THEME)
+        self.theme = "afterlook"
+
+    def get_default_screen(self) -> WorkbenchScreen:
+        # the case column fits the longest id, within reason (formatting, not statistics)
+        case_width = min(max([len(str(c)) for c in self.session.ids] + [4]), 28)
+        self.workbench = WorkbenchScreen(self.context_columns, case_width, id="workbench")
+        return self.workbench
+
+    # -- widgets (found on the workbench screen even under a modal) -----------
+    @property
+    def case_list(self) -> CaseList:
+        return self.workbench.query_one(CaseList)
+
+    @property
+    def evidence_panel(self) -> EvidencePanel:
+        return self.workbench.query_one(EvidencePanel)
+
+    @property
+    def candidates_panel(self) -> CandidatesPanel:
+        return self.workbench.query_one(CandidatesPanel)
+
+    @property
+    def histogram_panel(self) -> HistogramPanel:
+        return self.workbench.query_one(HistogramPanel)
+
+    @property
+    def try_panel(self) -> TryPanel:
+        return self.workbench.query_one(TryPanel)
+
+    @property
+    def tabs(self) -> TabbedContent:
+        return self.workbench.query_one(TabbedContent)
+
+    # -- start ----------------------------------------------------------------
+    def on_workbench_ready(self, _: msg.WorkbenchReady) -> None:
+        self.workbench.query_one(StatusLine).summary = self.summary
+        self.try_panel.set_expression_status(
+            None, "columns: " + ", ".join(self.session.cases.numeric_columns + self.session.model.recipe.derived_names))
+        self.refresh_cases()
+        self.case_list.focus_table()
+        self.load_casebook()
+
+    def refresh_cases(self) -> None:
+        self.rows = wd.case_rows(self.session, near=self.show_near, false_alarms=self.show_false_alarms,
+                                 text=self.filter_text)
+        landed = self.case_list.show(
+            self.rows, selected=self.selected_case, book=self.book_ids, flips=self._flips(), counts=self.counts,
+            near=self.show_near, false_alarms=self.show_false_alarms, filter_text=self.filter_text)
+        if landed is not None and landed != self.selected_case:
+            self.select_case(landed)
+
+    def _flips(self) -> dict[str, str]:
+        v = self.trial_view
+        if v is None:
+            return {}
+        return {c.case: c.words for c in v.now_flagged + v.no_longer_flagged}
+
+    def _kind(self, case_id: str | None) -> str | None:
+        return next((r.kind for r in self.rows if r.case == case_id), None)
+
+    # -- selecting a case --------------------------------------------------------
+    def on_case_highlighted(self, message: msg.CaseHighlighted) -> None:
+        self.select_case(message.case_id)
+
+    def select_case(self, case_id: str | None) -> None:
+        if case_id is None or case_id == self.selected_case:
+            return
+        self.selected_case = case_id
+        try:
+            self.evidence = wd.case_evidence(self.session, case_id)
+        except AfterlookError as exc:
+            self.notify(exc.message, title="evidence", severity="error")
+        else:
+            self.evidence_panel.show(self.evidence)
+            if self.feature not in [r.name for r in self.evidence.rows]:
+                self.feature = self.evidence.rows[0].name if self.evidence.rows else None
+        self.candidate_index = 0
+        self._show_candidates_state()
+        if self._candidate_timer is not None:
+            self._candidate_timer.stop()
+            self._candidate_timer = None
+        if (self.auto_candidates and self._kind(case_id) == wd.KIND_MISS and case_id not in self.candidates
+                and self.candidates_running != case_id):
+            self._candidate_timer = self.set_timer(self.candidate_delay, lambda: self.start_candidates(case_id))
+        if self.tabs.active == "histogram":
+            self.request_histogram()
+
+    # -- filter and toggles -------------------------------------------------------
+    def on_filter_changed(self, message: msg.FilterChanged) -> None:
+        self.filter_text = message.text
+        self.refresh_cases()
+
+    def action_filter(self) -> None:
+        if self.zoomed:
+            self.action_zoom()
+        self.case_list.focus_filter()
+
+    def action_leave_input(self) -> None:
+        if self.zoomed:
+            self.action_zoom()
+        self.case_list.focus_table()
+
+    def action_toggle_near(self) -> None:
+        self.show_near = not self.show_near
+        self.refresh_cases()
+
+    def action_toggle_false_alarms(self) -> None:
+        self.show_false_alarms = not self.show_false_alarms
+        self.refresh_cases()
+
+    def action_zoom(self) -> None:
+        self.zoomed = not self.zoomed
+        self.workbench.set_class(self.zoomed, "-zoomed")
+        if not self.zoomed:
+            self.case_list.focus_table()
+
+    def action_show_tab(self, tab: str) -> None:
+        self.tabs.active = tab
+        if tab == "histogram":
+            self._ensure_histogram()
+
+    @on(TabbedContent.TabActivated)
+    def _tab_activated(self, event: TabbedContent.TabActivated) -> None:
+        if event.pane.id == "histogram":
+            self._ensure_histogram()
+
+    def action_help(self) -> None:
+        self.push_screen(HelpScreen())
+
+    def action_quit(self) -> None:
+        self.exit(0)
+
+    # -- evidence -------------------------------------------------------------------
+    def on_feature_highlighted(self, message: msg.FeatureHighlighted) -> None:
+        self.feature = message.name
+
+    # -- candidates ---------------------------------------------------------------
+    def _show_candidates_state(self) -> None:
+        case = self.selected_case
+        panel = self.candidates_panel
+        if case in self.candidates:
+            panel.show(case, self.candidates[case])
+        elif self.candidates_running == case:
+            panel.running(case)
+        elif self.auto_candidates and self._kind(case) == wd.KIND_MISS:
+            panel.idle(case, f"the candidate search for {case} starts when the cursor rests here (or press c)")
+        else:
+            panel.idle(case, f"press c to search candidates for {case}")
+
+    def action_candidates(self) -> None:
+        self.tabs.active = "candidates"
+        case = self.selected_case
+        if case is not None and case not in self.candidates and self.candidates_running != case:
+            if self._candidate_timer is not None:
+                self._candidate_timer.stop()
+                self._candidate_timer = None
+            self.start_candidates(case)
+        self.candidates_panel.focus_table()
+
+    def start_candidates(self, case_id: str) -> None:
+        self._candidate_timer = None
+        if case_id != self.selected_case or case_id in self.candidates:
+            return
+        self.candidates_running = case_id
+        self.candidates_panel.running(case_id)
+        self.run_candidates(case_id)
+
+    @work(thread=True, exclusive=True, group="candidates")
+    def run_candidates(self, case_id: str) -> None:
+        worker = get_current_worker()
+
+        def progress(stage: str, fraction: float) -> None:
+            if worker.is_cancelled:
+                raise _Stale()
+            self.post_message(msg.CandidatesProgress(case_id, stage, fraction))
+
+        try:
+            result = wd.find_candidates(self.session, case_id, top=self.candidates_top, progress=progress)
+        except _Stale:
+            return
+        except AfterlookError as exc:
+            if not worker.is_cancelled:
+                self.post_message(msg.WorkFailed("candidates", exc.message, case_id))
+            return
+        except Exception as exc:  # a bug, not bad input: say so, keep the workbench alive
+            self.post_message(msg.WorkFailed("candidates", _internal(exc), case_id))
+            return
+        if not worker.is_cancelled:
+            self.post_message(msg.CandidatesReady(case_id, result))
+
+    def on_candidates_progress(self, message: msg.CandidatesProgress) -> None:
+        if message.case_id == self.candidates_running == self.selected_case:
+            self.candidates_panel.progress(message.stage, message.fraction)
+
+    def on_candidates_ready(self, message: msg.CandidatesReady) -> None:
+        self.candidates[message.case_id] = message.result
+        if self.candidates_running == message.case_id:
+            self.candidates_running = None
+        if message.case_id == self.selected_case:
+            self.candidate_index = 0
+            self.candidates_panel.show(message.case_id, message.result)
+
+    def on_candidate_highlighted(self, message: msg.CandidateHighlighted) -> None:
+        self.candidate_index = message.index
+
+    def on_candidate_chosen(self, message: msg.CandidateChosen) -> None:
+        self.candidate_index = message.index
+        self.action_apply_candidate()
+
+    def action_apply_candidate(self) -> None:
+        case = self.selected_case
+        result = self.candidates.get(case)
+        if result is None:
+            self.notify(f"no candidates for {case} yet: press c and wait for the search", title="apply",
+                        severity="warning")
+            return
+        if not result.candidates:
+            self.notify("the search found no candidate to apply", title="apply", severity="warning")
+            return
+        index = self.candidate_index if 0 <= self.candidate_index < len(result.candidates) else 0
+        c = result.candidates[index]
+        self.start_trial({c.name: c.expression}, f"{c.name} = {c.expression}")
+
+    # -- try --------------------------------------------------------------------------
+    def action_type_expression(self) -> None:
+        self.tabs.active = "try"
+        self.try_panel.focus_expression()
+
+    def _check(self, text: str) -> tuple[str, str]:
+        return wd.check_expression(self.session, text)
+
+    def on_expression_edited(self, message: msg.ExpressionEdited) -> None:
+        if not message.text.strip():
+            self.try_panel.set_expression_status(None, "type NAME = EXPR or EXPR; enter tries it")
+            return
+        try:
+            name, expr = self._check(message.text)
+        except AfterlookError as exc:
+            self.try_panel.set_expression_status(False, exc.message)
+        else:
+            self.try_panel.set_expression_status(True, f"enter re-fits with {name} = {expr}")
+
+    def on_expression_submitted(self, message: msg.ExpressionSubmitted) -> None:
+        try:
+            name, expr = self._check(message.text)
+        except AfterlookError as exc:
+            self.try_panel.set_expression_status(False, exc.message)
+            self.bell()
+            return
+        self.start_trial({name: expr}, f"{name} = {expr}")
+
+    def start_trial(self, derive: dict[str, str], label: str) -> None:
+        case = self.selected_case
+        if case is None:
+            return
+        self.trial_running = label
+        self.tabs.active = "try"
+        self.try_panel.running(label)
+        self.run_trial(case, derive, label)
+
+    @work(thread=True, exclusive=True, group="trial")
+    def run_trial(self, case_id: str, derive: dict[str, str], label: str) -> None:
+        worker = get_current_worker()
+        try:
+            result = wd.try_candidate(self.session, derive, focus=[case_id])
+            view = wd.trial_view(result, case_id)
+        except AfterlookError as exc:
+            if not worker.is_cancelled:
+                self.post_message(msg.WorkFailed("try", exc.message, case_id))
+            return
+        except Exception as exc:
+            self.post_message(msg.WorkFailed("try", _internal(exc), case_id))
+            return
+        if not worker.is_cancelled:
+            self.post_message(msg.TrialReady(case_id, label, result, view))
+
+    def on_trial_ready(self, message: msg.TrialReady) -> None:
+        if message.label != self.trial_running:
+            return  # a newer try was asked for
+        self.trial_running = None
+        self.trial, self.trial_view = message.result, message.view
+        self.trial_case, self.trial_label = message.case_id, message.label
+        self.try_panel.show(message.view)
+        self.refresh_cases()
+        c = message.view.case
+        if c is not None:
+            self.notify(f"{c.case}: {c.words}; misses caught {message.view.misses_caught}, false alarms added "
+                        f"{message.view.false_alarms_added:+d}", title="try")
+
+    # -- histogram ---------------------------------------------------------------------
+    def action_histogram(self) -> None:
+        source = None
+        result = self.candidates.get(self.selected_case)
+        focused = self.focused
+        in_candidates = focused is not None and self.candidates_panel in focused.ancestors_with_self
+        if in_candidates and result is not None and result.candidates:
+            c = result.candidates[min(self.candidate_index, len(result.candidates) - 1)]
+            source = wd.HistogramSource("candidate", c.name, c.expression)
+        elif self.feature is not None:
+            source = wd.HistogramSource("feature", self.feature)
+        if source is not None:
+            self.hist_source = source
+        self.tabs.active = "histogram"
+        self.request_histogram()
+
+    def action_toggle_shaped(self) -> None:
+        self.hist_shaped = not self.hist_shaped
+        self.tabs.active = "histogram"
+        self.request_histogram()
+
+    def action_histogram_step(self, step: int) -> None:
+        sources = wd.histogram_sources(self.session, self.candidates.get(self.selected_case))
+        here = sources.index(self.hist_source) if self.hist_source in sources else -1
+        self.hist_source = sources[(here + step) % len(sources)]
+        self.tabs.active = "histogram"
+        self.request_histogram()
+
+    def on_histogram_step(self, message: msg.HistogramStep) -> None:
+        self.action_histogram_step(message.step)
+
+    def on_histogram_shaped_toggled(self, _: msg.HistogramShapedToggled) -> None:
+        self.action_toggle_shaped()
+
+    def on_histogram_resized(self, message: msg.HistogramResized) -> None:
+        if message.bins != self.hist_bins:
+            self.hist_bins = message.bins
+            if self.tabs.active == "histogram" and self.histogram is not None:
+                self.request_histogram()
+
+    def _ensure_histogram(self) -> None:
+        h = self.histogram
+        if h is None or h.case != self.selected_case or h.source != self.hist_source or h.shaped != self.hist_shaped:
+            self.request_histogram()
+
+    def request_histogram(self) -> None:
+        case = self.selected_case
+        if case is None:
+            return
+        if self.hist_source is None:
+            self.hist_source = wd.HistogramSource("feature", self.feature or self.session.model.features[0])
+        self.histogram_panel.loading(self.hist_source.label)
+        self.run_histogram(self.hist_source, case, self.hist_shaped, self.hist_bins)
+
+    @work(thread=True, exclusive=True, group="histogram")
+    def run_histogram(self, source: wd.HistogramSource, case_id: str, shaped: bool, bins: int) -> None:
+        worker = get_current_worker()
+        try:
+            view = wd.histogram_view(self.session, source, case_id, shaped=shaped, bins=bins)
+        except AfterlookError as exc:
+            if not worker.is_cancelled:
+                self.post_message(msg.WorkFailed("histogram", exc.message, case_id))
+            return
+        except Exception as exc:
+            self.post_message(msg.WorkFailed("histogram", _internal(exc), case_id))
+            return
+        if not worker.is_cancelled:
+            self.post_message(msg.HistogramReady(view))
+
+    def on_histogram_ready(self, message: msg.HistogramReady) -> None:
+        v = message.view
+        if v.case == self.selected_case and v.source == self.hist_source and v.shaped == self.hist_shaped:
+            self.histogram = v
+            self.histogram_panel.show(v)
+
+    # -- casebook --------------------------------------------------------------------
+    @work(thread=True, exclusive=True, group="casebook-read")
+    def load_casebook(self) -> None:
+        try:
+            ids = wd.casebook_case_ids(self.session.casebook_path)
+        except AfterlookError as exc:
+            self.post_message(msg.WorkFailed("casebook", f"{exc.message}; entries are not marked"))
+            return
+        except ImportError:
+            self.post_message(msg.WorkFailed("casebook", "the casebook store is not installed in this build"))
+            return
+        except Exception as exc:
+            self.post_message(msg.WorkFailed("casebook", _internal(exc)))
+            return
+        self.post_message(msg.CasebookLoaded(ids))
+
+    def on_casebook_loaded(self, message: msg.CasebookLoaded) -> None:
+        self.book_ids = set(message.case_ids)
+        self.book_loaded = True
+        self.workbench.query_one(StatusLine).book_entries = len(self.book_ids)
+        self.refresh_cases()
+
+    def action_save_case(self) -> None:
+        case = self.selected_case
+        if case is None:
+            self.notify("select a case first", title="casebook", severity="warning")
+            return
+        if self.saving:
+            self.notify("still saving the previous entry", title="casebook", severity="warning")
+            return
+        try:
+            statuses = wd.casebook_statuses()
+        except ImportError:
+            self.notify("the casebook store is not installed in this build", title="casebook", severity="error")
+            return
+        derive = None
+        status = "open"
+        if self.trial is not None and self.trial_case == case and len(self.trial.derive) == 1:
+            derive = tuple(self.trial.derive[0])
+            c = self.trial_view.case if self.trial_view is not None else None
+            if c is not None and c.flagged_after and not c.flagged_before:
+                status = "explained"
+        screen = SaveCaseScreen(case, os.path.basename(self.session.casebook_path), statuses, status, derive,
+                                already=case in self.book_ids)
+        self.push_screen(screen, callback=lambda request: self._save_requested(case, request))
+
+    def _save_requested(self, case_id: str, request: SaveRequest | None) -> None:
+        if request is None:
+            return
+        self.saving = True
+        self.run_save(case_id, request)
+
+    @work(thread=True, exclusive=True, group="casebook")
+    def run_save(self, case_id: str, request: SaveRequest) -> None:
+        try:
+            entry = wd.save_case(self.session, case_id, request.status, note=request.note, derive=request.derive)
+        except AfterlookError as exc:
+            self.post_message(msg.WorkFailed("casebook", exc.message, case_id))
+            return
+        except Exception as exc:  # e.g. the file changed on disk since it was opened: never overwrite silently
+            self.post_message(msg.WorkFailed("casebook", _describe(exc), case_id))
+            return
+        self.post_message(msg.CasebookSaved(case_id, request.status, entry))
+
+    def on_casebook_saved(self, message: msg.CasebookSaved) -> None:
+        self.saving = False
+        self.book_ids.add(message.case_id)
+        self.workbench.query_one(StatusLine).book_entries = len(self.book_ids)
+        self.refresh_cases()
+        self.notify(f"saved {message.case_id} as {message.status} to {os.path.basename(self.session.casebook_path)}",
+                    title="casebook")
+
+    # -- failures ------------------------------------------------------------------------
+    def on_work_failed(self, message: msg.WorkFailed) -> None:
+        self.notify(message.message, title=message.what, severity="error", timeout=8)
+        if message.what == "candidates":
+            if self.candidates_running == message.case_id:
+                self.candidates_running = None
+            if message.case_id == self.selected_case:
+                self.candidates_panel.failed(message.case_id, message.message)
+        elif message.what == "try":
+            label = self.trial_running or ""
+            self.trial_running = None
+            self.try_panel.failed(label, message.message)
+        elif message.what == "histogram":
+            self.histogram_panel.failed(message.message)
+        elif message.what == "casebook":
+            self.saving = False
+
+
+def _internal(exc: Exception) -> str:
+    return f"internal error: {type(exc).__name__}: {exc} (please report it)"
+
+
+def _describe(exc: Exception) -> str:
+    text = getattr(exc, "message", None) or str(exc) or type(exc).__name__
+    return " ".join(str(text).split())

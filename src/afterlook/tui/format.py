@@ -1,0 +1,76 @@
+"""Number formatting for the workbench: text only, no arithmetic on statistics.
+
+Every number passed in comes from :mod:`afterlook.workbench_data` or the API;
+these helpers only decide how many digits to show and what to write when a
+value is missing (``n/a``), so a NaN never reaches the screen as ``nan``.
+"""
+
+from __future__ import annotations
+
+import math
+
+MISSING = "n/a"
+
+
+def _bad(x) -> bool:
+    return x is None or (isinstance(x, float) and not math.isfinite(x))
+
+
+def num(x, digits: int = 3) -> str:
+    """Fixed decimals, scientific notation for very large or very small magnitudes."""
+    if _bad(x):
+        return MISSING
+    if isinstance(x, float):
+        if x != 0 and (abs(x) >= 1e6 or abs(x) < 10 ** -digits):
+            return f"{x:.{max(digits - 1, 1)}e}"
+        return f"{x:.{digits}f}"
+    return str(x)
+
+
+def signed(x, digits: int = 2) -> str:
+    """Always with its sign, so the direction is readable without colour."""
+    if _bad(x):
+        return MISSING
+    return f"{x:+.{digits}f}"
+
+
+def short(x) -> str:
+    """A raw reading: four significant digits."""
+    if _bad(x):
+        return MISSING
+    return f"{x:.4g}" if abs(x) < 1e6 else f"{x:.3e}"
+
+
+def percent(x, digits: int = 1) -> str:
+    if _bad(x):
+        return MISSING
+    return f"{x:.{digits}f}%"
+
+
+def tail(p) -> str:
+    """A probability that may be tiny."""
+    if _bad(p):
+        return MISSING
+    return f"{p:.2g}"
+
+
+def count_change(n) -> str:
+    if n is None:
+        return MISSING
+    return f"{n:+d}"
+
+
+def clip(text: str, width: int) -> str:
+    """Cut ``text`` to ``width`` characters with an ellipsis."""
+    text = str(text)
+    if width <= 0:
+        return ""
+    return text if len(text) <= width else text[: max(width - 1, 0)] + "…"
+
+
+_PATH = __import__("re").compile(r"(?:[A-Za-z]:)?[\\/](?:[^\s\\/()]+[\\/])+([^\s\\/()]+)")
+
+
+def short_paths(text: str) -> str:
+    """File paths inside a sentence cut to their file name (the screen has no room for folders)."""
+    return _PATH.sub(lambda m: m.group(1), str(text))

@@ -1,0 +1,60 @@
+"""Help: every key, and the words the workbench uses."""
+
+from __future__ import annotations
+
+from rich.text import Text
+from textual.app import ComposeResult
+from textual.binding import Binding
+from textual.containers import VerticalScroll
+from textual.screen import ModalScreen
+from textual.widgets import Static
+
+from ..keys import help_rows
+
+WORDS = (
+    ("miss", "a case labelled anomaly that the model leaves unflagged; margin = log-density - threshold (> 0)"),
+    ("near catch", "a labelled anomaly that is flagged, but sits closer below the threshold than the median "
+                   "normal case sits above it"),
+    ("false alarm", "a case labelled normal that is flagged"),
+    ("[book]", "the case already has an entry in the casebook"),
+    ("after try", "how the last try changed the case: now flagged, or now unflagged"),
+    ("z bar", "- to the left: below the normal mean; + to the right: above; ◂ ▸: beyond 4 sd"),
+    ("reads", "z in words: typical, a little low/high, low/high, very low/high"),
+    ("share", "the feature's part of the case's log-density cost, in %"),
+    ("candidate", "a derived feature proposed by the search, not yet in the recipe; ✓ finding, ? could be chance"),
+    ("shaped", "histogram under the transform `afterlook shape` picks for the column"),
+)
+
+
+class HelpScreen(ModalScreen[None]):
+    BINDINGS = [
+        Binding("escape", "dismiss_help", "close"),
+        Binding("question_mark", "dismiss_help", "close"),
+        Binding("q", "dismiss_help", "close"),
+    ]
+
+    def compose(self) -> ComposeResult:
+        with VerticalScroll(id="help-box"):
+            yield Static(Text("afterlook workbench: keys", style="bold"), classes="help-title")
+            yield Static(_two_columns(help_rows()), id="help-keys")
+            yield Static(Text("words", style="bold"), classes="help-title")
+            yield Static(_two_columns(WORDS), id="help-words")
+            yield Static("escape, ? or q closes this help; the mouse works on tabs, rows, buttons and fields.",
+                         classes="help-foot")
+
+    def action_dismiss_help(self) -> None:
+        self.dismiss(None)
+
+
+KEY_WIDTH = 16
+
+
+def _two_columns(rows) -> Text:
+    """``key   what it does`` lines (plain text, so it wraps at any width)."""
+    out = Text()
+    for k, (left, right) in enumerate(rows):
+        if k:
+            out.append("\n")
+        out.append(left.ljust(KEY_WIDTH), style="bold")
+        out.append(right)
+    return out

@@ -1,0 +1,46 @@
+"""The workbench: status line, case list, and the evidence / candidates / histogram / try tabs."""
+
+from __future__ import annotations
+
+from textual.app import ComposeResult
+from textual.screen import Screen
+from textual.widgets import Footer, TabbedContent, TabPane
+
+from ..keys import bindings
+from ..messages import WorkbenchReady
+from ..widgets.candidates import CandidatesPanel
+from ..widgets.case_list import CaseList
+from ..widgets.evidence import EvidencePanel
+from ..widgets.histogram import HistogramPanel
+from ..widgets.status_line import StatusLine
+from ..widgets.try_panel import TryPanel
+
+TABS = ("evidence", "candidates", "histogram", "try")
+
+
+class WorkbenchScreen(Screen):
+    """Lays the widgets out; every key runs an App action (the App owns the state)."""
+
+    BINDINGS = bindings()
+
+    def __init__(self, context_columns: dict[str, int], case_width: int = 22, **kwargs) -> None:
+        super().__init__(**kwargs)
+        self.context_columns = context_columns
+        self.case_width = case_width
+
+    def compose(self) -> ComposeResult:
+        yield StatusLine(id="status")
+        yield CaseList(self.context_columns, self.case_width, id="case-list")
+        with TabbedContent(initial="evidence", id="detail"):
+            with TabPane("evidence \\[e]", id="evidence"):
+                yield EvidencePanel(id="evidence-panel")
+            with TabPane("candidates \\[c]", id="candidates"):
+                yield CandidatesPanel(id="candidates-panel")
+            with TabPane("histogram \\[h]", id="histogram"):
+                yield HistogramPanel(id="histogram-panel")
+            with TabPane("try \\[t]", id="try"):
+                yield TryPanel(id="try-panel")
+        yield Footer(show_command_palette=False)
+
+    def on_mount(self) -> None:
+        self.post_message(WorkbenchReady())

@@ -1,0 +1,134 @@
+"""Candidates for the selected miss: progress while the search runs, then the ranked table and verdict."""
+
+from __future__ import annotations
+
+from rich.text import Text
+from textual.app import ComposeResult
+from textual.containers import Horizontal, Vertical
+from textual.widgets import DataTable, ProgressBar, Static
+
+from ...workbench_data import candidate_verdict
+from .. import format as fmt
+from ..messages import CandidateChosen, CandidateHighlighted
+
+VERDICT_WIDTH = 25
+# the columns other than the expression, with two cells of padding each, and the scrollbar
+FIXED_COLUMNS = 2 + 6 + 8 + 6 + 6 + 4 + VERDICT_WIDTH + 2 * 8 + 2
+
+LEGEND = ("case z: robust z of the case among normal rows · adj tail: chance of a value this extreme, adjusted "
+          "for every candidate tried · others: other labelled anomalies it separates · caught: target misses "
+          "flagged after a re-fit · +FA: false alarms that re-fit adds · ✓ beyond chance, ? not · enter or a: apply")
+
+
+class CandidatesPanel(Vertical):
+    COMPONENT_CLASSES = {"candidates--finding", "candidates--chance", "candidates--dim", "candidates--stage"}
+
+    def __init__(self, **kwargs) -> None:
+        super().__init__(**kwargs)
+        self.result = None
+        self.case_id: str | None = None
+
+    def compose(self) -> ComposeResult:
+        yield Static("", id="cand-head")
+        with Horizontal(id="cand-progress-row"):
+            yield ProgressBar(total=100, show_eta=False, id="cand-progress")
+            yield Static("", id="cand-stage")
+        yield DataTable(id="cand-table", cursor_type="row", zebra_stripes=True)
+        yield Static("", id="cand-verdict")
+        yield Static(LEGEND, id="cand-legend")
+
+    def _style(self, name: str):
+        return self.get_component_rich_style(name, partial=True)
+
+    def _progress_visible(self, visible: bool) -> None:
+        self.query_one("#cand-progress-row").display = visible
+
+    def idle(self, case_id: str | None, message: str) -> None:
+        self.result, self.case_id = None, case_id
+        self.query_one("#cand-head", Static).update(Text(message, style=self._style("candidates--dim")))
+        self._progress_visible(False)
+        self.query_one("#cand-table", DataTable).clear(columns=True)
+        self.query_one("#cand-verdict", Static).update("")
+
+    def running(self, case_id: str) -> None:
+        self.result, self.case_id = None, case_id
+        self.query_one("#cand-head", Static).update(Text(f"searching candidates for {case_id} …"))
+        self._progress_visible(True)
+        self.query_one("#cand-progress", ProgressBar).update(total=100, progress=0)
+        self.query_one("#cand-stage", Static).update("starting")
+        self.query_one("#cand-table", DataTable).clear(columns=True)
+        self.query_one("#cand-verdict", Static).update("")
+
+    def progress(self, stage: str, fraction: float) -> None:
+        # The fraction comes from discovery.suggest; shown as a bar and the stage in words.
+        self.query_one("#cand-progress", ProgressBar).update(total=1.0, progress=fraction)
+        self.query_one("#cand-stage", Static).update(Text(stage, style=self._style("candidates--stage")))
+
+    def failed(self, case_id: str, message: str) -> None:
+        self.idle(case_id, f"no candidates for {case_id}: {message}")
+
+    def show(self, case_id: str, result) -> None:
+        """Draw a :class:`~afterlook.discovery.SuggestResult`."""
+        self.result, self.case_id = result, case_id
+        self._progress_visible(False)
+        head = Text()
+        head.append(f"candidates for {case_id}", style="bold")
+        head.append(f"  {result.tried} tried on {result.sample_rows} normal rows", style=self._style("candidates--dim"))
+        self.query_one("#cand-head", Static).update(head)
+        table = self.query_one("#cand-table", DataTable)
+        width = max(self.size.width, 60)
+        expr_width = max(12, width - FIXED_COLUMNS)
+        finding, chance = self._style("candidates--finding"), self._style("candidates--chance")
+        n_targets = len(result.cases)
+        with table.prevent(DataTable.RowHighlighted):
+            table.clear(columns=True)
+            for label, key, w in (("#", "rank", 2), ("expression", "expr", expr_width), ("case z", "z", 6),
+                                  ("adj tail", "tail", 8), ("others", "others", 6), ("caught", "caught", 6),
+                                  ("+FA", "fa", 4), ("verdict", "verdict", VERDICT_WIDTH)):
+                right = key not in ("expr", "verdict")
+                table.add_column(Text(label, justify="right") if right else label, key=key, width=w)
+            for k, c in enumerate(result.candidates):
+                words = candidate_verdict(c)
+                caught = fmt.MISSING if c.catches_targets is None else f"{c.catches_targets}/{n_targets}"
+                table.add_row(
+                    Text(str(k + 1), justify="right"),
+                    fmt.clip(c.expression, expr_width),
+                    Text(fmt.signed(c.case_z, 1), justify="right"),
+                    Text(fmt.tail(c.adjusted_tail), justify="right"),
+                    Text(f"{c.other_anomalies_separated}/{c.other_anomalies}", justify="right"),
+                    Text(caught, justify="right"),
+                    Text(fmt.count_change(c.false_alarms_added), justify="right"),
+                    Text(("✓ " if c.beyond_chance else "? ") + words, style=finding if c.beyond_chance else chance),
+                    key=str(k),
+                )
+        verdict = Text()
+        verdict.append("verdict: ", style="bold")
+        verdict.append(result.verdict(), style=finding if result.any_beyond_chance else chance)
+        self.query_one("#cand-verdict", Static).update(verdict)
+
+    def on_resize(self) -> None:
+        # the expression column takes the room left: redraw for the new width, cursor kept
+        if self.result is not None and self.case_id is not None:
+            table = self.query_one("#cand-table", DataTable)
+            row = table.cursor_row
+            self.show(self.case_id, self.result)
+            if 0 <= row < table.row_count:
+                table.move_cursor(row=row, animate=False)
+
+    @property
+    def highlighted_index(self) -> int:
+        table = self.query_one("#cand-table", DataTable)
+        return max(table.cursor_row, 0) if self.result is not None and table.row_count else 0
+
+    def focus_table(self) -> None:
+        self.query_one("#cand-table", DataTable).focus()
+
+    def on_data_table_row_highlighted(self, event: DataTable.RowHighlighted) -> None:
+        event.stop()
+        if self.result is not None and event.row_key is not None and event.row_key.value is not None:
+            self.post_message(CandidateHighlighted(int(event.row_key.value)))
+
+    def on_data_table_row_selected(self, event: DataTable.RowSelected) -> None:
+        event.stop()
+        if self.result is not None and event.row_key is not None and event.row_key.value is not None:
+            self.post_message(CandidateChosen(int(event.row_key.value)))

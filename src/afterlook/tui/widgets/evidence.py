@@ -1,0 +1,134 @@
+"""Evidence for the selected case: per feature a signed z bar, percentile, share of log-density."""
+
+from __future__ import annotations
+
+import math
+
+from rich.text import Text
+from textual.app import ComposeResult
+from textual.containers import Vertical
+from textual.widgets import DataTable, Static
+
+from .. import format as fmt
+from ..messages import FeatureHighlighted
+
+BAR_HALF = 6  # cells each side of the zero line
+
+
+def signed_bar(row, style_low, style_high, half: int = BAR_HALF) -> Text:
+    """``-███│`` below the normal mean, ``│███+`` above; ``◂``/``▸`` past the scale.
+
+    The sign is drawn as a character, so the direction reads without colour.
+    """
+    cells, over = row.bar_cells, row.bar_overflow
+    text = Text(no_wrap=True)
+    if row.z is None or not math.isfinite(row.z):
+        text.append(" " * half + "?" + " " * half)
+        return text
+    if row.z < 0 and cells:
+        text.append(" " * (half - cells))
+        text.append(("◂" if over else "-") + "█" * (cells - 1), style=style_low)
+    else:
+        text.append(" " * half)
+    text.append("│")
+    if row.z > 0 and cells:
+        text.append("█" * (cells - 1) + ("▸" if over else "+"), style=style_high)
+        text.append(" " * (half - cells))
+    else:
+        text.append(" " * half)
+    return text
+
+
+class EvidencePanel(Vertical):
+    COMPONENT_CLASSES = {"evidence--low", "evidence--high", "evidence--extreme", "evidence--miss",
+                         "evidence--flagged", "evidence--dim", "evidence--broken"}
+
+    def __init__(self, **kwargs) -> None:
+        super().__init__(**kwargs)
+        self.view = None
+        self.feature_names: list[str] = []
+
+    def compose(self) -> ComposeResult:
+        yield Static("select a case", id="evidence-head")
+        yield DataTable(id="evidence-table", cursor_type="row", zebra_stripes=True)
+        yield Static("", id="evidence-legend")
+
+    def _style(self, name: str):
+        return self.get_component_rich_style(name, partial=True)
+
+    def show(self, view) -> None:
+        """Draw an :class:`~afterlook.workbench_data.EvidenceView`."""
+        self.view = view
+        ex = view.explain
+        head = Text(no_wrap=False)
+        head.append(ex.case, style="bold")
+        head.append("  ")
+        head.append(view.standing, style=self._style("evidence--flagged" if ex.flagged else "evidence--miss"))
+        head.append(f"  ({ex.model_kind} model)", style=self._style("evidence--dim"))
+        head.append(f"\nlog-density {fmt.num(ex.log_density)} vs threshold {fmt.num(ex.threshold)}: margin "
+                    f"{fmt.signed(ex.margin, 3)} ({'below: flagged' if ex.flagged else 'above: not flagged'})")
+        ctx = "  ".join(f"{k} {v}" for k, v in ex.context.items() if v)
+        if ctx:
+            head.append("\n" + ctx, style=self._style("evidence--dim"))
+        self.query_one("#evidence-head", Static).update(head)
+
+        table = self.query_one("#evidence-table", DataTable)
+        keep = self.feature_names[table.cursor_row] if self.feature_names and 0 <= table.cursor_row < len(
+            self.feature_names) else None
+        with table.prevent(DataTable.RowHighlighted):
+            table.clear(columns=True)
+            name_width = min(max([len(r.name) + 2 for r in view.rows] + [8]), 28)
+            table.add_column("feature", key="feature", width=name_width)
+            table.add_column(Text("value", justify="right"), key="value", width=9)
+            table.add_column(Text("low │ high", justify="center"), key="bar", width=2 * BAR_HALF + 1)
+            table.add_column(Text("z", justify="right"), key="z", width=6)
+            table.add_column("reads", key="reads", width=13)
+            table.add_column(Text("pct", justify="right"), key="pct", width=6)
+            table.add_column(Text("share", justify="right"), key="share", width=5)
+            if view.full_model:
+                table.add_column(Text("cond z", justify="right"), key="cond_z", width=6)
+                table.add_column("relation", key="relation", width=18)
+            low, high = self._style("evidence--low"), self._style("evidence--high")
+            extreme = self._style("evidence--extreme")
+            for r in view.rows:
+                name = r.name + (" *" if r.transform else "")
+                strong = r.reading.startswith("very")
+                cells = [
+                    fmt.clip(name, name_width),
+                    Text(fmt.short(r.value), justify="right"),
+                    signed_bar(r, low + extreme if strong else low, high + extreme if strong else high),
+                    Text(fmt.signed(r.z), justify="right"),
+                    Text(r.reading, style=extreme if strong else None),
+                    Text(fmt.percent(r.percentile), justify="right"),
+                    Text(fmt.percent(r.share, 0), justify="right"),
+                ]
+                if view.full_model:
+                    cells.append(Text(fmt.signed(r.conditional_z), justify="right"))
+                    cells.append(Text(r.relation, style=self._style("evidence--broken") if r.relation else None))
+                table.add_row(*cells, key=r.name)
+            self.feature_names = [r.name for r in view.rows]
+            if keep in self.feature_names:
+                table.move_cursor(row=self.feature_names.index(keep), animate=False)
+        legend = Text(style=self._style("evidence--dim"))
+        legend.append("z: sd from the normal mean (bar full at 4; - below, + above); pct: % of normal rows at "
+                      "or below; share: % of the case's log-density cost")
+        if any(r.transform for r in view.rows):
+            legend.append("; * transformed by the recipe")
+        if view.full_model:
+            legend.append("; cond z: sd from the value expected given all other features")
+        self.query_one("#evidence-legend", Static).update(legend)
+
+    @property
+    def highlighted_feature(self) -> str | None:
+        table = self.query_one("#evidence-table", DataTable)
+        if self.feature_names and 0 <= table.cursor_row < len(self.feature_names):
+            return self.feature_names[table.cursor_row]
+        return None
+
+    def on_data_table_row_highlighted(self, event: DataTable.RowHighlighted) -> None:
+        event.stop()
+        if event.row_key is not None and event.row_key.value is not None:
+            self.post_message(FeatureHighlighted(str(event.row_key.value)))
+
+    def on_data_table_row_selected(self, event: DataTable.RowSelected) -> None:
+        event.stop()

@@ -1,0 +1,73 @@
+"""The status line: model, threshold and how it was chosen, counts and metrics."""
+
+from __future__ import annotations
+
+from rich.text import Text
+from textual.reactive import reactive
+from textual.widgets import Static
+
+from .. import format as fmt
+
+SEP = " │ "
+
+
+class StatusLine(Static):
+    """Two lines; segments that do not fit the width are left out, the least important first."""
+
+    COMPONENT_CLASSES = {"status--brand", "status--strong", "status--dim", "status--miss", "status--alarm"}
+
+    summary = reactive(None, layout=True)
+    book_entries = reactive(None)
+
+    def render(self) -> Text:
+        s = self.summary
+        if s is None:
+            return Text("loading…")
+        width = max(self.size.width, 20)
+        head = [
+            ("afterlook", "status--brand"),
+            (f"{s.model_file} ({s.model_kind}, {s.n_features} features)", "status--strong"),
+            (f"threshold {fmt.num(s.threshold)}", "status--strong"),
+            (s.policy, ""),
+            (f"chosen on {s.chosen_on}", "status--dim"),
+        ]
+        counts_long = [
+            (f"{s.n_cases} cases", ""),
+            (f"{s.n_anomalies} anomalies", ""),
+            (f"{s.n_misses} misses", "status--miss"),
+            (f"{s.n_false_alarms} false alarms", "status--alarm"),
+            (f"precision {fmt.num(s.precision)}  recall {fmt.num(s.recall)}  F1 {fmt.num(s.f1)}", "status--strong"),
+        ]
+        counts_short = counts_long[:4] + [
+            (f"prec {fmt.num(s.precision)} rec {fmt.num(s.recall)} F1 {fmt.num(s.f1)}", "status--strong")]
+        book = self.book_entries
+        tail = [(f"book {s.casebook_file}: {'…' if book is None else book}", "status--dim")]
+        if s.n_unscored:
+            tail.insert(0, (f"{s.n_unscored} anomalies not scored (NaN)", "status--alarm"))
+        counts = counts_long + tail
+        if _length(counts) > width:
+            counts = counts_short + tail
+        text = _line(head, width, self._style)
+        text.append("\n")
+        text.append_text(_line(counts, width, self._style))
+        return text
+
+    def _style(self, name: str):
+        return self.get_component_rich_style(name, partial=True) if name else None
+
+
+def _length(parts) -> int:
+    return sum(len(p) for p, _ in parts) + len(SEP) * (len(parts) - 1)
+
+
+def _line(parts, width: int, style) -> Text:
+    kept = []
+    for part in parts:
+        if _length(kept + [part]) <= width:
+            kept.append(part)
+    text = Text(no_wrap=True, overflow="ellipsis")
+    for k, (part, kind) in enumerate(kept):
+        if k:
+            text.append(SEP, style=style("status--dim"))
+        text.append(part, style=style(kind))
+    return text

@@ -1,0 +1,118 @@
+"""Try a derived feature: an expression checked as you type, then the before/after comparison."""
+
+from __future__ import annotations
+
+from rich.table import Table
+from rich.text import Text
+from rich import box
+from textual.app import ComposeResult
+from textual.containers import VerticalScroll
+from textual.widgets import Input, Static
+
+from .. import format as fmt
+from ..messages import ExpressionEdited, ExpressionSubmitted
+
+PLACEHOLDER = "NAME = EXPR or EXPR, e.g. head_per_amp = (discharge_bar - suction_bar) / motor_current_a"
+FLIPS_SHOWN = 12
+
+
+class TryPanel(VerticalScroll):
+    COMPONENT_CLASSES = {"try--ok", "try--error", "try--dim", "try--flagged", "try--unflagged", "try--running"}
+
+    def __init__(self, **kwargs) -> None:
+        super().__init__(**kwargs)
+        self.view = None
+
+    def compose(self) -> ComposeResult:
+        yield Input(placeholder=PLACEHOLDER, id="expression", compact=True)
+        yield Static("", id="expression-status")
+        yield Static("apply a candidate (a) or type an expression (t), then enter: the model is re-fitted with "
+                     "the feature, the threshold re-picked by the same policy and every case re-scored.",
+                     id="trial-head")
+        yield Static("", id="trial-metrics")
+        yield Static("", id="trial-case")
+        yield Static("", id="trial-flips")
+
+    def _style(self, name: str):
+        return self.get_component_rich_style(name, partial=True)
+
+    # -- the expression -----------------------------------------------------
+    def focus_expression(self) -> None:
+        self.query_one("#expression", Input).focus()
+
+    def set_expression_status(self, ok: bool | None, message: str) -> None:
+        """ok True: valid; False: the error as you type; None: nothing typed."""
+        t = Text()
+        if ok is True:
+            t.append("✓ " + message, style=self._style("try--ok"))
+        elif ok is False:
+            t.append("✗ " + message, style=self._style("try--error"))
+        else:
+            t.append(message, style=self._style("try--dim"))
+        self.query_one("#expression-status", Static).update(t)
+
+    def on_input_changed(self, event: Input.Changed) -> None:
+        if event.input.id == "expression":
+            event.stop()
+            self.post_message(ExpressionEdited(event.value))
+
+    def on_input_submitted(self, event: Input.Submitted) -> None:
+        if event.input.id == "expression":
+            event.stop()
+            self.post_message(ExpressionSubmitted(event.value))
+
+    # -- the comparison -------------------------------------------------------
+    def running(self, label: str) -> None:
+        self.query_one("#trial-head", Static).update(
+            Text(f"re-fitting with {label} and re-scoring every case …", style=self._style("try--running")))
+
+    def failed(self, label: str, message: str) -> None:
+        self.query_one("#trial-head", Static).update(
+            Text(f"could not try {label}: {message}", style=self._style("try--error")))
+
+    def show(self, view) -> None:
+        """Draw a :class:`~afterlook.workbench_data.TrialView`."""
+        self.view = view
+        head = Text()
+        head.append("tried ", style="bold")
+        head.append(", ".join(f"{n} = {e}" for n, e in view.derive), style="bold")
+        head.append(f"\nre-fitted on {fmt.short_paths(view.training_source)}", style=self._style("try--dim"))
+        head.append(f"\nmisses caught: {view.misses_caught} · false alarms added: "
+                    f"{fmt.count_change(view.false_alarms_added)}")
+        for w in view.warnings:
+            head.append(f"\nwarning: {fmt.short_paths(w)}", style=self._style("try--error"))
+        self.query_one("#trial-head", Static).update(head)
+
+        t = Table(box=box.SIMPLE_HEAD, show_edge=False, pad_edge=False)
+        t.add_column("")
+        for col in ("before", "after", "change"):
+            t.add_column(col, justify="right", no_wrap=True)
+        for m in view.metrics:
+            if m.integer:
+                t.add_row(m.name, str(m.before), str(m.after), fmt.count_change(m.change))
+            else:
+                t.add_row(m.name, fmt.num(m.before), fmt.num(m.after), fmt.signed(m.change, 3))
+        self.query_one("#trial-metrics", Static).update(t)
+
+        case = Text()
+        c = view.case
+        if c is not None:
+            case.append(f"{c.case}: ", style="bold")
+            case.append(f"log-density {fmt.num(c.log_density_before)} vs threshold {fmt.num(view.threshold_before)} "
+                        f"(margin {fmt.signed(view.margin_before, 3)}, {'flagged' if c.flagged_before else 'not flagged'})")
+            case.append(f"\n  → {fmt.num(c.log_density_after)} vs {fmt.num(view.threshold_after)} "
+                        f"(margin {fmt.signed(view.margin_after, 3)}, {'flagged' if c.flagged_after else 'not flagged'})")
+            case.append("  ")
+            case.append(c.words.upper(), style=self._style("try--flagged" if c.flagged_after else "try--unflagged"))
+        self.query_one("#trial-case", Static).update(case)
+
+        flips = Text()
+        for title, rows in (("now flagged", view.now_flagged), ("no longer flagged", view.no_longer_flagged)):
+            n, n_anomaly, n_normal = view.counts(rows)
+            flips.append(f"\n{title}: {n} ({n_anomaly} labelled anomaly, {n_normal} labelled normal)", style="bold")
+            for r in rows[:FLIPS_SHOWN]:
+                flips.append(f"\n  {'+' if r.flagged_after else '-'} {r.case}  {r.label:<7}  "
+                             f"{fmt.num(r.log_density_before, 2)} → {fmt.num(r.log_density_after, 2)}")
+            if len(rows) > FLIPS_SHOWN:
+                flips.append(f"\n  … {len(rows) - FLIPS_SHOWN} more", style=self._style("try--dim"))
+        self.query_one("#trial-flips", Static).update(flips)

@@ -1,0 +1,98 @@
+"""Snapshot tests of the workbench's main views (pytest-textual-snapshot).
+
+Seeded demo data (``write_demo``, seed 7), fixed terminal sizes, paths
+shown by file name only, notifications cleared before the picture: the
+screens are deterministic. The candidates view is fed a fixed search result
+so that its picture checks the layout, not the ranking (the ranking has its
+own tests in tests/discovery/). Update with ``pytest tests/tui --snapshot-update``
+after looking at the new pictures.
+"""
+
+from __future__ import annotations
+
+import pytest
+
+from afterlook.core.candidates import Candidate
+from afterlook.discovery import SuggestResult
+from afterlook.tui import create_app
+from afterlook.tui.messages import CandidatesReady
+
+WIDE = (120, 40)
+SMALL = (80, 24)
+
+
+def make_app(demo, tmp_path):
+    return create_app(demo.model, demo.cases, train_path=demo.train, casebook=tmp_path / "casebook.json",
+                      auto_candidates=False)
+
+
+async def settle(pilot) -> None:
+    await pilot.app.workers.wait_for_complete()
+    await pilot.pause()
+    pilot.app.clear_notifications()
+    await pilot.pause()
+
+
+def fixed_candidates(case_id: str) -> SuggestResult:
+    def c(expression, kind, inputs, z, tail, beyond, separated, fa, caught):
+        return Candidate(expression, kind, inputs, 0.9, case_z=z, adjusted_tail=tail, beyond_chance=beyond,
+                         other_anomalies_separated=separated, other_anomalies=59, false_alarms_added=fa,
+                         catches_targets=caught)
+
+    return SuggestResult(
+        cases=[case_id], tried=238, sample_rows=6000, training_source="train.csv", chance_level=0.05,
+        candidates=[
+            c("motor_current_a / hydraulic_power", "ratio", ("motor_current_a", "hydraulic_power"),
+              10.4, 8.1e-10, True, 24, 2, 1),
+            c("log(motor_current_a / hydraulic_power)", "log_ratio", ("motor_current_a", "hydraulic_power"),
+              8.4, 7.5e-9, True, 24, 8, 1),
+            c("motor_current_a / flow_m3h", "ratio", ("motor_current_a", "flow_m3h"), 6.8, 3.1e-6, True, 20, 5, 0),
+            c("vibration_mm_s * bearing_temp_c", "product", ("vibration_mm_s", "bearing_temp_c"),
+              2.1, 0.61, False, 3, None, None),
+        ],
+    )
+
+
+def test_evidence_view(snap_compare, demo, tmp_path):
+    assert snap_compare(make_app(demo, tmp_path), terminal_size=WIDE, run_before=settle)
+
+
+def test_evidence_view_at_80_by_24(snap_compare, demo, tmp_path):
+    assert snap_compare(make_app(demo, tmp_path), terminal_size=SMALL, run_before=settle)
+
+
+def test_candidates_view(snap_compare, demo, tmp_path):
+    async def run_before(pilot):
+        app = pilot.app
+        await pilot.pause()
+        app.post_message(CandidatesReady(app.selected_case, fixed_candidates(app.selected_case)))
+        await pilot.pause()
+        await pilot.press("c")
+        await settle(pilot)
+
+    assert snap_compare(make_app(demo, tmp_path), terminal_size=WIDE, run_before=run_before)
+
+
+def test_try_result_view(snap_compare, demo, tmp_path):
+    async def run_before(pilot):
+        await pilot.pause()
+        await pilot.press("t", *"amps_per_power = motor_current_a / hydraulic_power", "enter")
+        await settle(pilot)
+        assert pilot.app.trial_view is not None  # the picture must show a finished try
+
+    assert snap_compare(make_app(demo, tmp_path), terminal_size=WIDE, run_before=run_before)
+
+
+def test_histogram_view(snap_compare, demo, tmp_path):
+    async def run_before(pilot):
+        await pilot.pause()
+        await pilot.press("h")
+        await settle(pilot)
+        assert pilot.app.histogram is not None
+
+    assert snap_compare(make_app(demo, tmp_path), terminal_size=WIDE, run_before=run_before)
+
+
+def test_help_view(snap_compare, demo, tmp_path):
+    assert snap_compare(make_app(demo, tmp_path), terminal_size=WIDE, press=["question_mark"],
+                        run_before=settle)

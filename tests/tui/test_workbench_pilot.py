@@ -1,0 +1,267 @@
+"""The workbench driven by a Pilot, as a user would: keys in, state and screen text out.
+
+Every test builds the App with :func:`afterlook.tui.create_app`, the factory
+the CLI uses, on the demo written by ``write_demo`` (seed 7), at 120 x 40.
+Expected values come from the API (``afterlook.api`` / ``afterlook.discovery``)
+or the casebook file, never from the App itself.
+"""
+
+from __future__ import annotations
+
+import threading
+
+import pytest
+from textual.widgets import DataTable, Input, Static
+
+from afterlook import api
+from afterlook.core.errors import AfterlookError
+from afterlook.discovery import try_features
+from afterlook.store.casebook import Casebook
+from afterlook.tui import create_app
+from afterlook.tui.keys import WORKBENCH_KEYS
+from afterlook.tui.screens.help import HelpScreen
+from afterlook.tui.screens.save_case import SaveCaseScreen
+
+SIZE = (120, 40)
+
+
+def worst_miss(demo) -> str:
+    model = api.load_model(demo.model)
+    return api.misses(model, api.load_table(demo.cases, require_labels=True)).misses[0].case
+
+
+def cell(app, table_id: str, row_key: str, column_key: str) -> str:
+    table = app.workbench.query_one(f"#{table_id}", DataTable)
+    value = table.get_cell(row_key, column_key)
+    return getattr(value, "plain", str(value))
+
+
+def text_of(widget: Static) -> str:
+    return str(widget.render())
+
+
+@pytest.mark.asyncio
+async def test_main_flow_worst_miss_candidates_apply_flip_and_save(demo, tmp_path, monkeypatch, wait_until):
+    book = tmp_path / "casebook.json"
+    worst = worst_miss(demo)
+    app = create_app(demo.model, demo.cases, train_path=demo.train, casebook=book)
+
+    stages = []
+    from afterlook.tui.widgets.candidates import CandidatesPanel
+
+    original_progress = CandidatesPanel.progress
+    monkeypatch.setattr(CandidatesPanel, "progress",
+                        lambda self, stage, fraction: (stages.append((stage, fraction)),
+                                                       original_progress(self, stage, fraction)))
+
+    async with app.run_test(size=SIZE) as pilot:
+        await pilot.pause()
+        # the worst miss is selected and its evidence shown
+        assert app.selected_case == worst
+        table = app.workbench.query_one("#cases", DataTable)
+        assert table.cursor_row == 0 and table.coordinate_to_cell_key((0, 0)).row_key.value == worst
+        assert worst in text_of(app.workbench.query_one("#evidence-head", Static))
+
+        # candidates arrive from the worker, with progress shown on the way
+        await wait_until(pilot, lambda: worst in app.candidates, what="candidates for the worst miss")
+        result = app.candidates[worst]
+        assert result.cases == [worst] and result.candidates
+        assert stages and stages[-1][1] == 1.0
+        top = result.candidates[0]
+
+        # apply the top one: the worst miss flips to flagged
+        await pilot.press("a")
+        await wait_until(pilot, lambda: app.trial_view is not None, what="the try result")
+        assert app.trial.derive == [(top.name, top.expression)]
+        ref = try_features(api.load_model(demo.model), api.load_table(demo.cases), {top.name: top.expression},
+                           train=api.load_table(demo.train), focus=[worst])
+        ref_row = next(r for r in ref.to_dict()["cases"] if r["case"] == worst)
+        assert ref_row["before"]["flagged"] is False and ref_row["after"]["flagged"] is True
+        assert app.trial_view.case.flagged_after is True and app.trial_view.case.flagged_before is False
+        assert app.trial.to_dict()["after"] == ref.to_dict()["after"]
+        assert cell(app, "cases", worst, "trial") == "now flagged"
+        assert "NOW FLAGGED" in text_of(app.workbench.query_one("#trial-case", Static))
+
+        # save to the casebook from a key: status (defaults to explained after the flip) and a note
+        await pilot.press("b")
+        await pilot.pause()
+        assert isinstance(app.screen, SaveCaseScreen)
+        await pilot.press(*"impeller worn; current per power exposes it")
+        await pilot.press("enter")
+        await wait_until(pilot, lambda: worst in app.book_ids, what="the casebook entry saved")
+        await app.workers.wait_for_complete()
+        await pilot.pause()
+        assert cell(app, "cases", worst, "book") == "[book]"
+
+    entry = Casebook.open(book).entries[worst]
+    assert entry["status"] == "explained"
+    assert entry["note"] == "impeller worn; current per power exposes it"
+    assert entry["derived_feature"] == {"name": top.name, "expression": top.expression}
+    assert entry["before"]["flagged"] is False and entry["after"]["flagged"] is True
+    assert app.return_code in (None, 0)
+
+
+@pytest.mark.asyncio
+async def test_bad_expression_shows_the_error_and_changes_nothing(demo, tmp_path):
+    app = create_app(demo.model, demo.cases, train_path=demo.train, casebook=tmp_path / "b.json",
+                     auto_candidates=False)
+    async with app.run_test(size=SIZE) as pilot:
+        await pilot.pause()
+        model_before = app.session.model.fingerprint()
+        rows_before = [r.case for r in app.rows]
+        await pilot.press("t")
+        assert isinstance(app.focused, Input) and app.focused.id == "expression"
+        status = app.workbench.query_one("#expression-status", Static)
+
+        await pilot.press(*"motor_current_a / hydraulik_power")
+        assert "✗" in text_of(status) and "unknown column 'hydraulik_power'" in text_of(status)
+        await pilot.press("enter")
+        await app.workers.wait_for_complete()
+        await pilot.pause()
+        assert app.trial is None and app.trial_running is None
+        assert not [w for w in app.workers if w.group == "trial"]
+        assert app.session.model.fingerprint() == model_before
+        assert [r.case for r in app.rows] == rows_before
+        assert all(cell(app, "cases", c, "trial") == "" for c in rows_before)
+
+        # a syntax error is named as such while typing
+        app.focused.value = ""
+        await pilot.press(*"motor_current_a /")
+        assert "cannot parse" in text_of(status)
+
+        # and a good expression is accepted as you type (nothing runs until enter)
+        app.focused.value = ""
+        await pilot.press(*"amps_per_power = motor_current_a / hydraulic_power")
+        assert "✓" in text_of(status) and "amps_per_power" in text_of(status)
+        assert app.trial is None
+
+
+@pytest.mark.asyncio
+async def test_toggles_and_filter_change_the_list(demo, session, tmp_path):
+    from afterlook import workbench_data as wd
+
+    counts = wd.case_counts(session)
+    app = create_app(demo.model, demo.cases, train_path=demo.train, casebook=tmp_path / "b.json",
+                     auto_candidates=False)
+    async with app.run_test(size=SIZE) as pilot:
+        await pilot.pause()
+        table = app.workbench.query_one("#cases", DataTable)
+        assert table.row_count == counts[wd.KIND_MISS]
+        await pilot.press("n")
+        assert table.row_count == counts[wd.KIND_MISS] + counts[wd.KIND_NEAR]
+        kinds = {cell(app, "cases", r.case, "kind") for r in app.rows}
+        assert kinds == {"miss", "near catch"}
+        await pilot.press("n")
+        assert table.row_count == counts[wd.KIND_MISS]
+
+        station = app.rows[0].context["station"]
+        await pilot.press("slash")
+        assert app.focused.id == "filter"
+        await pilot.press(*station)
+        assert 0 < table.row_count < counts[wd.KIND_MISS]
+        assert all(r.context["station"] == station for r in app.rows)
+        await pilot.press("escape")
+        assert app.focused is table
+
+
+@pytest.mark.asyncio
+async def test_histogram_of_the_highlighted_feature_and_the_shaped_switch(demo, tmp_path, wait_until):
+    app = create_app(demo.model, demo.cases, train_path=demo.train, casebook=tmp_path / "b.json",
+                     auto_candidates=False)
+    async with app.run_test(size=SIZE) as pilot:
+        await pilot.pause()
+        ev = app.workbench.query_one("#evidence-table", DataTable)
+        ev.focus()
+        await pilot.press("down")
+        feature = app.evidence.rows[1].name
+        assert app.feature == feature
+        await pilot.press("h")
+        await wait_until(pilot, lambda: app.histogram is not None, what="the histogram")
+        assert app.tabs.active == "histogram"
+        assert app.histogram.source.name == feature and not app.histogram.shaped
+        assert app.histogram.case == app.selected_case
+        await pilot.press("s")
+        await wait_until(pilot, lambda: app.histogram.shaped, what="the shaped histogram")
+        assert app.histogram.shape_note
+        await pilot.press("right_square_bracket")
+        await wait_until(pilot, lambda: app.histogram.source.name != feature, what="the next feature")
+
+
+@pytest.mark.asyncio
+async def test_help_lists_every_key_and_q_quits(demo, tmp_path):
+    app = create_app(demo.model, demo.cases, train_path=demo.train, casebook=tmp_path / "b.json",
+                     auto_candidates=False)
+    async with app.run_test(size=SIZE) as pilot:
+        await pilot.pause()
+        await pilot.press("question_mark")
+        assert isinstance(app.screen, HelpScreen)
+        shown = " ".join(text_of(s) for s in app.screen.query(Static))
+        for key in WORKBENCH_KEYS:
+            assert key.shown in shown
+        await pilot.press("escape")
+        assert not isinstance(app.screen, HelpScreen)
+        await pilot.press("q")
+        await pilot.pause()
+    assert app.return_code == 0
+
+
+@pytest.mark.asyncio
+async def test_stale_candidate_runs_are_dropped(demo, tmp_path, monkeypatch, wait_until):
+    from afterlook import workbench_data as wd
+
+    first_may_finish = threading.Event()
+    real = wd.find_candidates
+
+    def gated(session, case_id, *, top=10, progress=None):
+        if case_id == first:
+            first_may_finish.wait(timeout=60)
+            progress("screening candidates", 0.5)  # the worker was cancelled meanwhile: this stops it
+        return real(session, case_id, top=top, progress=progress)
+
+    monkeypatch.setattr(wd, "find_candidates", gated)
+    app = create_app(demo.model, demo.cases, train_path=demo.train, casebook=tmp_path / "b.json",
+                     auto_candidates=False)
+    async with app.run_test(size=SIZE) as pilot:
+        await pilot.pause()
+        first = app.selected_case
+        await pilot.press("c")  # starts the (held) search for the first miss
+        assert app.candidates_running == first
+        app.case_list.focus_table()
+        await pilot.press("down")
+        second = app.selected_case
+        assert second != first
+        await pilot.press("c")  # a new search: the first run is cancelled
+        first_may_finish.set()
+        await wait_until(pilot, lambda: second in app.candidates, what="candidates for the second miss")
+        await app.workers.wait_for_complete()
+        await pilot.pause()
+        assert first not in app.candidates
+        assert app.candidates_panel.case_id == second
+
+
+@pytest.mark.asyncio
+async def test_apply_without_candidates_and_save_cancel_change_nothing(demo, tmp_path):
+    book = tmp_path / "b.json"
+    app = create_app(demo.model, demo.cases, train_path=demo.train, casebook=book, auto_candidates=False)
+    async with app.run_test(size=SIZE) as pilot:
+        await pilot.pause()
+        await pilot.press("a")
+        await pilot.pause()
+        assert app.trial is None and app.trial_running is None
+        assert any("no candidates" in n.message for n in app._notifications)
+        await pilot.press("b")
+        await pilot.pause()
+        assert isinstance(app.screen, SaveCaseScreen)
+        await pilot.press("escape")
+        await app.workers.wait_for_complete()
+        await pilot.pause()
+    assert not book.exists()
+
+
+def test_create_app_rejects_bad_input_before_drawing(demo, tmp_path):
+    with pytest.raises(AfterlookError, match="no such file"):
+        create_app(demo.model, tmp_path / "nope.csv")
+    bad_model = tmp_path / "model.json"
+    bad_model.write_text("{not json")
+    with pytest.raises(AfterlookError):
+        create_app(bad_model, demo.cases)
