@@ -271,7 +271,7 @@ def suggest(model: Model, cases, train=None, case_ids=None, top: int = 10, *,
 
     shaped = _shaping_expressions(model, sample) if shaping else {}
     _report(progress, "screening candidates", 0.15)
-    candidates, tried, _ = cand.generate_and_screen(names, sample, T, shaped, settings)
+    candidates, tried, _ = cand.generate_and_screen(names, sample, T, shaped, settings, select=True)
     _report(progress, "exact statistics", 0.35)
     other = np.flatnonzero(table.labels)
     other = np.array([i for i in other if i not in set(idx) and np.all(np.isfinite(C[i]))], dtype=int)

@@ -271,7 +271,10 @@ class _Group:
     mean: np.ndarray
     var: np.ndarray
     target: np.ndarray  # (n_targets, n_in_group)
-    texts: list[str]
+    texts: object  # list of str, or a callable k -> str (built only when needed)
+
+    def text(self, k: int) -> str:
+        return self.texts(k) if callable(self.texts) else self.texts[k]
 
 
 def _fmt(x: float) -> str:
@@ -290,6 +293,7 @@ def generate_and_screen(
     targets: np.ndarray,
     shaped: Mapping[str, str] | None = None,
     settings: Settings = Settings(),
+    select: bool = False,
 ) -> tuple[list[Candidate], int, np.ndarray]:
     """Generate every candidate and compute its first-pass z from moments.
 
@@ -299,6 +303,9 @@ def generate_and_screen(
     sample : name -> values over the normal sample (finite)
     targets : (n_targets, d) raw feature values of the target misses
     shaped : name -> expression text of a shaping transform of that column
+    select : return only the candidates the second pass will look at (the best
+        ``second_pass`` by first-pass z plus the correlated reserve); ``n_tried``
+        still counts every candidate generated
 
     Returns
     -------
@@ -310,9 +317,11 @@ def generate_and_screen(
     if n < 30:
         raise AfterlookError(f"the candidate search needs at least 30 normal rows, got {n}")
     mu = A.mean(axis=0)
-    sd = A.std(axis=0)
+    Ac = A - mu
+    C = Ac.T @ Ac / n
+    del Ac
+    sd = np.sqrt(np.clip(np.diag(C), 0, None))
     ok = sd > 0
-    C = np.cov(A, rowvar=False, bias=True) if d > 1 else np.zeros((1, 1))
     with np.errstate(invalid="ignore", divide="ignore"):
         R = C / np.outer(sd, sd)
     R[~np.isfinite(R)] = 0.0
@@ -333,8 +342,9 @@ def generate_and_screen(
     Z_t = (T - mu) / np.where(ok, sd, 1.0)
     add("standardized_difference", iu, ju, np.zeros(len(iu)), 2.0 - 2.0 * np.abs(r),
         Z_t[:, iu] + sgn * Z_t[:, ju],
-        [f"{_std_expr(names[a], mu[a], sd[a])} {'-' if s < 0 else '+'} {_std_expr(names[b], mu[b], sd[b])}"
-         for a, b, s in zip(iu, ju, sgn)])
+        lambda k, iu=iu, ju=ju, sgn=sgn: (
+            f"{_std_expr(names[iu[k]], mu[iu[k]], sd[iu[k]])} {'-' if sgn[k] < 0 else '+'} "
+            f"{_std_expr(names[ju[k]], mu[ju[k]], sd[ju[k]])}"))
 
     # product: E[ab], E[a^2 b^2] from two Gram matrices (columns scaled for range)
     scale = np.where(ok, np.sqrt(np.mean(A**2, axis=0)), 1.0)
@@ -344,7 +354,7 @@ def generate_and_screen(
     G2 = A2.T @ A2 / n
     s2 = scale[iu] * scale[ju]
     add("product", iu, ju, G1[iu, ju] * s2, (G2[iu, ju] - G1[iu, ju] ** 2) * s2**2,
-        T[:, iu] * T[:, ju], [f"{q[a]} * {q[b]}" for a, b in zip(iu, ju)])
+        T[:, iu] * T[:, ju], lambda k, iu=iu, ju=ju: f"{q[iu[k]]} * {q[ju[k]]}")
 
     # ratios and log ratio need both columns positive; a square ratio only
     # needs a positive divisor (the numerator is squared).
@@ -362,7 +372,7 @@ def generate_and_screen(
                 iy = np.array([pos_index[y] for y in y_])
                 g = scale[x_] ** 2 / scale[y_]
                 add("square_ratio", x_, y_, S1[x_, iy] * g, (S2[x_, iy] - S1[x_, iy] ** 2) * g**2,
-                    T[:, x_] ** 2 / T[:, y_], [f"{q[x]} ** 2 / {q[y]}" for x, y in zip(x_, y_)])
+                    T[:, x_] ** 2 / T[:, y_], lambda k, x_=x_, y_=y_: f"{q[x_[k]]} ** 2 / {q[y_[k]]}")
     pmask = positive[iu] & positive[ju]
     pi, pj = iu[pmask], ju[pmask]
     if len(pi):
@@ -375,14 +385,14 @@ def generate_and_screen(
         for a_, b_, ia, ib in ((pi, pj, a_idx, b_idx), (pj, pi, b_idx, a_idx)):
             f = sc[ia] / sc[ib]
             add("ratio", a_, b_, M1[ia, ib] * f, (M2[ia, ib] - M1[ia, ib] ** 2) * f**2,
-                T[:, a_] / T[:, b_], [f"{q[x]} / {q[y]}" for x, y in zip(a_, b_)])
+                T[:, a_] / T[:, b_], lambda k, a_=a_, b_=b_: f"{q[a_[k]]} / {q[b_[k]]}")
         L = np.log(A[:, P])
         Lmu = L.mean(axis=0)
         LC = np.cov(L, rowvar=False, bias=True) if len(P) > 1 else np.zeros((1, 1))
         LT = np.log(T[:, P])
         add("log_ratio", pi, pj, Lmu[a_idx] - Lmu[b_idx],
             LC[a_idx, a_idx] + LC[b_idx, b_idx] - 2 * LC[a_idx, b_idx],
-            LT[:, a_idx] - LT[:, b_idx], [f"log({q[x]} / {q[y]})" for x, y in zip(pi, pj)])
+            LT[:, a_idx] - LT[:, b_idx], lambda k, pi=pi, pj=pj: f"log({q[pi[k]]} / {q[pj[k]]})")
 
     # shaped columns: standardized difference of the transformed columns
     if shaped:
@@ -416,16 +426,44 @@ def generate_and_screen(
                 add("shaped_difference", np.array(ii), np.array(jj), np.array(means), np.array(vars_),
                     np.column_stack(tg), texts)
 
-    candidates: list[Candidate] = []
-    for g in groups:
+    # Collect every candidate's first-pass z as arrays; build Candidate
+    # objects (and their text) only for the ones kept.
+    zs, gid, kid = [], [], []
+    for g_index, g in enumerate(groups):
         with np.errstate(invalid="ignore", divide="ignore"):
             z = (g.target - g.mean) / np.sqrt(np.clip(g.var, 0, None))
-        zmin = np.median(np.abs(z), axis=0)
-        zmin[~np.isfinite(zmin)] = np.nan
-        for k in range(len(g.i)):
-            candidates.append(Candidate(g.texts[k], g.kind, (names[g.i[k]], names[g.j[k]]),
-                                        float(R[g.i[k], g.j[k]]), first_pass_z=float(zmin[k])))
-    return candidates, len(candidates), R
+        zmed = np.median(np.abs(z), axis=0)
+        zmed[~np.isfinite(zmed)] = np.nan
+        zs.append(zmed)
+        gid.append(np.full(len(g.i), g_index))
+        kid.append(np.arange(len(g.i)))
+    if not zs:
+        return [], 0, R
+    z_all, g_all, k_all = np.concatenate(zs), np.concatenate(gid), np.concatenate(kid)
+    r_all = np.array([R[groups[g].i[k], groups[g].j[k]] for g, k in zip(g_all, k_all)]) if len(z_all) else np.zeros(0)
+    n_tried = int(len(z_all))
+    if select:
+        keep = _select(z_all, r_all, settings)
+    else:
+        keep = np.arange(n_tried)
+    candidates = []
+    for idx in keep:
+        g = groups[g_all[idx]]
+        k = int(k_all[idx])
+        candidates.append(Candidate(g.text(k), g.kind, (names[g.i[k]], names[g.j[k]]),
+                                    float(r_all[idx]), first_pass_z=float(z_all[idx])))
+    return candidates, n_tried, R
+
+
+def _select(z: np.ndarray, r: np.ndarray, settings: Settings) -> np.ndarray:
+    """Indices of the best ``second_pass`` by first-pass z, plus a reserve of
+    the best pairs correlated at ``|r| >= min_correlation``."""
+    finite = np.flatnonzero(np.isfinite(z))
+    order = finite[np.argsort(-z[finite], kind="stable")]
+    top = order[: settings.second_pass]
+    rest = order[settings.second_pass:]
+    reserve = rest[np.abs(r[rest]) >= settings.min_correlation][: settings.correlated_reserve]
+    return np.concatenate([top, reserve])
 
 
 def second_pass(
