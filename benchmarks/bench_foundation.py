@@ -279,7 +279,7 @@ def time_worker(op: str, rows: int, repeat: int, path: str | None) -> dict:
     calls, ctx = make_calls(op, rows, path)
     for fn in calls.values():
         fn()
-    release_pools()
+    gc.collect()
     times: dict[str, list[float]] = {impl: [] for impl in calls}
     cpu: dict[str, list[float]] = {impl: [] for impl in calls}
     for _ in range(repeat):
@@ -383,6 +383,11 @@ def _load_average() -> str:
         return f"{os.getloadavg()[0]:.1f}"
     except OSError:
         return "?"
+
+
+def _size_flags(quick: bool, rows: int | None) -> str:
+    flags = " --quick" if quick else ""
+    return flags + (f" --rows {rows}" if rows is not None else "")
 
 
 def _fmt_ratio(ratio: float) -> str:
@@ -527,11 +532,11 @@ def main(argv: list[str] | None = None) -> int:
             "timings are interleaved so both sides see the same load",
             f"- data: {rows:,} rows x {N_COLS} float columns (seed {SEED}); CSV with an integer `id` column, "
             f"values rounded to {DECIMALS} decimals",
-            f"- command: `python benchmarks/bench_foundation.py{' --rows ' + str(rows) if rows != FULL_ROWS else ''}"
+            f"- command: `python benchmarks/bench_foundation.py{_size_flags(args.quick, args.rows)}"
             f"{' --repeat ' + str(args.repeat) if args.repeat != 3 else ''}`",
             "",
         ]
-        Path(out).write_text("\n".join(header) + table + "\n", encoding="utf-8")
+        Path(out).write_text("\n".join(header) + "\n" + table + "\n", encoding="utf-8")
         print(f"\nwrote {out}")
 
     missed = [r["label"] for r in results if r["target"] is not None and r["ratio"] > r["target"]]

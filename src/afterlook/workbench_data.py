@@ -302,8 +302,6 @@ class EvidenceRow:
     conditional_z: float | None
     reading: str  # z in words, e.g. "very low"
     relation: str  # conditional z in words, "" when unremarkable or not a full model
-    bar_cells: int
-    bar_overflow: bool
     transform: str  # the recipe's transform of this feature, "" if none
 
 
@@ -362,7 +360,7 @@ def standing(label: bool | None, flagged: bool, log_density: float) -> str:
     return "false alarm: labelled normal, flagged" if flagged else "normal: labelled normal, not flagged"
 
 
-def case_evidence(session: Session, case_id: str, half: int = 6) -> EvidenceView:
+def case_evidence(session: Session, case_id: str) -> EvidenceView:
     """Per-feature evidence for a case; the numbers equal :func:`afterlook.api.explain`'s.
 
     Uses the session's scoring instead of re-scoring every case. ``share`` is
@@ -382,10 +380,9 @@ def case_evidence(session: Session, case_id: str, half: int = 6) -> EvidenceView
     rows = []
     for f in ev:
         share = 100.0 * f.contribution / total if total != 0 and math.isfinite(f.contribution) else math.nan
-        cells, over = bar_cells(f.z, half)
         t = model.recipe.transforms.get(f.name)
         rows.append(EvidenceRow(f.name, f.value, f.z, f.percentile, f.contribution, share, f.conditional_z,
-                                reading(f.z), relation_words(f.z, f.conditional_z), cells, over,
+                                reading(f.z), relation_words(f.z, f.conditional_z),
                                 t.describe(f.name) if t is not None else ""))
     rows.sort(key=lambda r: r.contribution if math.isfinite(r.contribution) else 0.0)
     full = any(f.conditional_z is not None for f in ev)

@@ -391,8 +391,9 @@ class Table:
     def row_index(self, case_id: str) -> int:
         """Row position of *case_id* (the first row when ids repeat)."""
         if self._first_row is None:
-            ids = pd.Index(self.ids)
-            first = ~ids.duplicated(keep="first")
+            # object dtype: pandas 3 would otherwise convert a million Python
+            # strings to its arrow string type before hashing them
+            first = ~pd.Series(self.ids, dtype=object).duplicated(keep="first").to_numpy()
             self._first_row = dict(zip(self.ids[first].tolist(), np.flatnonzero(first).tolist()))
         key = str(case_id)
         try:
@@ -579,7 +580,12 @@ def _build_table(frame: pd.DataFrame, name: str, *, id_col, label_col, require_l
 
     warnings: list[str] = []
     ids = _make_ids(frame, id_name, name)
-    dup = pd.Index(ids).duplicated(keep="first") if id_name is not None else None
+    if id_name is None:
+        dup = None
+    elif pd.api.types.is_integer_dtype(frame[id_name]):
+        dup = frame[id_name].duplicated(keep="first").to_numpy()
+    else:
+        dup = pd.Series(ids, dtype=object).duplicated(keep="first").to_numpy()
     n_dup = int(dup.sum()) if dup is not None else 0
     if n_dup:
         example = ids[dup][0]
@@ -821,7 +827,7 @@ def _csv_batches(
     if not compressed and b"\x00" in head:
         raise _fail(f"cannot read {name}: it looks like a binary file, not CSV text")
     parse = pacsv.ParseOptions(delimiter=delimiter)
-    read = pacsv.ReadOptions(block_size=1 << 24)
+    read = pacsv.ReadOptions()
     try:
         probe = pacsv.open_csv(name, read_options=pacsv.ReadOptions(block_size=1 << 16), parse_options=parse)
         have = _schema_names(name, probe.schema)
@@ -894,36 +900,36 @@ def _parquet_batches(
     return gen()
 
 
-def _to_float_array(table: pa.Table, columns: list[str]) -> np.ndarray:
-    out = np.empty((table.num_rows, len(columns)), dtype=np.float64)
-    for j, col in enumerate(columns):
-        values = table.column(col)
-        if values.type != pa.float64():
-            values = pc.cast(values, pa.float64())
-        out[:, j] = values.to_numpy()
-    return out
-
-
 def _rechunk(
     name: str, batches: Iterator[pa.RecordBatch], columns: list[str], chunk_rows: int
 ) -> Iterator[np.ndarray]:
-    pending: list[pa.RecordBatch] = []
-    n_pending = 0
+    """Copy each batch's columns straight into a column-major chunk buffer
+    (one copy per value; chunks are Fortran-ordered)."""
+    d = len(columns)
+    buf = np.empty((chunk_rows, d), order="F")
+    fill = 0
     total = 0
     for batch in batches:
         if batch.num_rows == 0:
             continue
-        pending.append(batch)
-        n_pending += batch.num_rows
-        while n_pending >= chunk_rows:
-            table = pa.Table.from_batches(pending)
-            yield _to_float_array(table.slice(0, chunk_rows), columns)
-            total += chunk_rows
-            rest = table.slice(chunk_rows)
-            pending = [b for b in rest.to_batches() if b.num_rows]
-            n_pending = rest.num_rows
-    if n_pending:
-        yield _to_float_array(pa.Table.from_batches(pending), columns)
-        total += n_pending
+        arrays = []
+        for col in columns:
+            a = batch.column(col)
+            arrays.append(a if a.type == pa.float64() else pc.cast(a, pa.float64()))
+        start = 0
+        while start < batch.num_rows:
+            take = min(chunk_rows - fill, batch.num_rows - start)
+            for j, a in enumerate(arrays):
+                buf[fill:fill + take, j] = a.slice(start, take).to_numpy(zero_copy_only=False)
+            fill += take
+            start += take
+            if fill == chunk_rows:
+                yield buf
+                total += fill
+                buf = np.empty((chunk_rows, d), order="F")
+                fill = 0
+    if fill:
+        yield buf[:fill]
+        total += fill
     if total == 0:
         raise _fail(f"{name} has a header but no rows")

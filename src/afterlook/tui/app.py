@@ -20,7 +20,7 @@ from textual import on, work
 from textual.app import App
 from textual.binding import Binding
 from textual.theme import Theme
-from textual.widgets import TabbedContent
+from textual.widgets import Input, TabbedContent
 from textual.worker import get_current_worker
 
 from .. import workbench_data as wd
@@ -92,7 +92,6 @@ class WorkbenchApp(App[int]):
         # histogram
         self.hist_source: wd.HistogramSource | None = None
         self.hist_shaped = False
-        self.hist_bins = 60
         self.histogram: wd.HistogramView | None = None
         # the last try
         self.trial = None
@@ -153,7 +152,8 @@ class WorkbenchApp(App[int]):
                                  text=self.filter_text)
         landed = self.case_list.show(
             self.rows, selected=self.selected_case, book=self.book_ids, flips=self._flips(), counts=self.counts,
-            near=self.show_near, false_alarms=self.show_false_alarms, filter_text=self.filter_text)
+            near=self.show_near, false_alarms=self.show_false_alarms, filter_text=self.filter_text,
+            book_file=os.path.basename(self.session.casebook_path), book_loaded=self.book_loaded)
         if landed is not None and landed != self.selected_case:
             self.select_case(landed)
 
@@ -207,6 +207,12 @@ class WorkbenchApp(App[int]):
         if self.zoomed:
             self.action_zoom()
         self.case_list.focus_table()
+
+    def check_action(self, action: str, parameters: tuple[object, ...]) -> bool | None:
+        # "esc: back to the list" is offered (and shown in the footer) only while typing in a box
+        if action == "leave_input":
+            return isinstance(self.focused, Input)
+        return True
 
     def action_toggle_near(self) -> None:
         self.show_near = not self.show_near
@@ -355,6 +361,7 @@ class WorkbenchApp(App[int]):
             self.try_panel.set_expression_status(False, exc.message)
             self.bell()
             return
+        self.case_list.focus_table()  # the keys work again; t comes back to the (kept) text
         self.start_trial({name: expr}, f"{name} = {expr}")
 
     def start_trial(self, derive: dict[str, str], label: str) -> None:
@@ -430,10 +437,9 @@ class WorkbenchApp(App[int]):
         self.action_toggle_shaped()
 
     def on_histogram_resized(self, message: msg.HistogramResized) -> None:
-        if message.bins != self.hist_bins:
-            self.hist_bins = message.bins
-            if self.tabs.active == "histogram" and self.histogram is not None:
-                self.request_histogram()
+        h = self.histogram
+        if self.tabs.active == "histogram" and h is not None and h.counts.bins != message.bins:
+            self.request_histogram()
 
     def _ensure_histogram(self) -> None:
         h = self.histogram
@@ -442,12 +448,16 @@ class WorkbenchApp(App[int]):
 
     def request_histogram(self) -> None:
         case = self.selected_case
-        if case is None:
+        if case is None or self.tabs.active != "histogram":
+            return
+        panel = self.histogram_panel
+        if panel.size.width == 0:  # its tab has just opened: ask again once it is laid out
+            self.call_after_refresh(self.request_histogram)
             return
         if self.hist_source is None:
             self.hist_source = wd.HistogramSource("feature", self.feature or self.session.model.features[0])
-        self.histogram_panel.loading(self.hist_source.label)
-        self.run_histogram(self.hist_source, case, self.hist_shaped, self.hist_bins)
+        panel.loading(self.hist_source.label)
+        self.run_histogram(self.hist_source, case, self.hist_shaped, panel.bins)
 
     @work(thread=True, exclusive=True, group="histogram")
     def run_histogram(self, source: wd.HistogramSource, case_id: str, shaped: bool, bins: int) -> None:
@@ -489,7 +499,6 @@ class WorkbenchApp(App[int]):
     def on_casebook_loaded(self, message: msg.CasebookLoaded) -> None:
         self.book_ids = set(message.case_ids)
         self.book_loaded = True
-        self.workbench.query_one(StatusLine).book_entries = len(self.book_ids)
         self.refresh_cases()
 
     def action_save_case(self) -> None:
@@ -537,7 +546,6 @@ class WorkbenchApp(App[int]):
     def on_casebook_saved(self, message: msg.CasebookSaved) -> None:
         self.saving = False
         self.book_ids.add(message.case_id)
-        self.workbench.query_one(StatusLine).book_entries = len(self.book_ids)
         self.refresh_cases()
         self.notify(f"saved {message.case_id} as {message.status} to {os.path.basename(self.session.casebook_path)}",
                     title="casebook")

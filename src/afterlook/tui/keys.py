@@ -20,15 +20,15 @@ class Key:
 WORKBENCH_KEYS: tuple[Key, ...] = (
     Key("", "up / down", "", "move through the list that has the focus (cases, evidence, candidates)", False),
     Key("", "tab / shift+tab", "", "move the focus between the filter, the lists and the inputs", False),
-    Key("slash", "/", "filter", "filter"),
-    Key("escape", "escape", "leave_input", "leave the filter or the expression, back to the case list", False),
-    Key("n", "n", "toggle_near", "near catches"),
-    Key("f", "f", "toggle_false_alarms", "false alarms"),
+    Key("slash", "/", "filter", "filter", False),  # the filter row itself says "filter /"
+    Key("escape", "esc", "leave_input", "back to the list"),  # shown only while typing (App.check_action)
+    Key("n", "n", "toggle_near", "near"),
+    Key("f", "f", "toggle_false_alarms", "alarms"),
     Key("e", "e", "show_tab('evidence')", "evidence", False),
     Key("c", "c", "candidates", "candidates"),
     Key("a", "a", "apply_candidate", "apply"),
     Key("", "enter", "", "on a candidate: apply it (re-fit and re-score)", False),
-    Key("t", "t", "type_expression", "try expr"),
+    Key("t", "t", "type_expression", "try"),
     Key("h", "h", "histogram", "histogram"),
     Key("s", "s", "toggle_shaped", "shaped", False),
     Key("left_square_bracket", "[", "histogram_step(-1)", "previous feature in the histogram", False),
@@ -41,16 +41,17 @@ WORKBENCH_KEYS: tuple[Key, ...] = (
 
 HELP_WORDS = {
     "filter": "filter the case list by text (id, kind or any context column)",
-    "near catches": "show near catches: labelled anomalies flagged by a small margin",
-    "false alarms": "show false alarms: cases labelled normal that are flagged",
+    "near": "show or hide near catches: labelled anomalies flagged by a small margin",
+    "alarms": "show or hide false alarms: cases labelled normal that are flagged",
     "evidence": "evidence tab: per-feature z, percentile, share of log-density",
     "candidates": "candidates tab; starts the search for the selected case if none ran",
     "apply": "apply the highlighted candidate (the top one if none is highlighted)",
-    "try expr": "type your own derived feature (NAME = EXPR or EXPR), enter to try it",
+    "try": "type your own derived feature (NAME = EXPR or EXPR), enter to try it",
     "histogram": "histogram of the highlighted feature or candidate",
     "shaped": "histogram: switch between plain and shaped (the transform shape picks)",
     "save": "save the selected case to the casebook (status and note)",
     "zoom": "hide or show the case list, for more room below",
+    "back to the list": "leave the filter or the expression box, back to the case list",
     "help": "this help",
     "quit": "quit (also ctrl+q)",
 }

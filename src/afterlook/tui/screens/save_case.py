@@ -39,15 +39,17 @@ class SaveCaseScreen(ModalScreen[SaveRequest | None]):
             if self.already:
                 yield Label("this case is already in the casebook; saving updates its entry", id="save-already")
             yield Label("status")
-            yield Select([(s, s) for s in self.statuses], value=self.status, allow_blank=False, id="save-status")
+            yield Select([(s, s) for s in self.statuses], value=self.status, allow_blank=False, id="save-status",
+                         compact=True)
             if self.derive is not None:
                 name, expr = self.derive
-                yield Checkbox(f"record the tried feature {name} = {expr}", value=True, id="save-derive")
+                yield Checkbox(f"record the tried feature {name} = {expr}", value=True, id="save-derive",
+                               compact=True)
             yield Label("note (enter saves)")
-            yield Input(placeholder="what was decided, and why", id="save-note")
+            yield Input(placeholder="what was decided, and why", id="save-note", compact=True)
             with Horizontal(id="save-buttons"):
-                yield Button("save", variant="primary", id="save-ok")
-                yield Button("cancel", id="save-cancel")
+                yield Button("save", variant="primary", id="save-ok", compact=True)
+                yield Button("cancel", id="save-cancel", compact=True)
 
     def on_mount(self) -> None:
         self.query_one("#save-note", Input).focus()

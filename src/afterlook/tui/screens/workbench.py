@@ -22,6 +22,9 @@ class WorkbenchScreen(Screen):
     """Lays the widgets out; every key runs an App action (the App owns the state)."""
 
     BINDINGS = bindings()
+    # classes for the stylesheet: -narrow under 100 columns, -short under 30 rows
+    HORIZONTAL_BREAKPOINTS = [(0, "-narrow"), (100, "-wide")]
+    VERTICAL_BREAKPOINTS = [(0, "-short"), (30, "-tall")]
 
     def __init__(self, context_columns: dict[str, int], case_width: int = 22, **kwargs) -> None:
         super().__init__(**kwargs)
@@ -40,7 +43,7 @@ class WorkbenchScreen(Screen):
                 yield HistogramPanel(id="histogram-panel")
             with TabPane("try \\[t]", id="try"):
                 yield TryPanel(id="try-panel")
-        yield Footer(show_command_palette=False)
+        yield Footer(show_command_palette=False, compact=True)
 
     def on_mount(self) -> None:
         self.post_message(WorkbenchReady())

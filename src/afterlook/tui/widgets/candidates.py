@@ -12,8 +12,10 @@ from .. import format as fmt
 from ..messages import CandidateChosen, CandidateHighlighted
 
 VERDICT_WIDTH = 25
-# the columns other than the expression, with two cells of padding each, and the scrollbar
-FIXED_COLUMNS = 2 + 6 + 8 + 6 + 6 + 4 + VERDICT_WIDTH + 2 * 8 + 2
+NARROW_VERDICT_WIDTH = 9
+NARROW = 100  # panel width below which the verdict column is cut short
+# the columns other than the expression and the verdict, two cells of padding each, and the scrollbar
+FIXED_COLUMNS = 2 + 6 + 8 + 6 + 6 + 4 + 2 * 8 + 2
 
 LEGEND = ("case z: robust z of the case among normal rows · adj tail: chance of a value this extreme, adjusted "
           "for every candidate tried · others: other labelled anomalies it separates · caught: target misses "
@@ -34,6 +36,7 @@ class CandidatesPanel(Vertical):
             yield ProgressBar(total=100, show_eta=False, id="cand-progress")
             yield Static("", id="cand-stage")
         yield DataTable(id="cand-table", cursor_type="row", zebra_stripes=True)
+        yield Static("", id="cand-detail")
         yield Static("", id="cand-verdict")
         yield Static(LEGEND, id="cand-legend")
 
@@ -48,6 +51,7 @@ class CandidatesPanel(Vertical):
         self.query_one("#cand-head", Static).update(Text(message, style=self._style("candidates--dim")))
         self._progress_visible(False)
         self.query_one("#cand-table", DataTable).clear(columns=True)
+        self.query_one("#cand-detail", Static).update("")
         self.query_one("#cand-verdict", Static).update("")
 
     def running(self, case_id: str) -> None:
@@ -57,6 +61,7 @@ class CandidatesPanel(Vertical):
         self.query_one("#cand-progress", ProgressBar).update(total=100, progress=0)
         self.query_one("#cand-stage", Static).update("starting")
         self.query_one("#cand-table", DataTable).clear(columns=True)
+        self.query_one("#cand-detail", Static).update("")
         self.query_one("#cand-verdict", Static).update("")
 
     def progress(self, stage: str, fraction: float) -> None:
@@ -77,14 +82,16 @@ class CandidatesPanel(Vertical):
         self.query_one("#cand-head", Static).update(head)
         table = self.query_one("#cand-table", DataTable)
         width = max(self.size.width, 60)
-        expr_width = max(12, width - FIXED_COLUMNS)
+        narrow = width < NARROW
+        verdict_width = NARROW_VERDICT_WIDTH if narrow else VERDICT_WIDTH
+        expr_width = max(12, width - FIXED_COLUMNS - verdict_width)
         finding, chance = self._style("candidates--finding"), self._style("candidates--chance")
         n_targets = len(result.cases)
         with table.prevent(DataTable.RowHighlighted):
             table.clear(columns=True)
             for label, key, w in (("#", "rank", 2), ("expression", "expr", expr_width), ("case z", "z", 6),
                                   ("adj tail", "tail", 8), ("others", "others", 6), ("caught", "caught", 6),
-                                  ("+FA", "fa", 4), ("verdict", "verdict", VERDICT_WIDTH)):
+                                  ("+FA", "fa", 4), ("verdict", "verdict", verdict_width)):
                 right = key not in ("expr", "verdict")
                 table.add_column(Text(label, justify="right") if right else label, key=key, width=w)
             for k, c in enumerate(result.candidates):
@@ -98,9 +105,11 @@ class CandidatesPanel(Vertical):
                     Text(f"{c.other_anomalies_separated}/{c.other_anomalies}", justify="right"),
                     Text(caught, justify="right"),
                     Text(fmt.count_change(c.false_alarms_added), justify="right"),
-                    Text(("✓ " if c.beyond_chance else "? ") + words, style=finding if c.beyond_chance else chance),
+                    Text(fmt.clip(("✓ " if c.beyond_chance else "? ") + words, verdict_width),
+                         style=finding if c.beyond_chance else chance),
                     key=str(k),
                 )
+        self._detail(0)
         verdict = Text()
         verdict.append("verdict: ", style="bold")
         verdict.append(result.verdict(), style=finding if result.any_beyond_chance else chance)
@@ -123,9 +132,24 @@ class CandidatesPanel(Vertical):
     def focus_table(self) -> None:
         self.query_one("#cand-table", DataTable).focus()
 
+    def _detail(self, index: int) -> None:
+        """The highlighted candidate in full: the table cuts long expressions."""
+        detail = self.query_one("#cand-detail", Static)
+        if self.result is None or not 0 <= index < len(self.result.candidates):
+            detail.update("")
+            return
+        c = self.result.candidates[index]
+        t = Text()
+        t.append(f"{index + 1}: {c.name} = ", style="bold")
+        t.append(c.expression)
+        t.append(f"  ({candidate_verdict(c)})", style=self._style("candidates--finding" if c.beyond_chance
+                                                                   else "candidates--chance"))
+        detail.update(t)
+
     def on_data_table_row_highlighted(self, event: DataTable.RowHighlighted) -> None:
         event.stop()
         if self.result is not None and event.row_key is not None and event.row_key.value is not None:
+            self._detail(int(event.row_key.value))
             self.post_message(CandidateHighlighted(int(event.row_key.value)))
 
     def on_data_table_row_selected(self, event: DataTable.RowSelected) -> None:

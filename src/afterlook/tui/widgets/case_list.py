@@ -11,7 +11,7 @@ from .. import format as fmt
 from ..messages import CaseHighlighted, FilterChanged
 
 KIND_WORDS = {"miss": "miss", "near catch": "near catch", "false alarm": "false alarm"}
-CONTEXT_WIDTH = 20  # at most this many characters of a context value; the rest is cut with an ellipsis
+CONTEXT_WIDTH = 18  # at most this many characters of a context value; the rest is cut with an ellipsis
 
 
 def context_widths(frame, columns) -> dict[str, int]:
@@ -66,7 +66,8 @@ class CaseList(Vertical):
         return self.get_component_rich_style(name, partial=True)
 
     def show(self, rows, *, selected: str | None, book: set[str], flips: dict[str, str], counts: dict,
-             near: bool, false_alarms: bool, filter_text: str) -> str | None:
+             near: bool, false_alarms: bool, filter_text: str, book_file: str = "",
+             book_loaded: bool = True) -> str | None:
         """Replace the rows; keep the cursor on ``selected`` when it is still listed.
 
         Returns the case the cursor ends on (None when the list is empty).
@@ -89,16 +90,20 @@ class CaseList(Vertical):
             target = self.case_ids.index(selected) if selected in self.case_ids else 0
             if rows:
                 table.move_cursor(row=target, animate=False)
-        self._describe(len(rows), counts, near, false_alarms, filter_text)
+        self._describe(len(rows), counts, near, false_alarms, filter_text,
+                       f"{book_file}: {len(book) if book_loaded else '…'} [book]")
         return self.case_ids[target] if rows else None
 
-    def _describe(self, n_shown: int, counts: dict, near: bool, false_alarms: bool, filter_text: str) -> None:
+    def _describe(self, n_shown: int, counts: dict, near: bool, false_alarms: bool, filter_text: str,
+                  book_words: str) -> None:
         text = Text(no_wrap=True, overflow="ellipsis")
         text.append(f"{counts.get('miss', 0)} misses", style=self._style("cases--miss"))
         text.append(" · ")
         text.append(f"near catches {'shown' if near else 'hidden'} ({counts.get('near catch', 0)}) [n]")
         text.append(" · ")
         text.append(f"false alarms {'shown' if false_alarms else 'hidden'} ({counts.get('false alarm', 0)}) [f]")
+        text.append(" · ")
+        text.append(book_words, style=self._style("cases--book"))
         if filter_text.strip():
             text.append(f" · filter '{filter_text.strip()}': {n_shown} shown", style=self._style("cases--dim"))
         elif n_shown == 0:

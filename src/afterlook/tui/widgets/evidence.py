@@ -1,4 +1,9 @@
-"""Evidence for the selected case: per feature a signed z bar, percentile, share of log-density."""
+"""Evidence for the selected case: per feature a signed z bar, percentile, share of log-density.
+
+Every number comes from :func:`afterlook.workbench_data.case_evidence` (the
+same values ``afterlook explain`` prints); the bar length from
+:func:`afterlook.workbench_data.bar_cells`. The layout narrows with the panel.
+"""
 
 from __future__ import annotations
 
@@ -9,29 +14,32 @@ from textual.app import ComposeResult
 from textual.containers import Vertical
 from textual.widgets import DataTable, Static
 
+from ...workbench_data import bar_cells
 from .. import format as fmt
 from ..messages import FeatureHighlighted
 
-BAR_HALF = 6  # cells each side of the zero line
+WIDE_BAR_HALF = 6  # cells each side of the zero line on a wide panel
+NARROW_BAR_HALF = 4
+NARROW = 96  # panel width below which columns shrink
 
 
-def signed_bar(row, style_low, style_high, half: int = BAR_HALF) -> Text:
+def signed_bar(z, half: int, style_low, style_high) -> Text:
     """``-███│`` below the normal mean, ``│███+`` above; ``◂``/``▸`` past the scale.
 
     The sign is drawn as a character, so the direction reads without colour.
     """
-    cells, over = row.bar_cells, row.bar_overflow
     text = Text(no_wrap=True)
-    if row.z is None or not math.isfinite(row.z):
+    if z is None or not math.isfinite(z):
         text.append(" " * half + "?" + " " * half)
         return text
-    if row.z < 0 and cells:
+    cells, over = bar_cells(z, half)
+    if z < 0 and cells:
         text.append(" " * (half - cells))
         text.append(("◂" if over else "-") + "█" * (cells - 1), style=style_low)
     else:
         text.append(" " * half)
     text.append("│")
-    if row.z > 0 and cells:
+    if z > 0 and cells:
         text.append("█" * (cells - 1) + ("▸" if over else "+"), style=style_high)
         text.append(" " * (half - cells))
     else:
@@ -47,40 +55,50 @@ class EvidencePanel(Vertical):
         super().__init__(**kwargs)
         self.view = None
         self.feature_names: list[str] = []
+        self._drawn_narrow: bool | None = None
 
     def compose(self) -> ComposeResult:
         yield Static("select a case", id="evidence-head")
+        yield Static("", id="evidence-context")
         yield DataTable(id="evidence-table", cursor_type="row", zebra_stripes=True)
         yield Static("", id="evidence-legend")
 
     def _style(self, name: str):
         return self.get_component_rich_style(name, partial=True)
 
+    @property
+    def narrow(self) -> bool:
+        return self.size.width < NARROW
+
+    def on_resize(self) -> None:
+        if self.view is not None and self.narrow != self._drawn_narrow:
+            self.show(self.view)
+
     def show(self, view) -> None:
         """Draw an :class:`~afterlook.workbench_data.EvidenceView`."""
         self.view = view
+        narrow = self._drawn_narrow = self.narrow
         ex = view.explain
-        head = Text(no_wrap=False)
+        head = Text(no_wrap=True, overflow="ellipsis")
         head.append(ex.case, style="bold")
         head.append("  ")
         head.append(view.standing, style=self._style("evidence--flagged" if ex.flagged else "evidence--miss"))
-        head.append(f"  ({ex.model_kind} model)", style=self._style("evidence--dim"))
-        head.append(f"\nlog-density {fmt.num(ex.log_density)} vs threshold {fmt.num(ex.threshold)}: margin "
-                    f"{fmt.signed(ex.margin, 3)} ({'below: flagged' if ex.flagged else 'above: not flagged'})")
-        ctx = "  ".join(f"{k} {v}" for k, v in ex.context.items() if v)
-        if ctx:
-            head.append("\n" + ctx, style=self._style("evidence--dim"))
+        head.append(f"\nlog-density {fmt.num(ex.log_density)} vs threshold {fmt.num(ex.threshold)}, margin "
+                    f"{fmt.signed(ex.margin, 3)}: {'flagged' if ex.flagged else 'not flagged'}")
         self.query_one("#evidence-head", Static).update(head)
+        context = Text(no_wrap=True, overflow="ellipsis", style=self._style("evidence--dim"))
+        context.append("  ".join([f"{ex.model_kind} model"] + [f"{k} {v}" for k, v in ex.context.items() if v]))
+        self.query_one("#evidence-context", Static).update(context)
 
+        half = NARROW_BAR_HALF if narrow else WIDE_BAR_HALF
         table = self.query_one("#evidence-table", DataTable)
-        keep = self.feature_names[table.cursor_row] if self.feature_names and 0 <= table.cursor_row < len(
-            self.feature_names) else None
+        keep = self.highlighted_feature
         with table.prevent(DataTable.RowHighlighted):
             table.clear(columns=True)
-            name_width = min(max([len(r.name) + 2 for r in view.rows] + [8]), 28)
+            name_width = min(max([len(r.name) + 2 for r in view.rows] + [8]), 16 if narrow else 28)
             table.add_column("feature", key="feature", width=name_width)
-            table.add_column(Text("value", justify="right"), key="value", width=9)
-            table.add_column(Text("low │ high", justify="center"), key="bar", width=2 * BAR_HALF + 1)
+            table.add_column(Text("value", justify="right"), key="value", width=7 if narrow else 9)
+            table.add_column(Text("low│high", justify="center"), key="bar", width=2 * half + 1)
             table.add_column(Text("z", justify="right"), key="z", width=6)
             table.add_column("reads", key="reads", width=13)
             table.add_column(Text("pct", justify="right"), key="pct", width=6)
@@ -91,12 +109,11 @@ class EvidencePanel(Vertical):
             low, high = self._style("evidence--low"), self._style("evidence--high")
             extreme = self._style("evidence--extreme")
             for r in view.rows:
-                name = r.name + (" *" if r.transform else "")
                 strong = r.reading.startswith("very")
                 cells = [
-                    fmt.clip(name, name_width),
+                    fmt.clip(r.name + (" *" if r.transform else ""), name_width),
                     Text(fmt.short(r.value), justify="right"),
-                    signed_bar(r, low + extreme if strong else low, high + extreme if strong else high),
+                    signed_bar(r.z, half, low + extreme if strong else low, high + extreme if strong else high),
                     Text(fmt.signed(r.z), justify="right"),
                     Text(r.reading, style=extreme if strong else None),
                     Text(fmt.percent(r.percentile), justify="right"),

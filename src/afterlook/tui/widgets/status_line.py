@@ -17,7 +17,6 @@ class StatusLine(Static):
     COMPONENT_CLASSES = {"status--brand", "status--strong", "status--dim", "status--miss", "status--alarm"}
 
     summary = reactive(None, layout=True)
-    book_entries = reactive(None)
 
     def render(self) -> Text:
         s = self.summary
@@ -40,10 +39,9 @@ class StatusLine(Static):
         ]
         counts_short = counts_long[:4] + [
             (f"prec {fmt.num(s.precision)} rec {fmt.num(s.recall)} F1 {fmt.num(s.f1)}", "status--strong")]
-        book = self.book_entries
-        tail = [(f"book {s.casebook_file}: {'…' if book is None else book}", "status--dim")]
+        tail = []
         if s.n_unscored:
-            tail.insert(0, (f"{s.n_unscored} anomalies not scored (NaN)", "status--alarm"))
+            tail.append((f"{s.n_unscored} anomalies not scored (NaN)", "status--alarm"))
         counts = counts_long + tail
         if _length(counts) > width:
             counts = counts_short + tail

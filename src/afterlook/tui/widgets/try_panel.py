@@ -29,8 +29,8 @@ class TryPanel(VerticalScroll):
         yield Static("apply a candidate (a) or type an expression (t), then enter: the model is re-fitted with "
                      "the feature, the threshold re-picked by the same policy and every case re-scored.",
                      id="trial-head")
-        yield Static("", id="trial-metrics")
         yield Static("", id="trial-case")
+        yield Static("", id="trial-metrics")
         yield Static("", id="trial-flips")
 
     def _style(self, name: str):
@@ -97,6 +97,7 @@ class TryPanel(VerticalScroll):
         case = Text()
         c = view.case
         if c is not None:
+            case.append("\n")
             case.append(f"{c.case}: ", style="bold")
             case.append(f"log-density {fmt.num(c.log_density_before)} vs threshold {fmt.num(view.threshold_before)} "
                         f"(margin {fmt.signed(view.margin_before, 3)}, {'flagged' if c.flagged_before else 'not flagged'})")
@@ -116,3 +117,6 @@ class TryPanel(VerticalScroll):
             if len(rows) > FLIPS_SHOWN:
                 flips.append(f"\n  … {len(rows) - FLIPS_SHOWN} more", style=self._style("try--dim"))
         self.query_one("#trial-flips", Static).update(flips)
+        # on a short screen the comparison starts below the expression box: bring it into view
+        self.call_after_refresh(self.scroll_to_widget, self.query_one("#trial-head", Static), top=True,
+                                animate=False)
