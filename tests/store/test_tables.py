@@ -751,3 +751,16 @@ def test_chunks_parquet_int_and_bool_columns(tmp_path):
     pd.DataFrame({"i": pd.array([1, None, 3], dtype="Int64"), "b": [True, False, True]}).to_parquet(q)
     out = np.vstack(list(iter_numeric_chunks(q, ["i", "b"], chunk_rows=2)))
     np.testing.assert_array_equal(out, [[1.0, 1.0], [np.nan, 0.0], [3.0, 1.0]])
+
+
+def test_random_bytes_without_nul_are_called_binary_and_never_echoed(tmp_path):
+    # Random bytes (seeded) with every NUL removed: the message must be the
+    # plain "binary file" line, with no raw bytes of the file in it.
+    rng = np.random.default_rng(5)
+    data = bytes(b for b in rng.integers(0, 256, size=600, dtype=np.uint8).tolist() if b != 0)
+    p = tmp_path / "junk.csv"
+    p.write_bytes(data)
+    with pytest.raises(AfterlookError) as info:
+        load_table(str(p))
+    assert "binary" in info.value.message
+    assert all(ch.isprintable() for ch in info.value.message)

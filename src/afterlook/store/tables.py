@@ -119,7 +119,21 @@ def _short(value: Any, width: int = 40) -> str:
 
 def _arrow_message(exc: BaseException) -> str:
     text = " ".join(str(exc).split())
+    # Never echo raw bytes of a damaged file into the user's terminal.
+    text = "".join(ch if ch.isprintable() and ord(ch) != 0xFFFD else "?" for ch in text)
     return text if len(text) <= 200 else text[:197] + "..."
+
+
+def _looks_binary(head: bytes) -> bool:
+    """True for bytes no text table starts with: NUL, or mostly undecodable/control bytes."""
+    if b"\x00" in head:
+        return True
+    sample = head[:4096]
+    if not sample:
+        return False
+    text = sample.decode("utf-8", errors="replace")
+    bad = sum(1 for ch in text if ch == "\ufffd" or (not ch.isprintable() and ch not in "\r\n\t"))
+    return bad > max(8, len(text) // 20)
 
 
 def _display(path: str | os.PathLike[str]) -> str:
@@ -236,7 +250,7 @@ def _probe_csv_types(name: str, delimiter: str) -> dict[str, pa.DataType] | None
 
 
 def _read_csv(name: str, head: bytes, delimiter: str, compressed: bool) -> pa.Table:
-    if not compressed and b"\x00" in head:
+    if not compressed and _looks_binary(head):
         raise _fail(f"cannot read {name}: it looks like a binary file, not CSV text")
     types = _probe_csv_types(name, delimiter)
     newlines = False
