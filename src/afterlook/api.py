@@ -94,7 +94,10 @@ def fit(
     if recipe is None:
         recipe = _build_recipe(table, normal_frame, columns, derive, transform, warnings)
     columns_map = _numeric_columns(normal_frame, recipe.required_columns())
-    recipe = recipe.fit(columns_map)
+    # Lambdas are fitted on the rows whose raw inputs are all finite (the
+    # rows a streamed fit sees too), so both engines give the same recipe.
+    raw_ok = np.all(np.column_stack([np.isfinite(v) for v in columns_map.values()]), axis=1)
+    recipe = recipe.fit({k: v[raw_ok] for k, v in columns_map.items()})
     fm = recipe.apply(columns_map)
     finite = fm.finite_rows
     dropped = int((~finite).sum())
@@ -416,3 +419,111 @@ def shape(df, columns=None, *, statistic: str = "dagostino", sample_size: int = 
 
 
 __all__ += ["shape", "ShapeReport"]
+
+
+# --------------------------------------------------------------------------
+# streamed fit (files larger than memory; chunked or on a Dask cluster)
+# --------------------------------------------------------------------------
+
+
+def fit_streamed(
+    train_path,
+    *,
+    engine: str = "chunked",
+    scheduler: str | None = None,
+    chunk_rows: int = 262_144,
+    cases=None,
+    kind: str = "full",
+    shrinkage=None,
+    derive=None,
+    transform=None,
+    threshold: str | ThresholdPolicy | None = None,
+    columns: list[str] | None = None,
+    id_col: str | None = None,
+    label_col: str | None = None,
+    random_state: int = 0,
+) -> Model:
+    """Fit from a training file without loading it whole.
+
+    The Gaussian's parameters equal those of :func:`fit` on the same rows
+    (they come from mergeable counts, means and scatter matrices); the
+    quantile grid for percentiles, fitted lambdas and a rate threshold on
+    training rows come from a seeded uniform sample of at most 100,000 rows.
+    Every row is used: the file must not have a label column.
+    """
+    from .engines import ENGINES
+    from .engines.local import SAMPLE_ROWS, check_streamable, fit_local
+    from .store.tables import load_head
+
+    if engine not in ENGINES or engine == "memory":
+        raise AfterlookError(f"unknown engine '{engine}' for a streamed fit (choose: chunked, dask)")
+    warnings: list[str] = []
+    head = load_head(train_path, id_col=id_col, label_col=label_col)
+    check_streamable(head.label_col, head.path)
+    base = list(columns) if columns else list(head.numeric_columns)
+    unknown = [c for c in base if c not in head.frame.columns]
+    if unknown:
+        raise AfterlookError(f"training table has no column '{unknown[0]}'")
+    not_numeric = [c for c in base if c not in head.numeric_columns]
+    if not_numeric:
+        raise AfterlookError(f"column '{not_numeric[0]}' is not numeric and cannot be modelled")
+    recipe = Recipe(base, _pairs(derive), {n: parse_transform(n, t) for n, t in _pairs(transform)})
+    if engine == "dask":
+        from .engines.dask_engine import fit_dask
+
+        recipe, streamed = fit_dask(train_path, recipe, scheduler=scheduler, random_state=random_state)
+    else:
+        recipe, streamed = fit_local(train_path, recipe, chunk_rows=chunk_rows, random_state=random_state)
+    if streamed.rows_dropped:
+        worst = max(streamed.nan_by_feature, key=streamed.nan_by_feature.get)
+        warnings.append(f"dropped {streamed.rows_dropped} training row(s) with NaN or infinite features "
+                        f"(most in '{worst}': {streamed.nan_by_feature[worst]})")
+    density = GaussianModel(kind=kind, shrinkage=shrinkage).fit_stats(streamed.stats, recipe.features)
+
+    policy = _policy(threshold)
+    case_table = as_table(cases) if cases is not None else None
+    case_ld = case_y = None
+    if case_table is not None and case_table.labels is not None:
+        case_ld = density.log_density(recipe.apply(_numeric_columns(case_table.frame, recipe.required_columns())).values)
+        case_y = case_table.labels
+    if policy is None:
+        if case_y is not None and case_y.any():
+            policy = ThresholdPolicy("f1")
+        else:
+            policy = ThresholdPolicy("rate", DEFAULT_RATE)
+            warnings.append(f"no labelled cases with anomalies: threshold set to flag {DEFAULT_RATE:.0%} of the "
+                            "training rows (estimated on the sample; give --cases or --threshold)")
+    if policy.kind == "f1" and (case_y is None or not case_y.any()):
+        raise AfterlookError("--threshold f1 needs labelled cases with at least one anomaly (--cases FILE)")
+    sample_ld = density.log_density(streamed.sample)
+    value = choose_threshold(policy, case_log_density=case_ld, case_is_anomaly=case_y, normal_log_density=sample_ld)
+    if policy.kind == "value":
+        basis = "given"
+    elif case_y is not None and (policy.kind == "f1" or (~case_y).any()):
+        basis = f"{_name(case_table)} ({len(case_y)} cases, {int(case_y.sum())} labelled anomaly)"
+    else:
+        basis = f"a sample of {streamed.sample.shape[0]} training rows"
+
+    sd = np.sqrt(np.diag(streamed.stats.covariance()))
+    stats = {name: {"mean": float(streamed.stats.mean[j]), "std": float(sd[j]),
+                    "min": float(streamed.minimum[j]), "max": float(streamed.maximum[j])}
+             for j, name in enumerate(recipe.features)}
+    from .core.explain import QUANTILE_POINTS, quantile_grid
+
+    training = {
+        "path": head.path,
+        "sha256": sha256_file(head.path),
+        "rows": int(streamed.rows_total),
+        "rows_used": int(streamed.stats.n),
+        "rows_dropped_nonfinite": int(streamed.rows_dropped),
+        "rows_labelled_anomaly": 0,
+        "columns": stats,
+        "engine": engine,
+        "quantiles_from": f"seeded sample of {streamed.sample.shape[0]} rows (at most {SAMPLE_ROWS})",
+    }
+    return Model(recipe=recipe, density=density, threshold=value, policy=policy, threshold_basis=basis,
+                 training=training, quantiles=quantile_grid(streamed.sample, QUANTILE_POINTS),
+                 warnings=warnings + list(head.warnings))
+
+
+__all__ += ["fit_streamed"]

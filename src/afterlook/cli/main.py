@@ -65,6 +65,10 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--transform", action="append", default=[], metavar="COL=EXPR",
                    help="per-feature transform: an expression over COL, boxcox, yeojohnson, boxcox(0.3) (repeatable)")
     p.add_argument("--threshold", help="f1 | rate:R | value:V (default f1 with labelled cases, else rate:0.01)")
+    p.add_argument("--engine", default="memory",
+                   help="memory (default), chunked (files larger than memory) or dask (a Dask cluster)")
+    p.add_argument("--scheduler", metavar="ADDRESS", help="Dask scheduler address for --engine dask (default: a local cluster)")
+    p.add_argument("--chunk-rows", type=int, default=262_144, help="rows per chunk for --engine chunked")
     _add_table_opts(p)
     _add_common(p)
 
@@ -116,10 +120,25 @@ def cmd_fit(args) -> int:
     derive = [parse_assignment(d, "--derive") for d in args.derive]
     transform = [parse_assignment(t, "--transform") for t in args.transform]
     _check_writable(args.out)
-    train = api.load_table(args.train, id_col=args.id_col, label_col=args.label_col)
     cases = api.load_table(args.cases, id_col=args.id_col, label_col=args.label_col, require_labels=True) if args.cases else None
-    model = api.fit(train, cases=cases, kind=args.kind, robust=args.robust, shrinkage=args.shrinkage,
-                    derive=derive, transform=transform, threshold=args.threshold, columns=args.columns)
+    if args.engine == "memory":
+        if args.scheduler:
+            raise AfterlookError("--scheduler needs --engine dask")
+        train = api.load_table(args.train, id_col=args.id_col, label_col=args.label_col)
+        model = api.fit(train, cases=cases, kind=args.kind, robust=args.robust, shrinkage=args.shrinkage,
+                        derive=derive, transform=transform, threshold=args.threshold, columns=args.columns)
+    else:
+        if args.engine not in ("chunked", "dask"):
+            raise AfterlookError(f"unknown --engine '{args.engine}' (choose: memory, chunked, dask)")
+        if args.robust:
+            raise AfterlookError("--robust needs every row in memory; drop --engine or --robust")
+        if args.chunk_rows < 1:
+            raise AfterlookError("--chunk-rows must be at least 1")
+        model = api.fit_streamed(args.train, engine=args.engine, scheduler=args.scheduler,
+                                 chunk_rows=args.chunk_rows, cases=cases, kind=args.kind,
+                                 shrinkage=args.shrinkage, derive=derive, transform=transform,
+                                 threshold=args.threshold, columns=args.columns, id_col=args.id_col,
+                                 label_col=args.label_col)
     model.save(args.out)
     _warn(model.warnings, args)
     summary = {

@@ -272,12 +272,42 @@ class GaussianModel:
         if self.shrinkage == "ledoit-wolf":
             if self.robust:
                 # Ledoit-Wolf's intensity needs the rows; use the robust support.
-                cov_lw, a = ledoit_wolf_shrink(X[support])
+                _, a = ledoit_wolf_shrink(X[support])
                 cov = shrink_towards_diagonal(cov, a)
             else:
                 cov, a = ledoit_wolf_shrink(X)
             self.shrinkage_ = a
         elif isinstance(self.shrinkage, float) and self.shrinkage > 0:
+            cov = shrink_towards_diagonal(cov, self.shrinkage)
+            self.shrinkage_ = self.shrinkage
+        self.covariance_ = cov
+        self.chol_ = self._cholesky(cov)
+        return self
+
+    def fit_stats(self, stats: SufficientStats, names: list[str]) -> "GaussianModel":
+        """Fit from sufficient statistics (count, mean, scatter) gathered in chunks.
+
+        Gives the same parameters as :meth:`fit` on the same rows. The robust
+        fit and Ledoit-Wolf shrinkage need the rows themselves and are refused.
+        """
+        if self.robust:
+            raise AfterlookError("the robust fit needs every row in memory; fit without --engine, or drop --robust")
+        if self.shrinkage == "ledoit-wolf":
+            raise AfterlookError("Ledoit-Wolf shrinkage needs every row in memory; use a fixed --shrinkage A or no --engine")
+        self.names = list(names)
+        if stats.n < 2:
+            raise AfterlookError(f"nothing to fit on: {stats.n} normal row(s) with finite values; need at least 2")
+        self.mean_ = stats.mean.copy()
+        cov = stats.covariance()
+        var = np.diag(cov).copy()
+        if self.kind == "independent":
+            zero = [self.names[j] for j in np.flatnonzero(~(var > 0))]
+            if zero:
+                raise AfterlookError(f"zero variance in the normal rows for column(s): {', '.join(zero)}")
+            self.covariance_ = np.diag(var)
+            self.chol_ = np.diag(np.sqrt(var))
+            return self
+        if isinstance(self.shrinkage, float) and self.shrinkage > 0:
             cov = shrink_towards_diagonal(cov, self.shrinkage)
             self.shrinkage_ = self.shrinkage
         self.covariance_ = cov

@@ -61,6 +61,7 @@ __all__ = [
     "LABEL_VALUES",
     "Table",
     "load_table",
+    "load_head",
     "table_from_frame",
     "sha256_file",
     "write_table",
@@ -792,6 +793,51 @@ def _first_unconvertible(frame: pd.DataFrame) -> str | None:
 
 
 _CSV_CONVERSION = re.compile(r"In CSV column #(\d+):.*?invalid value '(.*?)'")
+
+
+def load_head(
+    path: str | os.PathLike[str],
+    rows: int = 2000,
+    *,
+    id_col: str | None = None,
+    label_col: str | None = None,
+) -> Table:
+    """The first ``rows`` rows of a table, with the rules of :func:`load_table`.
+
+    Used by the streamed fits to learn the columns (numeric, context, label)
+    of a file too large to load whole.
+    """
+    name, head, size = _check_file(path)
+    kind, delimiter, compressed = _format_of(name, head)
+    try:
+        if kind == "parquet":
+            if not head.startswith(_PARQUET_MAGIC) or size < 12 or _tail_bytes(name, 4) != _PARQUET_MAGIC:
+                raise _fail(f"cannot read {name}: the Parquet file is truncated or damaged")
+            pfile = pq.ParquetFile(name)
+            batch = next(pfile.iter_batches(batch_size=rows), None)
+            arrow = pa.Table.from_batches([batch]) if batch is not None else pfile.schema_arrow.empty_table()
+        else:
+            if not compressed and _looks_binary(head):
+                raise _fail(f"cannot read {name}: it looks like a binary file, not CSV text")
+            reader = pacsv.open_csv(name, read_options=pacsv.ReadOptions(block_size=1 << 20),
+                                    parse_options=pacsv.ParseOptions(delimiter=delimiter))
+            try:
+                batch = reader.read_next_batch()
+            except StopIteration:
+                batch = None
+            reader.close()
+            arrow = pa.Table.from_batches([batch]) if batch is not None else pa.table({})
+            arrow = arrow.slice(0, rows)
+    except AfterlookError:
+        raise
+    except (pa.ArrowException, OSError, ValueError) as exc:
+        raise _fail(f"cannot read {name}: {_arrow_message(exc)}") from None
+    if arrow.num_rows == 0:
+        raise _fail(f"{name} has a header but no rows")
+    _check_column_names(name, [str(n) for n in arrow.schema.names])
+    frame = _arrow_to_pandas(name, arrow, kind)
+    return _build_table(frame, name, id_col=id_col, label_col=label_col,
+                        require_labels=False, require_unique_ids=False)
 
 
 def iter_numeric_chunks(
