@@ -284,23 +284,151 @@ def suggest(model: Model, cases, train=None, case_ids=None, top: int = 10, *,
     exact = top if exact is None else exact
     head = ranked[: max(exact, 0)]
     base_conf = before.confusion()
+    fast = AddedFeatureRefit.prepare(model, training, table)
     for k, c in enumerate(head):
         _report(progress, f"re-fitting {k + 1}/{len(head)}", 0.4 + 0.6 * k / max(len(head), 1))
-        recipe = model.recipe.with_derived([(_candidate_name(names), c.expression)])
-        try:
-            new = refit(model, recipe, training, table, quantiles=False)
-        except AfterlookError as exc:
-            warnings.append(f"could not re-fit with {c.expression}: {exc.message}")
-            continue
-        after = scored_cases(new, table)
-        conf = after.confusion()
+        outcome = fast.evaluate(c.expression) if fast is not None else None
+        if outcome is None:  # not expressible as an added column: full re-fit
+            recipe = model.recipe.with_derived([(_candidate_name(names), c.expression)])
+            try:
+                new = refit(model, recipe, training, table, quantiles=False)
+            except AfterlookError as exc:
+                warnings.append(f"could not re-fit with {c.expression}: {exc.message}")
+                continue
+            after = scored_cases(new, table)
+            outcome = (new.threshold, after.flagged, after.confusion())
+        threshold, flagged, conf = outcome
         c.false_alarms_added = conf.fp - base_conf.fp
-        c.catches_targets = int(after.flagged[idx].sum())
-        c.metrics_after = {"threshold": new.threshold, **conf.to_dict()}
+        c.catches_targets = int(flagged[idx].sum())
+        c.metrics_after = {"threshold": threshold, **conf.to_dict()}
     head.sort(key=lambda c: c.rank_key(settings.min_correlation))
     final = (head + ranked[len(head):])[:top]
     _report(progress, "done", 1.0)
     return SuggestResult(target_ids, tried, final, training.source, A.shape[0], settings.chance_level, warnings)
+
+
+class AddedFeatureRefit:
+    """Exact re-fit with one added derived feature, without re-fitting the rest.
+
+    A re-fit with one more column changes nothing about the other columns'
+    maximum-likelihood estimates as long as the same rows are used: the new
+    parameters are the old ones plus the new column's mean, variance and (full
+    model) covariances with the others, one pass over the training rows. The
+    threshold is then re-picked by the model's policy on the re-scored cases,
+    exactly as :func:`try_features` does. Used when the fit is classical
+    (not robust, no Ledoit-Wolf shrinkage, whose intensity depends on all
+    columns) and the candidate is finite on every training row the fit uses;
+    otherwise :meth:`evaluate` returns None and the caller re-fits in full.
+    A test checks it against the full re-fit.
+    """
+
+    def __init__(self, model, X, raw_train, case_features, case_raw, labels, base):
+        self.model, self.X, self.raw_train = model, X, raw_train
+        self.case_features, self.case_raw, self.labels, self.base = case_features, case_raw, labels, base
+        self.Xc = X - X.mean(axis=0)
+        # log p(x) of the current features, reused: with one added column y,
+        # log p(x, y) = log p(x) + log N(y; E[y | x], var(y | x)) exactly.
+        self.case_ld = base.log_density(case_features)
+        self.train_ld = base.log_density(X) if model.policy.kind == "rate" else None
+        self.precision = base.precision() if base.kind == "full" else None
+
+    @classmethod
+    def prepare(cls, model: Model, training: TrainingRows, cases: Table):
+        from .core.gaussian import GaussianModel
+
+        d = model.density
+        if d.robust or d.shrinkage == "ledoit-wolf" or cases.labels is None:
+            return None
+        frame = training.table.frame
+        normal = np.ones(len(frame), bool) if training.table.labels is None else ~training.table.labels
+        raw_cols = _numeric_columns(frame.loc[normal], model.recipe.required_columns())
+        fm = model.recipe.apply(raw_cols)
+        keep = fm.finite_rows
+        X = fm.values[keep]
+        if X.shape[0] < 2:
+            return None
+        try:
+            base = GaussianModel(kind=d.kind, shrinkage=d.shrinkage).fit(X, fm.names)
+        except AfterlookError:
+            return None
+        raw_train = {k: v[keep] for k, v in model.recipe._raw_features(raw_cols).items()}
+        raw_train.update({k: v[keep] for k, v in raw_cols.items() if k not in raw_train})
+        case_cols = _numeric_columns(cases.frame, model.recipe.required_columns())
+        case_raw = dict(case_cols)
+        case_raw.update(model.recipe._raw_features(case_cols))
+        case_features = model.recipe.apply(case_cols).values
+        return cls(model, X, raw_train, case_features, case_raw, cases.labels, base)
+
+    def evaluate(self, expression: str):
+        """``(threshold, flagged, confusion)`` after adding ``expression``, or None."""
+        from .core import expressions
+        from .core.gaussian import COLLINEAR_TOL, LOG_2PI
+        from .core.thresholds import choose_threshold, confusion, flag
+
+        try:
+            expr = expressions.parse(expression)
+            y = expr.evaluate(self.raw_train)
+            y_cases = expr.evaluate(self.case_raw)
+        except AfterlookError:
+            return None
+        if not np.all(np.isfinite(y)):
+            return None  # a full re-fit would drop rows: parameters of every column change
+        base = self.base
+        n = self.X.shape[0]
+        my = y.mean()
+        yc = y - my
+        vy = float(yc @ yc / n)
+        if not vy > 0:
+            return None
+        if base.kind == "full" and base.shrinkage_:
+            return self._evaluate_shrunk(y, y_cases, my, yc, vy)
+        if base.kind == "independent":
+            beta = None
+            s2 = vy
+        else:
+            cxy = self.Xc.T @ yc / n
+            beta = self.precision @ cxy  # regression of y on x
+            s2 = vy - float(cxy @ beta)
+            if not s2 / vy >= COLLINEAR_TOL:
+                return None  # the full re-fit refuses a collinear column too
+        def cond_ld(Xrows, yrows):
+            mean = my if beta is None else my + (Xrows - base.mean_) @ beta
+            return -0.5 * (LOG_2PI + np.log(s2) + (yrows - mean) ** 2 / s2)
+
+        with np.errstate(invalid="ignore"):
+            ld = self.case_ld + cond_ld(self.case_features, y_cases)
+        ld[~np.isfinite(ld)] = np.nan
+        train_ld = None if self.train_ld is None else self.train_ld + cond_ld(self.X, y)
+        threshold = choose_threshold(self.model.policy, case_log_density=ld, case_is_anomaly=self.labels,
+                                     normal_log_density=train_ld)
+        flagged = flag(ld, threshold)
+        return threshold, flagged, confusion(flagged, self.labels)
+
+    def _evaluate_shrunk(self, y, y_cases, my, yc, vy):
+        """Fixed shrinkage: the target trace(S)/d changes with the new column, so rebuild."""
+        from .core.gaussian import GaussianModel, shrink_towards_diagonal
+        from .core.thresholds import choose_threshold, confusion, flag
+
+        base = self.base
+        n = self.X.shape[0]
+        raw_cov = (self.Xc.T @ self.Xc) / n
+        cxy = self.Xc.T @ yc / n
+        cov = np.block([[raw_cov, cxy[:, None]], [cxy[None, :], np.array([[vy]])]])
+        cov = shrink_towards_diagonal(cov, base.shrinkage_)
+        new = GaussianModel(kind="full", shrinkage=base.shrinkage, names=base.names + ["candidate"])
+        new.mean_ = np.append(base.mean_, my)
+        new.shrinkage_ = base.shrinkage_
+        try:
+            new.chol_ = new._cholesky(cov)
+        except AfterlookError:
+            return None
+        new.covariance_ = cov
+        ld = new.log_density(np.column_stack([self.case_features, y_cases]))
+        train_ld = new.log_density(np.column_stack([self.X, y])) if self.train_ld is not None else None
+        threshold = choose_threshold(self.model.policy, case_log_density=ld, case_is_anomaly=self.labels,
+                                     normal_log_density=train_ld)
+        flagged = flag(ld, threshold)
+        return threshold, flagged, confusion(flagged, self.labels)
 
 
 def _candidate_name(existing: list[str]) -> str:

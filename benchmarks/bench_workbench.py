@@ -1,0 +1,231 @@
+"""Workbench benchmark: time to the first screen, and the re-score after applying a candidate.
+
+1. first screen  From the start of a fresh Python process (imports included)
+                 to the workbench's first paint with the worst miss selected
+                 and its evidence drawn, on the demo data (``write_demo``,
+                 seed 7), at 120 x 40, through ``create_app`` + ``run_test``:
+                 the same factory ``afterlook review`` uses. The wall time of
+                 the whole child process (interpreter start to exit) is
+                 printed beside it.
+2. re-score      On 100,000 cases (``afterlook.demo.generate(seed=7,
+                 n_cases=100_000)``, the demo's recipe and independent model):
+                 what the workbench's worker runs when a candidate is applied,
+                 ``workbench_data.try_candidate`` + ``trial_view`` (re-fit with
+                 the feature, threshold re-picked by the same policy, every
+                 case re-scored, flips listed), against
+                 * ``afterlook.discovery.try_features`` (the public API, which
+                   also re-scores the unchanged model and looks the training
+                   file up again), and
+                 * the plain alternative: pandas for the feature, numpy for
+                   the fit, ``scipy.stats.norm.logpdf`` for the scores, a
+                   sort for the best-F1 threshold, a comparison for the flips.
+                 And end to end in the app: Enter on a typed expression until
+                 the before/after comparison is on the screen (Pilot).
+
+Numbers are printed (best and median of ``--repeat`` runs); nothing is
+asserted. Usage::
+
+    python benchmarks/bench_workbench.py            # 100,000 cases, 5 repeats
+    python benchmarks/bench_workbench.py --quick    # 20,000 cases, 3 repeats
+"""
+
+from __future__ import annotations
+
+import argparse
+import asyncio
+import statistics
+import subprocess
+import sys
+import tempfile
+import time
+from pathlib import Path
+
+import numpy as np
+
+SEED = 7
+FULL_CASES = 100_000
+QUICK_CASES = 20_000
+CANDIDATE = ("amps_per_power", "motor_current_a / hydraulic_power")  # the demo's worn-impeller ratio
+
+FIRST_SCREEN_CHILD = r"""
+import time
+t0 = time.perf_counter()
+import asyncio, sys
+from afterlook.tui import create_app
+
+async def main():
+    app = create_app(sys.argv[1], sys.argv[2], train_path=sys.argv[3], casebook=sys.argv[4],
+                     auto_candidates=False)
+    async with app.run_test(size=(120, 40)) as pilot:
+        for _ in range(20_000):  # bounded: a broken app must not hang the benchmark
+            if app.selected_case and app.evidence is not None and app.evidence.explain.case == app.selected_case:
+                break
+            await pilot.pause(0.005)
+        else:
+            raise SystemExit("the workbench never showed the worst miss")
+        await pilot.pause()  # the frame with the evidence drawn
+        print(f"{time.perf_counter() - t0:.6f}")
+
+asyncio.run(main())
+"""
+
+
+def _stats(times: list[float]) -> str:
+    return f"best {min(times) * 1000:8.1f} ms   median {statistics.median(times) * 1000:8.1f} ms"
+
+
+def bench_first_screen(folder: Path, repeat: int) -> None:
+    from afterlook.cli.demo_command import write_demo
+
+    train, cases, model = write_demo(folder / "demo", seed=SEED)
+    inner, outer = [], []
+    for _ in range(repeat):
+        start = time.perf_counter()
+        out = subprocess.run([sys.executable, "-c", FIRST_SCREEN_CHILD, str(model), str(cases), str(train),
+                              str(folder / "casebook.json")], capture_output=True, text=True, check=True)
+        outer.append(time.perf_counter() - start)
+        inner.append(float(out.stdout.strip().splitlines()[-1]))
+    print("1. first screen on the demo data (2,400 cases), 120 x 40")
+    print(f"   launch -> first paint, worst miss selected : {_stats(inner)}")
+    print(f"   whole child process (interpreter to exit)  : {_stats(outer)}")
+
+
+def _plain_alternative(train_df, cases_df, labels, derive_expr_cols, transform_cols):
+    """pandas feature + numpy fit + scipy.stats.norm scores + sorted best-F1 threshold + flips."""
+    from scipy import stats
+
+    def features(df):
+        out = df[list(derive_expr_cols["base"])].astype(float).copy()
+        out["hydraulic_power"] = df["flow_m3h"] * (df["discharge_bar"] - df["suction_bar"])
+        out["hours_since_service"] = np.log(df["hours_since_service"] + 1)
+        out["amps_per_power"] = df["motor_current_a"] / out["hydraulic_power"]
+        return out.to_numpy()
+
+    X = features(train_df)
+    mu, sd = X.mean(axis=0), X.std(axis=0)
+    ld = stats.norm.logpdf(features(cases_df), mu, sd).sum(axis=1)
+    order = np.argsort(ld)
+    tp = np.cumsum(labels[order])
+    k = np.arange(1, len(ld) + 1)
+    f1 = 2 * tp / (k + labels.sum())
+    best = int(np.argmax(f1))
+    threshold = ld[order][best + 1] if best + 1 < len(ld) else np.inf
+    flagged = ld < threshold
+    return flagged
+
+
+def bench_rescore(folder: Path, n_cases: int, repeat: int) -> None:
+    from afterlook import api
+    from afterlook import workbench_data as wd
+    from afterlook.cli.demo_command import DEMO_DERIVE, DEMO_KIND, DEMO_TRANSFORM
+    from afterlook.demo import generate
+    from afterlook.discovery import try_features
+    from afterlook.store.tables import write_table
+
+    scenario = generate(seed=SEED, n_cases=n_cases)
+    train_path, cases_path, model_path = folder / "train.csv", folder / "cases.csv", folder / "model.json"
+    write_table(scenario.train, train_path)
+    write_table(scenario.cases, cases_path)
+    train = api.load_table(train_path)
+    cases = api.load_table(cases_path, require_labels=True)
+    model = api.fit(train, cases=cases, kind=DEMO_KIND, threshold="f1", derive=DEMO_DERIVE, transform=DEMO_TRANSFORM)
+    model.save(model_path)
+    session = wd.open_session(model_path, cases_path, train_path=train_path, casebook=folder / "casebook.json")
+    worst = session.missed.misses[0].case
+    derive = {CANDIDATE[0]: CANDIDATE[1]}
+
+    def workbench():
+        result = wd.try_candidate(session, derive, focus=[worst])
+        return wd.trial_view(result, worst)
+
+    def public_api():
+        return try_features(model, cases, derive, train=train, focus=[worst])
+
+    base = [c for c in model.recipe.base]
+    train_df = train.frame.loc[~train.labels] if train.labels is not None else train.frame
+    labels = cases.labels.astype(bool)
+
+    def plain():
+        return _plain_alternative(train_df, cases.frame, labels, {"base": base}, None)
+
+    runs = {"workbench (try_candidate + trial_view)": workbench, "API try_features": public_api,
+            "plain pandas + scipy.stats.norm": plain}
+    for fn in runs.values():  # warm-up, untimed
+        fn()
+    times = {name: [] for name in runs}
+    for _ in range(repeat):
+        for name, fn in runs.items():  # take turns so background load hits all alike
+            start = time.perf_counter()
+            fn()
+            times[name].append(time.perf_counter() - start)
+    view = workbench()
+    print(f"2. re-score after applying {CANDIDATE[0]} = {CANDIDATE[1]} on {n_cases:,} cases "
+          f"({len(train.frame):,} training rows)")
+    for name, t in times.items():
+        print(f"   {name:<40}: {_stats(t)}")
+    ratio = statistics.median(times['plain pandas + scipy.stats.norm']) / statistics.median(
+        times['workbench (try_candidate + trial_view)'])
+    print(f"   plain / workbench (medians)              : {ratio:.2f}x")
+    print(f"   {worst}: {view.case.words}; misses caught {view.misses_caught}, "
+          f"false alarms added {view.false_alarms_added:+d}")
+
+    end_to_end = asyncio.run(_in_app(model_path, cases_path, train_path, folder / "casebook.json", repeat))
+    print(f"   in the app, enter -> comparison shown    : {_stats(end_to_end)}  (+ one frame to draw)")
+
+
+async def _in_app(model_path, cases_path, train_path, book, repeat: int) -> list[float]:
+    """Enter on a typed expression -> the comparison handed to the screen (drawn on the next frame).
+
+    Timed from just before the Enter key is sent to the end of the try panel's
+    ``show``; the Pilot's own waiting for idle is not counted.
+    """
+    from afterlook.tui import create_app
+
+    app = create_app(model_path, cases_path, train_path=train_path, casebook=book, auto_candidates=False)
+    out = []
+    async with app.run_test(size=(120, 40)) as pilot:
+        await pilot.pause()
+        panel = app.try_panel
+        shown: list[float] = []
+        original_show = panel.show
+
+        def timed_show(view):
+            original_show(view)
+            shown.append(time.perf_counter())
+
+        panel.show = timed_show
+        for k in range(repeat + 1):
+            await pilot.press("t")
+            panel.query_one("#expression").value = f"{CANDIDATE[0]}_{k} = {CANDIDATE[1]}"
+            before = len(shown)
+            start = time.perf_counter()
+            await pilot.press("enter")
+            for _ in range(50_000):  # bounded: a broken app must not hang the benchmark
+                if len(shown) > before:
+                    break
+                await pilot.pause(0.002)
+            else:
+                raise SystemExit("the try never finished in the app")
+            if k:  # the first round is the warm-up
+                out.append(shown[-1] - start)
+    return out
+
+
+def main(argv: list[str] | None = None) -> int:
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("--quick", action="store_true", help=f"{QUICK_CASES:,} cases and 3 repeats")
+    parser.add_argument("--cases", type=int, default=None, help=f"cases for the re-score (default {FULL_CASES:,})")
+    parser.add_argument("--repeat", type=int, default=None, help="timed rounds (default 5, 3 with --quick)")
+    args = parser.parse_args(argv)
+    n_cases = args.cases or (QUICK_CASES if args.quick else FULL_CASES)
+    repeat = args.repeat or (3 if args.quick else 5)
+    with tempfile.TemporaryDirectory(prefix="afterlook-bench-workbench-") as tmp:
+        folder = Path(tmp)
+        bench_first_screen(folder, repeat)
+        print()
+        bench_rescore(folder, n_cases, repeat)
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())

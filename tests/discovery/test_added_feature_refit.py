@@ -1,0 +1,77 @@
+"""The fast exact re-fit with one added feature equals the full re-fit.
+
+Reference: afterlook's full re-fit (``try_features``), which is itself
+checked against an independent numpy/scipy re-fit in test_try.py; and
+the fact that maximum-likelihood estimates of the other columns do not
+change when a column is added on the same rows.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+
+import afterlook
+from afterlook.core.errors import AfterlookError
+from afterlook.demo import generate
+from afterlook.discovery import AddedFeatureRefit, resolve_training, try_features
+
+EXPRESSIONS = [
+    "motor_current_a / (flow_m3h * (discharge_bar - suction_bar))",
+    "log(flow_m3h / motor_current_a)",
+    "bearing_temp_c - 0.3 * ambient_temp_c",
+    "vibration_mm_s ** 2 / flow_m3h",
+]
+
+
+@pytest.fixture(scope="module")
+def demo():
+    sc = generate(seed=5, n_train=1500, n_cases=600)
+    return sc
+
+
+@pytest.mark.parametrize("kind,shrinkage", [("independent", None), ("full", None), ("full", 0.2)])
+@pytest.mark.parametrize("policy", ["f1", "rate:0.02"])
+def test_fast_refit_equals_full_refit(demo, kind, shrinkage, policy):
+    from afterlook.api import as_table
+
+    tr, cs = as_table(demo.train), as_table(demo.cases)
+    model = afterlook.fit(tr, cases=cs, kind=kind, shrinkage=shrinkage, threshold=policy,
+                          transform={"hours_since_service": "log(hours_since_service + 1)"})
+    training = resolve_training(model, cs, tr)
+    fast = AddedFeatureRefit.prepare(model, training, cs)
+    assert fast is not None
+    compared = 0
+    for text in EXPRESSIONS:
+        outcome = fast.evaluate(text)
+        try:
+            full = try_features(model, cs, {"candidate": text}, train=tr)
+        except AfterlookError:
+            # e.g. a linear candidate makes the full covariance singular: the
+            # fast path must decline too (and the search then reports it).
+            assert outcome is None, text
+            continue
+        threshold, flagged, conf = outcome
+        assert threshold == pytest.approx(full.threshold_after, rel=1e-9, abs=1e-9)
+        assert conf == full.after, text
+        ref_flagged = afterlook.api.scored_cases(full.model, cs).flagged
+        np.testing.assert_array_equal(flagged, ref_flagged)
+        compared += 1
+    assert compared >= 3
+
+
+def test_robust_or_ledoit_wolf_fall_back_to_the_full_refit(demo):
+    from afterlook.api import as_table
+
+    tr, cs = as_table(demo.train), as_table(demo.cases)
+    model = afterlook.fit(tr, cases=cs, kind="full", shrinkage="ledoit-wolf")
+    assert AddedFeatureRefit.prepare(model, resolve_training(model, cs, tr), cs) is None
+
+
+def test_a_candidate_with_nan_on_training_rows_falls_back(demo):
+    from afterlook.api import as_table
+
+    tr, cs = as_table(demo.train), as_table(demo.cases)
+    model = afterlook.fit(tr, cases=cs, kind="independent")
+    fast = AddedFeatureRefit.prepare(model, resolve_training(model, cs, tr), cs)
+    assert fast.evaluate("log(hours_since_service - 100)") is None  # log of negatives on some rows
