@@ -396,7 +396,7 @@ class WorkbenchApp(App[int]):
         self.trial, self.trial_view = message.result, message.view
         self.trial_case, self.trial_label = message.case_id, message.label
         self.try_panel.show(message.view)
-        self.refresh_cases()
+        self.case_list.mark(book=self.book_ids, flips=self._flips())
         c = message.view.case
         if c is not None:
             self.notify(f"{c.case}: {c.words}; misses caught {message.view.misses_caught}, false alarms added "
@@ -499,7 +499,7 @@ class WorkbenchApp(App[int]):
     def on_casebook_loaded(self, message: msg.CasebookLoaded) -> None:
         self.book_ids = set(message.case_ids)
         self.book_loaded = True
-        self.refresh_cases()
+        self.case_list.mark(book=self.book_ids, flips=self._flips())
 
     def action_save_case(self) -> None:
         case = self.selected_case
@@ -546,7 +546,7 @@ class WorkbenchApp(App[int]):
     def on_casebook_saved(self, message: msg.CasebookSaved) -> None:
         self.saving = False
         self.book_ids.add(message.case_id)
-        self.refresh_cases()
+        self.case_list.mark(book=self.book_ids, flips=self._flips())
         self.notify(f"saved {message.case_id} as {message.status} to {os.path.basename(self.session.casebook_path)}",
                     title="casebook")
 

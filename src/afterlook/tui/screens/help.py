@@ -38,16 +38,11 @@ class HelpScreen(ModalScreen[None]):
     def compose(self) -> ComposeResult:
         with VerticalScroll(id="help-box"):
             yield Static(Text("afterlook workbench: keys", style="bold"), classes="help-title")
-            yield Static(_two_columns(help_rows(), 0), id="help-keys")
+            yield TwoColumns(help_rows(), id="help-keys")
             yield Static(Text("words", style="bold"), classes="help-title")
-            yield Static(_two_columns(WORDS, 0), id="help-words")
+            yield TwoColumns(WORDS, id="help-words")
             yield Static("escape, ? or q closes this help; the mouse works on tabs, rows, buttons and fields.",
                          classes="help-foot")
-
-    def on_resize(self) -> None:
-        width = self.query_one("#help-keys", Static).size.width
-        self.query_one("#help-keys", Static).update(_two_columns(help_rows(), width))
-        self.query_one("#help-words", Static).update(_two_columns(WORDS, width))
 
     def action_dismiss_help(self) -> None:
         self.dismiss(None)
@@ -56,13 +51,24 @@ class HelpScreen(ModalScreen[None]):
 KEY_WIDTH = 16
 
 
+class TwoColumns(Static):
+    """``key   what it does`` rows, wrapped to the widget's own width with a hanging indent."""
+
+    def __init__(self, rows, **kwargs) -> None:
+        super().__init__(**kwargs)
+        self.rows = list(rows)
+
+    def render(self) -> Text:
+        return _two_columns(self.rows, self.size.width)
+
+
 def _two_columns(rows, width: int) -> Text:
     """``key   what it does`` lines, the description wrapped under itself (hanging indent)."""
-    room = max(width - KEY_WIDTH - 3, 20) if width else 10_000  # 2 for the scrollbar
+    room = max(width - KEY_WIDTH, 20) if width else 10_000
     out = Text()
     for k, (left, right) in enumerate(rows):
         if k:
             out.append("\n")
         out.append(left.ljust(KEY_WIDTH), style="bold")
-        out.append(("\n" + " " * KEY_WIDTH).join(textwrap.wrap(right, room)))
+        out.append(("\n" + " " * KEY_WIDTH).join(textwrap.wrap(right, room, break_on_hyphens=False)))
     return out

@@ -38,6 +38,9 @@ class CaseList(Vertical):
         self.context_columns = dict(context_columns)  # name -> width
         self.case_width = case_width
         self.case_ids: list[str] = []
+        self._marks: dict[str, tuple[bool, str]] = {}  # case -> (in the book, after-try words) as drawn
+        self._described: tuple = ()
+        self._book_file = ""
 
     def compose(self) -> ComposeResult:
         with Horizontal(id="filter-row"):
@@ -75,6 +78,7 @@ class CaseList(Vertical):
         table = self.table
         with table.prevent(DataTable.RowHighlighted):
             table.clear()
+            self._marks = {}
             for r in rows:
                 kind_style = {"miss": "cases--miss", "near catch": "cases--near"}.get(r.kind, "cases--alarm")
                 table.add_row(
@@ -86,13 +90,28 @@ class CaseList(Vertical):
                     *[fmt.clip(r.context.get(c) or "", w) for c, w in self.context_columns.items()],
                     key=r.case,
                 )
+                self._marks[r.case] = (r.case in book, flips.get(r.case, ""))
             self.case_ids = [r.case for r in rows]
             target = self.case_ids.index(selected) if selected in self.case_ids else 0
             if rows:
                 table.move_cursor(row=target, animate=False)
-        self._describe(len(rows), counts, near, false_alarms, filter_text,
-                       f"{book_file}: {len(book) if book_loaded else '…'} [book]")
+        self._described = (len(rows), counts, near, false_alarms, filter_text)
+        self._book_file = book_file
+        self._describe(*self._described, f"{book_file}: {len(book) if book_loaded else '…'} [book]")
         return self.case_ids[target] if rows else None
+
+    def mark(self, *, book: set[str], flips: dict[str, str]) -> None:
+        """Redraw only the book and after-try cells that changed (no rebuild: lists can be long)."""
+        table = self.table
+        for case, (was_in_book, was_flip) in self._marks.items():
+            in_book, flip = case in book, flips.get(case, "")
+            if in_book != was_in_book:
+                table.update_cell(case, "book", Text("[book]", style=self._style("cases--book")) if in_book else "")
+            if flip != was_flip:
+                table.update_cell(case, "trial", Text(flip, style=self._style("cases--flip")))
+            self._marks[case] = (in_book, flip)
+        if self._described:
+            self._describe(*self._described, f"{self._book_file}: {len(book)} [book]")
 
     def _describe(self, n_shown: int, counts: dict, near: bool, false_alarms: bool, filter_text: str,
                   book_words: str) -> None:

@@ -38,6 +38,7 @@ class TryPanel(VerticalScroll):
 
     # -- the expression -----------------------------------------------------
     def focus_expression(self) -> None:
+        self.scroll_home(animate=False)  # the box sits above the last comparison
         self.query_one("#expression", Input).focus()
 
     def set_expression_status(self, ok: bool | None, message: str) -> None:
