@@ -77,6 +77,7 @@ MIN_TAIL_COUNT = 1  # any normal row as extreme as the target: no extrapolation
 TAIL_FRACTION = 0.05  # share of rows in the generalized Pareto tail fit
 MIN_EXCESSES = 50  # at least this many excesses in the tail fit
 CHANCE_LEVEL = 0.05
+TAIL_TIERS = (1e-6, 1e-3, CHANCE_LEVEL)  # ranking tiers of the adjusted tail
 
 
 @dataclass(frozen=True)
@@ -137,12 +138,26 @@ class Candidate:
         return pattern.format(a=a, b=b)[:80]
 
     def rank_key(self, min_correlation: float = 0.3):
-        """Order: targets exposed beyond chance, then extremeness (order of magnitude of the adjusted tail, so
-        near-equal tails tie), then other anomalies separated, then false
-        alarms added, then preference for correlated pairs, then |robust z|."""
-        bucket = math.floor(math.log10(max(self.adjusted_tail, 1e-300))) if self.adjusted_tail < 1 else 0
+        """Order of the candidate list.
+
+        1. targets exposed beyond chance (more first);
+        2. how extreme, in tiers of the adjusted tail: < 1e-6, < 1e-3, < 0.05,
+           the rest. Tiers rather than the raw value, because once a tail is
+           that small its exact size is mostly tail-model noise, and the next
+           keys are what a reviewer weighs;
+        3. other labelled anomalies separated (more first);
+        4. target misses flagged after the exact re-fit (more first);
+        5. false alarms added on re-fit (fewer first; unknown last);
+        6. pairs correlated at ``|r| >= min_correlation`` first;
+        7. the simpler expression (shorter text) first;
+        8. larger |robust z|.
+        """
+        tail = self.adjusted_tail if math.isfinite(self.adjusted_tail) else 1.0
+        tier = next((k for k, cut in enumerate(TAIL_TIERS) if tail < cut), len(TAIL_TIERS))
         fa = self.false_alarms_added if self.false_alarms_added is not None else math.inf
-        return (-self.targets_exposed, bucket, -self.other_anomalies_separated, fa, -(abs(self.r) >= min_correlation),
+        caught = self.catches_targets if self.catches_targets is not None else -1
+        return (-self.targets_exposed, tier, -self.other_anomalies_separated, -caught, fa,
+                -(abs(self.r) >= min_correlation), len(self.expression),
                 -abs(self.case_z) if math.isfinite(self.case_z) else 0.0)
 
     def to_dict(self) -> dict:
