@@ -114,31 +114,8 @@ def fit(
     if density.support_fraction_ is not None:
         warnings.append(f"robust fit kept {density.support_fraction_:.1%} of the training rows as its core")
 
-    policy = _policy(threshold)
-    case_table = as_table(cases) if cases is not None else None
-    case_ld = case_y = None
-    if case_table is not None and case_table.labels is not None:
-        case_ld = density.log_density(recipe.apply(_numeric_columns(case_table.frame, recipe.required_columns())).values)
-        case_y = case_table.labels
-    if policy is None:
-        if case_y is not None and case_y.any():
-            policy = ThresholdPolicy("f1")
-        else:
-            policy = ThresholdPolicy("rate", DEFAULT_RATE)
-            warnings.append(
-                f"no labelled cases with anomalies: threshold set to flag {DEFAULT_RATE:.0%} of the training rows "
-                "(give --cases or --threshold)"
-            )
-    if policy.kind == "f1" and (case_y is None or not case_y.any()):
-        raise AfterlookError("--threshold f1 needs labelled cases with at least one anomaly (--cases FILE)")
-    train_ld = density.log_density(X)
-    value = choose_threshold(policy, case_log_density=case_ld, case_is_anomaly=case_y, normal_log_density=train_ld)
-    if policy.kind == "value":
-        basis = "given"
-    elif case_y is not None and (policy.kind == "f1" or (~case_y).any()):
-        basis = f"{_name(case_table)} ({len(case_y)} cases, {int(case_y.sum())} labelled anomaly)"
-    else:
-        basis = f"training rows ({X.shape[0]})"
+    policy, value, basis = _pick_threshold(density, recipe, threshold, cases, X, warnings,
+                                           f"training rows ({X.shape[0]})")
 
     stats, grid = training_summary(X, fm.names, quantiles=quantiles)
     training = {
@@ -152,6 +129,39 @@ def fit(
     }
     return Model(recipe=recipe, density=density, threshold=value, policy=policy, threshold_basis=basis,
                  training=training, quantiles=grid, warnings=warnings + list(table.warnings))
+
+
+def _pick_threshold(density, recipe: Recipe, threshold, cases, normal_rows: np.ndarray, warnings: list[str],
+                    normal_basis: str, rate_note: str = ""):
+    """Threshold by policy: labelled cases when given, else the normal rows.
+
+    Returns ``(policy, value, basis)``; the default policy is f1 with
+    labelled anomalies, else a 1% false-alarm budget on the training rows.
+    """
+    policy = _policy(threshold)
+    case_table = as_table(cases) if cases is not None else None
+    case_ld = case_y = None
+    if case_table is not None and case_table.labels is not None:
+        case_ld = density.log_density(recipe.apply(_numeric_columns(case_table.frame, recipe.required_columns())).values)
+        case_y = case_table.labels
+    if policy is None:
+        if case_y is not None and case_y.any():
+            policy = ThresholdPolicy("f1")
+        else:
+            policy = ThresholdPolicy("rate", DEFAULT_RATE)
+            warnings.append(f"no labelled cases with anomalies: threshold set to flag {DEFAULT_RATE:.0%} of the "
+                            f"training rows{rate_note} (give --cases or --threshold)")
+    if policy.kind == "f1" and (case_y is None or not case_y.any()):
+        raise AfterlookError("--threshold f1 needs labelled cases with at least one anomaly (--cases FILE)")
+    normal_ld = density.log_density(normal_rows) if policy.kind == "rate" else None
+    value = choose_threshold(policy, case_log_density=case_ld, case_is_anomaly=case_y, normal_log_density=normal_ld)
+    if policy.kind == "value":
+        basis = "given"
+    elif case_y is not None and (policy.kind == "f1" or (~case_y).any()):
+        basis = f"{_name(case_table)} ({len(case_y)} cases, {int(case_y.sum())} labelled anomaly)"
+    else:
+        basis = normal_basis
+    return policy, value, basis
 
 
 def _policy(threshold) -> ThresholdPolicy | None:
@@ -480,29 +490,9 @@ def fit_streamed(
                         f"(most in '{worst}': {streamed.nan_by_feature[worst]})")
     density = GaussianModel(kind=kind, shrinkage=shrinkage).fit_stats(streamed.stats, recipe.features)
 
-    policy = _policy(threshold)
-    case_table = as_table(cases) if cases is not None else None
-    case_ld = case_y = None
-    if case_table is not None and case_table.labels is not None:
-        case_ld = density.log_density(recipe.apply(_numeric_columns(case_table.frame, recipe.required_columns())).values)
-        case_y = case_table.labels
-    if policy is None:
-        if case_y is not None and case_y.any():
-            policy = ThresholdPolicy("f1")
-        else:
-            policy = ThresholdPolicy("rate", DEFAULT_RATE)
-            warnings.append(f"no labelled cases with anomalies: threshold set to flag {DEFAULT_RATE:.0%} of the "
-                            "training rows (estimated on the sample; give --cases or --threshold)")
-    if policy.kind == "f1" and (case_y is None or not case_y.any()):
-        raise AfterlookError("--threshold f1 needs labelled cases with at least one anomaly (--cases FILE)")
-    sample_ld = density.log_density(streamed.sample)
-    value = choose_threshold(policy, case_log_density=case_ld, case_is_anomaly=case_y, normal_log_density=sample_ld)
-    if policy.kind == "value":
-        basis = "given"
-    elif case_y is not None and (policy.kind == "f1" or (~case_y).any()):
-        basis = f"{_name(case_table)} ({len(case_y)} cases, {int(case_y.sum())} labelled anomaly)"
-    else:
-        basis = f"a sample of {streamed.sample.shape[0]} training rows"
+    policy, value, basis = _pick_threshold(density, recipe, threshold, cases, streamed.sample, warnings,
+                                           f"a sample of {streamed.sample.shape[0]} training rows",
+                                           " (estimated on a sample of the training rows)")
 
     sd = np.sqrt(np.diag(streamed.stats.covariance()))
     stats = {name: {"mean": float(streamed.stats.mean[j]), "std": float(sd[j]),

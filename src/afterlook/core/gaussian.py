@@ -263,12 +263,7 @@ class GaussianModel:
         self.support_fraction_ = None if support is None else float(np.mean(support))
         self.mean_ = mean
         if self.kind == "independent":
-            zero = [self.names[j] for j in np.flatnonzero(~(var > 0))]
-            if zero:
-                raise AfterlookError(f"zero variance in the normal rows for column(s): {', '.join(zero)}")
-            self.covariance_ = np.diag(var)
-            self.chol_ = np.diag(np.sqrt(var))
-            return self
+            return self._set_variances(var)
         if self.shrinkage == "ledoit-wolf":
             if self.robust:
                 # Ledoit-Wolf's intensity needs the rows; use the robust support.
@@ -282,6 +277,14 @@ class GaussianModel:
             self.shrinkage_ = self.shrinkage
         self.covariance_ = cov
         self.chol_ = self._cholesky(cov)
+        return self
+
+    def _set_variances(self, var: np.ndarray) -> "GaussianModel":
+        zero = [self.names[j] for j in np.flatnonzero(~(var > 0))]
+        if zero:
+            raise AfterlookError(f"zero variance in the normal rows for column(s): {', '.join(zero)}")
+        self.covariance_ = np.diag(var)
+        self.chol_ = np.diag(np.sqrt(var))
         return self
 
     def fit_stats(self, stats: SufficientStats, names: list[str]) -> "GaussianModel":
@@ -299,14 +302,8 @@ class GaussianModel:
             raise AfterlookError(f"nothing to fit on: {stats.n} normal row(s) with finite values; need at least 2")
         self.mean_ = stats.mean.copy()
         cov = stats.covariance()
-        var = np.diag(cov).copy()
         if self.kind == "independent":
-            zero = [self.names[j] for j in np.flatnonzero(~(var > 0))]
-            if zero:
-                raise AfterlookError(f"zero variance in the normal rows for column(s): {', '.join(zero)}")
-            self.covariance_ = np.diag(var)
-            self.chol_ = np.diag(np.sqrt(var))
-            return self
+            return self._set_variances(np.diag(cov).copy())
         if isinstance(self.shrinkage, float) and self.shrinkage > 0:
             cov = shrink_towards_diagonal(cov, self.shrinkage)
             self.shrinkage_ = self.shrinkage
