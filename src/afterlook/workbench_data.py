@@ -294,7 +294,8 @@ def case_counts(session: Session) -> dict:
 @dataclass(frozen=True)
 class EvidenceRow:
     name: str
-    value: float
+    value: float  # as the model sees it (after the recipe's transform), as api.explain gives it
+    raw_value: float  # before the transform: the reading itself (a derived feature: its expression's value)
     z: float
     percentile: float
     contribution: float  # nats of log-density below its peak (api.explain)
@@ -363,7 +364,9 @@ def standing(label: bool | None, flagged: bool, log_density: float) -> str:
 def case_evidence(session: Session, case_id: str) -> EvidenceView:
     """Per-feature evidence for a case; the numbers equal :func:`afterlook.api.explain`'s.
 
-    Uses the session's scoring instead of re-scoring every case. ``share`` is
+    Uses the session's scoring instead of re-scoring every case. ``raw_value``
+    is the reading before the recipe's transform (equal to ``value`` for an
+    untransformed feature); z, percentile and share are on the model's scale. ``share`` is
     ``contribution / sum(contributions)`` in %: how much of the case's
     log-density below the peak this feature accounts for (cross terms of
     the full model can make a share negative or above 100).
@@ -377,11 +380,12 @@ def case_evidence(session: Session, case_id: str) -> EvidenceView:
                            bool(sc.flagged[i]), label, _context(sc.table, i), model.describe_kind())
     contributions = np.array([f.contribution for f in ev], dtype=np.float64)
     total = float(np.nansum(contributions))
+    raw = session.scope("cases")
     rows = []
     for f in ev:
         share = 100.0 * f.contribution / total if total != 0 and math.isfinite(f.contribution) else math.nan
         t = model.recipe.transforms.get(f.name)
-        rows.append(EvidenceRow(f.name, f.value, f.z, f.percentile, f.contribution, share, f.conditional_z,
+        rows.append(EvidenceRow(f.name, f.value, float(raw[f.name][i]), f.z, f.percentile, f.contribution, share, f.conditional_z,
                                 reading(f.z), relation_words(f.z, f.conditional_z),
                                 t.describe(f.name) if t is not None else ""))
     rows.sort(key=lambda r: r.contribution if math.isfinite(r.contribution) else 0.0)

@@ -111,6 +111,14 @@ def test_evidence_equals_explain_and_shares_add_up(session, frames):
     assert view.standing.startswith("miss")
     transformed = [r for r in view.rows if r.transform]
     assert [r.name for r in transformed] == list(model.recipe.transforms)
+    row = cases.frame.iloc[cases.row_index(case)]
+    for r in view.rows:
+        if r.name in cases.frame.columns:  # a reading straight from the table, untransformed
+            assert r.raw_value == pytest.approx(float(row[r.name]), rel=1e-12)
+        if not r.transform:
+            assert r.raw_value == pytest.approx(r.value, rel=1e-12)
+    hours = next(r for r in view.rows if r.name == "hours_since_service")
+    assert hours.value == pytest.approx(np.log(hours.raw_value + 1), rel=1e-12)  # the demo recipe's log
 
 
 @pytest.mark.parametrize("z, words", [(0.0, "typical"), (-0.99, "typical"), (1.5, "a little high"),

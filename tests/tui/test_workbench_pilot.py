@@ -265,3 +265,70 @@ def test_create_app_rejects_bad_input_before_drawing(demo, tmp_path):
     bad_model.write_text("{not json")
     with pytest.raises(AfterlookError):
         create_app(bad_model, demo.cases)
+
+
+@pytest.mark.asyncio
+async def test_a_try_that_cannot_be_fitted_is_a_notification_not_a_crash(demo, tmp_path, wait_until):
+    app = create_app(demo.model, demo.cases, train_path=demo.train, casebook=tmp_path / "b.json",
+                     auto_candidates=False)
+    async with app.run_test(size=SIZE) as pilot:
+        await pilot.pause()
+        # valid as typed (known columns, good syntax) but constant: the re-fit refuses it
+        await pilot.press("t", *"flat = flow_m3h * 0", "enter")
+        await wait_until(pilot, lambda: app.trial_running is None, what="the failed try reported")
+        assert app.trial is None
+        assert any("zero variance" in n.message for n in app._notifications)
+        assert "could not try" in text_of(app.workbench.query_one("#trial-head", Static))
+        # the workbench carries on: a good expression still works afterwards
+        await pilot.press("t")
+        app.focused.value = ""
+        await pilot.press(*"amps = motor_current_a / hydraulic_power", "enter")
+        await wait_until(pilot, lambda: app.trial is not None, what="the next try")
+        assert app.trial.derive == [("amps", "motor_current_a / hydraulic_power")]
+
+
+@pytest.mark.asyncio
+async def test_the_mouse_selects_cases_and_tabs_and_z_zooms(demo, tmp_path):
+    app = create_app(demo.model, demo.cases, train_path=demo.train, casebook=tmp_path / "b.json",
+                     auto_candidates=False)
+    async with app.run_test(size=SIZE) as pilot:
+        await pilot.pause()
+        third = app.rows[2].case
+        assert app.selected_case != third
+        await pilot.click("#cases", offset=(12, 3))  # header on line 0, then one line per case
+        await pilot.pause()
+        assert app.selected_case == third
+        assert app.evidence.explain.case == third
+        await pilot.click("#detail Tab#--content-tab-histogram")
+        await pilot.pause()
+        assert app.tabs.active == "histogram"
+        await pilot.press("e")
+        assert app.tabs.active == "evidence"
+        await pilot.press("z")
+        await pilot.pause()
+        assert not app.case_list.display or app.case_list.size.height == 0
+        await pilot.press("z")
+        await pilot.pause()
+        assert app.case_list.size.height > 0
+
+
+@pytest.mark.asyncio
+async def test_full_model_evidence_shows_conditional_z(demo, tmp_path):
+    from afterlook.cli.demo_command import DEMO_DERIVE, DEMO_TRANSFORM
+
+    train, cases = api.load_table(demo.train), api.load_table(demo.cases, require_labels=True)
+    # the full model, without the derived column (it would be collinear with the base readings)
+    model = api.fit(train, cases=cases, kind="full", threshold="f1", transform=DEMO_TRANSFORM)
+    assert DEMO_DERIVE  # the demo's own recipe derives; this one deliberately does not
+    path = tmp_path / "full.json"
+    model.save(path)
+    app = create_app(path, demo.cases, train_path=demo.train, casebook=tmp_path / "b.json", auto_candidates=False)
+    async with app.run_test(size=SIZE) as pilot:
+        await pilot.pause()
+        case = app.selected_case
+        ref = {f["name"]: f for f in api.explain(model, cases, case).to_dict()["features"]}
+        table = app.workbench.query_one("#evidence-table", DataTable)
+        keys = [c.key.value for c in table.ordered_columns]
+        assert "cond_z" in keys and "relation" in keys
+        for name, f in ref.items():
+            assert cell(app, "evidence-table", name, "cond_z") == f"{f['conditional_z']:+.2f}"

@@ -76,20 +76,18 @@ def analysis(model_path: Path, cases_path: Path, train_path: Path) -> dict:
 def run(args) -> int:
     folder = Path(args.dir)
     train_path, cases_path, model_path = write_demo(folder, seed=args.seed)
+    interactive = sys.stdout.isatty() and sys.stdin.isatty() and not args.no_tui and not args.json
+    if interactive:
+        # The workbench computes what it shows itself, in workers: open it at once.
+        from ..tui import launch
+
+        return launch(model_path, cases_path, train_path=train_path, casebook=None)
     doc, model, cases, result, extras = analysis(model_path, cases_path, train_path)
     if args.json:
         import json
 
         sys.stdout.write(json.dumps(doc, indent=2, allow_nan=False) + "\n")
         return EXIT_OK
-    interactive = sys.stdout.isatty() and sys.stdin.isatty() and not args.no_tui
-    if interactive:
-        try:
-            from ..tui import launch  # the workbench, when installed
-        except ImportError:
-            launch = None
-        if launch is not None:
-            return launch(model_path, cases_path, train_path=train_path, casebook=None)
     return print_analysis(doc, model, cases, result, folder, extras)
 
 

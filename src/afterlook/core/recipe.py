@@ -25,7 +25,6 @@ from dataclasses import dataclass, field
 from typing import Mapping
 
 import numpy as np
-from scipy import special, stats
 
 from . import expressions
 from .errors import AfterlookError
@@ -105,6 +104,8 @@ def apply_transform(t: Transform, feature: str, values: np.ndarray) -> np.ndarra
         return expressions.parse(t.expression).evaluate({feature: values})
     if t.lmbda is None:
         raise AfterlookError(f"transform of '{feature}' is not fitted")
+    from scipy import special, stats  # here, not at the top: scipy.stats costs ~0.5 s to import
+
     with np.errstate(all="ignore"):
         if t.kind == "boxcox":
             out = np.where(values > 0, special.boxcox(np.where(values > 0, values, 1.0), t.lmbda), np.nan)
@@ -117,6 +118,7 @@ def apply_transform(t: Transform, feature: str, values: np.ndarray) -> np.ndarra
 
 def fit_power_lambda(kind: str, values: np.ndarray) -> float:
     """Maximum-likelihood lambda of scipy.stats.boxcox / yeojohnson on finite values."""
+    from scipy import stats
     x = np.asarray(values, dtype=np.float64)
     x = x[np.isfinite(x)]
     if kind == "boxcox":

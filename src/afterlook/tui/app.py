@@ -122,17 +122,38 @@ class WorkbenchApp(App[int]):
     def evidence_panel(self) -> EvidencePanel:
         return self.workbench.query_one(EvidencePanel)
 
+    # The three hidden tabs are mounted just after the first paint (faster first
+    # screen): until then these are None, the App keeps the state and hands it
+    # over when each panel announces itself (on_panel_mounted).
     @property
-    def candidates_panel(self) -> CandidatesPanel:
-        return self.workbench.query_one(CandidatesPanel)
+    def candidates_panel(self) -> CandidatesPanel | None:
+        return next(iter(self.workbench.query(CandidatesPanel)), None)
 
     @property
-    def histogram_panel(self) -> HistogramPanel:
-        return self.workbench.query_one(HistogramPanel)
+    def histogram_panel(self) -> HistogramPanel | None:
+        return next(iter(self.workbench.query(HistogramPanel)), None)
 
     @property
-    def try_panel(self) -> TryPanel:
-        return self.workbench.query_one(TryPanel)
+    def try_panel(self) -> TryPanel | None:
+        return next(iter(self.workbench.query(TryPanel)), None)
+
+    def on_panel_mounted(self, message: msg.PanelMounted) -> None:
+        if message.panel == "candidates":
+            self._show_candidates_state()
+        elif message.panel == "try":
+            self._try_status_hint()
+            if self.trial_view is not None:
+                self.try_panel.show(self.trial_view)
+            elif self.trial_running:
+                self.try_panel.running(self.trial_running)
+        elif message.panel == "histogram" and self.tabs.active == "histogram":
+            self.request_histogram()
+
+    def _try_status_hint(self) -> None:
+        if self.try_panel is not None:
+            self.try_panel.set_expression_status(
+                None, "columns: " + ", ".join(self.session.cases.numeric_columns
+                                              + self.session.model.recipe.derived_names))
 
     @property
     def tabs(self) -> TabbedContent:
@@ -141,8 +162,7 @@ class WorkbenchApp(App[int]):
     # -- start ----------------------------------------------------------------
     def on_workbench_ready(self, _: msg.WorkbenchReady) -> None:
         self.workbench.query_one(StatusLine).summary = self.summary
-        self.try_panel.set_expression_status(
-            None, "columns: " + ", ".join(self.session.cases.numeric_columns + self.session.model.recipe.derived_names))
+        self._try_status_hint()
         self.refresh_cases()
         self.case_list.focus_table()
         self.load_casebook()
@@ -252,6 +272,8 @@ class WorkbenchApp(App[int]):
     def _show_candidates_state(self) -> None:
         case = self.selected_case
         panel = self.candidates_panel
+        if panel is None or case is None:
+            return
         if case in self.candidates:
             panel.show(case, self.candidates[case])
         elif self.candidates_running == case:
@@ -269,14 +291,16 @@ class WorkbenchApp(App[int]):
                 self._candidate_timer.stop()
                 self._candidate_timer = None
             self.start_candidates(case)
-        self.candidates_panel.focus_table()
+        if self.candidates_panel is not None:
+            self.candidates_panel.focus_table()
 
     def start_candidates(self, case_id: str) -> None:
         self._candidate_timer = None
         if case_id != self.selected_case or case_id in self.candidates:
             return
         self.candidates_running = case_id
-        self.candidates_panel.running(case_id)
+        if self.candidates_panel is not None:
+            self.candidates_panel.running(case_id)
         self.run_candidates(case_id)
 
     @work(thread=True, exclusive=True, group="candidates")
@@ -303,7 +327,7 @@ class WorkbenchApp(App[int]):
             self.post_message(msg.CandidatesReady(case_id, result))
 
     def on_candidates_progress(self, message: msg.CandidatesProgress) -> None:
-        if message.case_id == self.candidates_running == self.selected_case:
+        if message.case_id == self.candidates_running == self.selected_case and self.candidates_panel is not None:
             self.candidates_panel.progress(message.stage, message.fraction)
 
     def on_candidates_ready(self, message: msg.CandidatesReady) -> None:
@@ -312,7 +336,7 @@ class WorkbenchApp(App[int]):
             self.candidates_running = None
         if message.case_id == self.selected_case:
             self.candidate_index = 0
-            self.candidates_panel.show(message.case_id, message.result)
+            self._show_candidates_state()
 
     def on_candidate_highlighted(self, message: msg.CandidateHighlighted) -> None:
         self.candidate_index = message.index
@@ -338,7 +362,8 @@ class WorkbenchApp(App[int]):
     # -- try --------------------------------------------------------------------------
     def action_type_expression(self) -> None:
         self.tabs.active = "try"
-        self.try_panel.focus_expression()
+        if self.try_panel is not None:
+            self.try_panel.focus_expression()
 
     def _check(self, text: str) -> tuple[str, str]:
         return wd.check_expression(self.session, text)
@@ -370,7 +395,8 @@ class WorkbenchApp(App[int]):
             return
         self.trial_running = label
         self.tabs.active = "try"
-        self.try_panel.running(label)
+        if self.try_panel is not None:
+            self.try_panel.running(label)
         self.run_trial(case, derive, label)
 
     @work(thread=True, exclusive=True, group="trial")
@@ -395,7 +421,8 @@ class WorkbenchApp(App[int]):
         self.trial_running = None
         self.trial, self.trial_view = message.result, message.view
         self.trial_case, self.trial_label = message.case_id, message.label
-        self.try_panel.show(message.view)
+        if self.try_panel is not None:
+            self.try_panel.show(message.view)
         self.case_list.mark(book=self.book_ids, flips=self._flips())
         c = message.view.case
         if c is not None:
@@ -407,7 +434,8 @@ class WorkbenchApp(App[int]):
         source = None
         result = self.candidates.get(self.selected_case)
         focused = self.focused
-        in_candidates = focused is not None and self.candidates_panel in focused.ancestors_with_self
+        panel = self.candidates_panel
+        in_candidates = focused is not None and panel is not None and panel in focused.ancestors_with_self
         if in_candidates and result is not None and result.candidates:
             c = result.candidates[min(self.candidate_index, len(result.candidates) - 1)]
             source = wd.HistogramSource("candidate", c.name, c.expression)
@@ -451,6 +479,8 @@ class WorkbenchApp(App[int]):
         if case is None or self.tabs.active != "histogram":
             return
         panel = self.histogram_panel
+        if panel is None:  # not mounted yet: on_panel_mounted asks again
+            return
         if panel.size.width == 0:  # its tab has just opened: ask again once it is laid out
             self.call_after_refresh(self.request_histogram)
             return
@@ -478,7 +508,8 @@ class WorkbenchApp(App[int]):
         v = message.view
         if v.case == self.selected_case and v.source == self.hist_source and v.shaped == self.hist_shaped:
             self.histogram = v
-            self.histogram_panel.show(v)
+            if self.histogram_panel is not None:
+                self.histogram_panel.show(v)
 
     # -- casebook --------------------------------------------------------------------
     @work(thread=True, exclusive=True, group="casebook-read")
@@ -556,14 +587,16 @@ class WorkbenchApp(App[int]):
         if message.what == "candidates":
             if self.candidates_running == message.case_id:
                 self.candidates_running = None
-            if message.case_id == self.selected_case:
+            if message.case_id == self.selected_case and self.candidates_panel is not None:
                 self.candidates_panel.failed(message.case_id, message.message)
         elif message.what == "try":
             label = self.trial_running or ""
             self.trial_running = None
-            self.try_panel.failed(label, message.message)
+            if self.try_panel is not None:
+                self.try_panel.failed(label, message.message)
         elif message.what == "histogram":
-            self.histogram_panel.failed(message.message)
+            if self.histogram_panel is not None:
+                self.histogram_panel.failed(message.message)
         elif message.what == "casebook":
             self.saving = False
 

@@ -139,3 +139,11 @@ class HistogramShapedToggled(Message):
 
 class WorkbenchReady(Message):
     """The workbench screen is mounted: the App may fill it."""
+
+
+class PanelMounted(Message):
+    """A lazily mounted panel ("candidates", "histogram", "try") is ready for its state."""
+
+    def __init__(self, panel: str) -> None:
+        super().__init__()
+        self.panel = panel

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 from textual.app import ComposeResult
 from textual.screen import Screen
+from textual.lazy import Lazy
 from textual.widgets import Footer, TabbedContent, TabPane
 
 from ..keys import bindings
@@ -37,12 +38,13 @@ class WorkbenchScreen(Screen):
         with TabbedContent(initial="evidence", id="detail"):
             with TabPane("evidence \\[e]", id="evidence"):
                 yield EvidencePanel(id="evidence-panel")
+            # hidden at start: mounted just after the first paint (a faster first screen)
             with TabPane("candidates \\[c]", id="candidates"):
-                yield CandidatesPanel(id="candidates-panel")
+                yield Lazy(CandidatesPanel(id="candidates-panel"))
             with TabPane("histogram \\[h]", id="histogram"):
-                yield HistogramPanel(id="histogram-panel")
+                yield Lazy(HistogramPanel(id="histogram-panel"))
             with TabPane("try \\[t]", id="try"):
-                yield TryPanel(id="try-panel")
+                yield Lazy(TryPanel(id="try-panel"))
         yield Footer(show_command_palette=False, compact=True)
 
     def on_mount(self) -> None:

@@ -9,7 +9,7 @@ from textual.widgets import DataTable, ProgressBar, Static
 
 from ...workbench_data import candidate_verdict
 from .. import format as fmt
-from ..messages import CandidateChosen, CandidateHighlighted
+from ..messages import CandidateChosen, CandidateHighlighted, PanelMounted
 
 VERDICT_WIDTH = 25
 NARROW_VERDICT_WIDTH = 9
@@ -39,6 +39,9 @@ class CandidatesPanel(Vertical):
         yield Static("", id="cand-detail")
         yield Static("", id="cand-verdict")
         yield Static(LEGEND, id="cand-legend")
+
+    def on_mount(self) -> None:
+        self.post_message(PanelMounted("candidates"))
 
     def _style(self, name: str):
         return self.get_component_rich_style(name, partial=True)

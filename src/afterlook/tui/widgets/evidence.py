@@ -111,8 +111,8 @@ class EvidencePanel(Vertical):
             for r in view.rows:
                 strong = r.reading.startswith("very")
                 cells = [
-                    fmt.clip(r.name + (" *" if r.transform else ""), name_width),
-                    Text(fmt.short(r.value), justify="right"),
+                    fmt.clip(r.name, name_width - 2) + (" *" if r.transform else ""),
+                    Text(fmt.short(r.raw_value), justify="right"),
                     signed_bar(r.z, half, low + extreme if strong else low, high + extreme if strong else high),
                     Text(fmt.signed(r.z), justify="right"),
                     Text(r.reading, style=extreme if strong else None),
@@ -130,7 +130,8 @@ class EvidencePanel(Vertical):
         legend.append("z: sd from the normal mean (bar full at 4; - below, + above); pct: % of normal rows at "
                       "or below; share: % of the case's log-density cost")
         if any(r.transform for r in view.rows):
-            legend.append("; * transformed by the recipe")
+            legend.append("; * transformed by the recipe: value is the reading, z, pct and share are on the "
+                          "transformed scale")
         if view.full_model:
             legend.append("; cond z: sd from the value expected given all other features")
         self.query_one("#evidence-legend", Static).update(legend)

@@ -14,7 +14,7 @@ from textual.widgets import Button, Static
 
 from ...core.histograms import STEPS_PER_CELL, bar_heights
 from .. import format as fmt
-from ..messages import HistogramResized, HistogramShapedToggled, HistogramStep
+from ..messages import HistogramResized, HistogramShapedToggled, HistogramStep, PanelMounted
 
 EIGHTHS = " ▁▂▃▄▅▆▇█"
 FIXED_LINES = 5  # scale line, axis labels, case marker, others strip, one spare
@@ -49,6 +49,7 @@ class HistogramPanel(Vertical):
         yield Static("", id="hist-legend")
 
     def on_mount(self) -> None:
+        self.post_message(PanelMounted("histogram"))
         for button in self.query(Button):
             button.can_focus = False
 

@@ -10,7 +10,7 @@ from textual.containers import VerticalScroll
 from textual.widgets import Input, Static
 
 from .. import format as fmt
-from ..messages import ExpressionEdited, ExpressionSubmitted
+from ..messages import ExpressionEdited, ExpressionSubmitted, PanelMounted
 
 PLACEHOLDER = "NAME = EXPR or EXPR, e.g. head_per_amp = (discharge_bar - suction_bar) / motor_current_a"
 FLIPS_SHOWN = 12
@@ -32,6 +32,9 @@ class TryPanel(VerticalScroll):
         yield Static("", id="trial-case")
         yield Static("", id="trial-metrics")
         yield Static("", id="trial-flips")
+
+    def on_mount(self) -> None:
+        self.post_message(PanelMounted("try"))
 
     def _style(self, name: str):
         return self.get_component_rich_style(name, partial=True)
