@@ -332,3 +332,27 @@ async def test_full_model_evidence_shows_conditional_z(demo, tmp_path):
         assert "cond_z" in keys and "relation" in keys
         for name, f in ref.items():
             assert cell(app, "evidence-table", name, "cond_z") == f"{f['conditional_z']:+.2f}"
+
+
+@pytest.mark.asyncio
+async def test_save_key_still_works_after_apply_and_after_a_cancelled_save(demo, tmp_path, wait_until):
+    # Found by hand in tmux: after applying a candidate the focus was lost, and
+    # after a cancelled save it landed in the filter box, so the next 'b'
+    # filtered the list instead of opening the save dialog.
+    app = create_app(demo.model, demo.cases, train_path=demo.train, casebook=tmp_path / "book.json")
+    async with app.run_test(size=SIZE) as pilot:
+        await pilot.pause()
+        worst = app.selected_case
+        await pilot.press("c")  # look at the candidates tab (its table takes the focus)
+        await wait_until(pilot, lambda: worst in app.candidates, what="candidates")
+        await pilot.press("a")
+        await wait_until(pilot, lambda: app.trial_view is not None, what="the try result")
+        await pilot.press("b")
+        await wait_until(pilot, lambda: isinstance(app.screen, SaveCaseScreen), what="the save dialog")
+        await pilot.press("tab", "tab", "enter")  # note -> save -> cancel, pressed
+        await wait_until(pilot, lambda: not isinstance(app.screen, SaveCaseScreen), what="the dialog closed")
+        assert not isinstance(app.focused, Input)
+        await pilot.press("b")
+        await wait_until(pilot, lambda: isinstance(app.screen, SaveCaseScreen), what="the save dialog again")
+        assert app.workbench.query_one("#filter", Input).value == ""
+        assert app.selected_case == worst

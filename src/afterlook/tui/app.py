@@ -358,6 +358,9 @@ class WorkbenchApp(App[int]):
         index = self.candidate_index if 0 <= self.candidate_index < len(result.candidates) else 0
         c = result.candidates[index]
         self.start_trial({c.name: c.expression}, f"{c.name} = {c.expression}")
+        # The candidates table is hidden by the switch to the try tab: give the
+        # focus back to the case list so keys such as b (save) keep working.
+        self.case_list.focus_table()
 
     # -- try --------------------------------------------------------------------------
     def action_type_expression(self) -> None:
@@ -557,6 +560,9 @@ class WorkbenchApp(App[int]):
         self.push_screen(screen, callback=lambda request: self._save_requested(case, request))
 
     def _save_requested(self, case_id: str, request: SaveRequest | None) -> None:
+        # Back to the case list whatever the answer: never leave the focus in
+        # the filter box, where the next key would silently filter the list.
+        self.case_list.focus_table()
         if request is None:
             return
         self.saving = True
