@@ -164,22 +164,43 @@ def run_list(args) -> int:
     from . import render
 
     out = render.console()
-    table = Table(box=box.SIMPLE_HEAD, show_edge=False, pad_edge=False,
-                  caption="log-density vs threshold: '<' flagged, '>=' unflagged", caption_justify="left")
+    table = Table(box=box.SIMPLE_HEAD, show_edge=False, pad_edge=False)
+    # Feature, reviewer and date become columns only when every column fits whole.
+    rows = [_list_row(e) for e in entries]
+    cols = [[r["case"] or "" for r in rows], [r["status"] or "" for r in rows],
+            [r["deciding_feature"] or "n/a" for r in rows], [_versus(e.get("before")) for e in entries],
+            [_versus(e.get("after")) for e in entries], [r["reviewer"] or "" for r in rows],
+            [r["updated"] or "" for r in rows]]
+    heads = ["case", "status", "deciding feature", "before", "after", "reviewer", "updated"]
+    need = sum(max([len(h)] + [len(v) for v in col]) + 3 for h, col in zip(heads, cols))
+    wide = need <= out.width
     table.add_column("case", no_wrap=True)
-    table.add_column("status", min_width=8)
-    table.add_column("deciding feature", overflow="fold", min_width=8)
-    table.add_column("before", min_width=8)
-    table.add_column("after", min_width=8)
-    table.add_column("reviewer", overflow="fold", min_width=6)
-    table.add_column("updated", min_width=10)
+    table.add_column("status", no_wrap=True)
+    if wide:
+        table.add_column("deciding feature", no_wrap=True)
+    table.add_column("before", no_wrap=True)
+    table.add_column("after", no_wrap=True)
+    if wide:
+        table.add_column("reviewer", no_wrap=True)
+        table.add_column("updated", no_wrap=True)
     for e in entries:
         row = _list_row(e)
-        table.add_row(Text(row["case"]), Text(row["status"], style=_STATUS_STYLE.get(row["status"], "")),
-                      Text(row["deciding_feature"] or "n/a"), Text(_versus(e.get("before"))),
-                      Text(_versus(e.get("after"))), Text(row["reviewer"] or ""), Text(row["updated"] or ""))
+        cells = [Text(row["case"]), Text(row["status"], style=_STATUS_STYLE.get(row["status"], ""))]
+        if wide:
+            cells.append(Text(row["deciding_feature"] or "n/a"))
+        cells += [Text(_versus(e.get("before"))), Text(_versus(e.get("after")))]
+        if wide:
+            cells += [Text(row["reviewer"] or ""), Text(row["updated"] or "")]
+        table.add_row(*cells)
+    if not wide:
+        features = Text("deciding feature: ", style="dim")
+        features.append("; ".join(f"{_list_row(e)['case']}: {_list_row(e)['deciding_feature'] or 'n/a'}"
+                                  for e in entries))
     out.print(Text(f"{args.book}: {len(entries)} reviewed case(s)"))
     out.print(table)
+    if not wide and entries:
+        out.print(features)
+    out.print(Text("log-density vs threshold: '<' flagged, '>=' unflagged", style="dim"))
     return EXIT_OK
 
 
