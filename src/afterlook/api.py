@@ -93,7 +93,7 @@ def fit(
 
     if recipe is None:
         recipe = _build_recipe(table, normal_frame, columns, derive, transform, warnings)
-    columns_map = _numeric_columns(normal_frame, recipe.required_columns())
+    columns_map = numeric_columns_of(normal_frame, recipe.required_columns())
     # Lambdas are fitted on the rows whose raw inputs are all finite (the
     # rows a streamed fit sees too), so both engines give the same recipe.
     raw_ok = np.all(np.column_stack([np.isfinite(v) for v in columns_map.values()]), axis=1)
@@ -142,7 +142,7 @@ def _pick_threshold(density, recipe: Recipe, threshold, cases, normal_rows: np.n
     case_table = as_table(cases) if cases is not None else None
     case_ld = case_y = None
     if case_table is not None and case_table.labels is not None:
-        case_ld = density.log_density(recipe.apply(_numeric_columns(case_table.frame, recipe.required_columns())).values)
+        case_ld = density.log_density(recipe.apply(numeric_columns_of(case_table.frame, recipe.required_columns())).values)
         case_y = case_table.labels
     if policy is None:
         if case_y is not None and case_y.any():
@@ -158,7 +158,7 @@ def _pick_threshold(density, recipe: Recipe, threshold, cases, normal_rows: np.n
     if policy.kind == "value":
         basis = "given"
     elif case_y is not None and (policy.kind == "f1" or (~case_y).any()):
-        basis = f"{_name(case_table)} ({len(case_y)} cases, {int(case_y.sum())} labelled anomaly)"
+        basis = f"{table_name(case_table)} ({len(case_y)} cases, {int(case_y.sum())} labelled anomaly)"
     else:
         basis = normal_basis
     return policy, value, basis
@@ -189,7 +189,7 @@ def _build_recipe(table: Table, normal_frame: pd.DataFrame, columns, derive, tra
             raise AfterlookError(f"column '{not_numeric[0]}' is not numeric and cannot be modelled")
     else:
         base = list(table.numeric_columns)
-        values = _numeric_columns(normal_frame, base)
+        values = numeric_columns_of(normal_frame, base)
         constant = [c for c in base if np.nanmin(values[c]) == np.nanmax(values[c])] if len(normal_frame) else []
         if constant:
             warnings.append(f"left out {len(constant)} constant column(s): {', '.join(constant)}")
@@ -201,7 +201,7 @@ def _build_recipe(table: Table, normal_frame: pd.DataFrame, columns, derive, tra
     return Recipe(base, derived, transforms)
 
 
-def _numeric_columns(frame: pd.DataFrame, names: list[str]) -> dict[str, np.ndarray]:
+def numeric_columns_of(frame: pd.DataFrame, names: list[str]) -> dict[str, np.ndarray]:
     out = {}
     for name in names:
         if name not in frame.columns:
@@ -216,7 +216,7 @@ def _numeric_columns(frame: pd.DataFrame, names: list[str]) -> dict[str, np.ndar
     return out
 
 
-def _name(table: Table | None) -> str:
+def table_name(table: Table | None) -> str:
     if table is None or not table.path:
         return "cases"
     return os.path.basename(table.path)
@@ -247,13 +247,13 @@ class ScoredCases:
 
     def confusion(self) -> Confusion:
         if self.labels is None:
-            raise AfterlookError(f"{_name(self.table)} has no label column (--label-col)")
+            raise AfterlookError(f"{table_name(self.table)} has no label column (--label-col)")
         return confusion(self.flagged, self.labels)
 
 
 def scored_cases(model: Model, cases) -> ScoredCases:
     table = as_table(cases)
-    columns = _numeric_columns(table.frame, model.recipe.required_columns())
+    columns = numeric_columns_of(table.frame, model.recipe.required_columns())
     fm = model.recipe.apply(columns)
     ld = model.density.log_density(fm.values)
     return ScoredCases(model, table, fm.values, ld, flag(ld, model.threshold))
@@ -311,13 +311,13 @@ def misses(model: Model, cases) -> MissesResult:
     sc = scored_cases(model, cases)
     table = sc.table
     if table.labels is None:
-        raise AfterlookError(f"{_name(table)} has no label column; misses need labelled cases (--label-col)")
+        raise AfterlookError(f"{table_name(table)} has no label column; misses need labelled cases (--label-col)")
     y = table.labels
     finite = np.isfinite(sc.log_density)
     is_miss = y & ~sc.flagged & finite
     idx = np.flatnonzero(is_miss)
     idx = idx[np.argsort(-sc.margin[idx], kind="mergesort")]
-    rows = [Miss(str(table.ids[i]), float(sc.log_density[i]), float(sc.margin[i]), _context(table, i)) for i in idx]
+    rows = [Miss(str(table.ids[i]), float(sc.log_density[i]), float(sc.margin[i]), case_context(table, i)) for i in idx]
     unscored = [str(table.ids[i]) for i in np.flatnonzero(y & ~finite)]
     warnings = list(table.warnings)
     if (~finite).any():
@@ -326,7 +326,7 @@ def misses(model: Model, cases) -> MissesResult:
                         model.describe_kind(), warnings)
 
 
-def _context(table: Table, i: int) -> dict:
+def case_context(table: Table, i: int) -> dict:
     out = {}
     for col in table.context_columns:
         v = table.frame[col].iloc[i]
@@ -378,7 +378,7 @@ def explain(model: Model, cases, case_id) -> ExplainResult:
     ev = evidence(model.density, sc.features[i], model.quantiles)
     label = None if sc.labels is None else bool(sc.labels[i])
     return ExplainResult(str(sc.table.ids[i]), float(sc.log_density[i]), model.threshold, ev,
-                         bool(sc.flagged[i]), label, _context(sc.table, i), model.describe_kind())
+                         bool(sc.flagged[i]), label, case_context(sc.table, i), model.describe_kind())
 
 
 # --------------------------------------------------------------------------

@@ -46,7 +46,7 @@ from typing import Callable
 import numpy as np
 import pandas as pd
 
-from .api import _context, _name, _numeric_columns, as_table, explain, scored_cases
+from .api import as_table, case_context, explain, numeric_columns_of, scored_cases, table_name
 from .core.errors import AfterlookError
 from .core.thresholds import flag
 from .model import Model, load_model
@@ -122,7 +122,7 @@ def review_entry(model, cases, case_id, status, *, derive=None, note: str = "", 
     model_path : stored as given (default: where the model was loaded from)
     clock : callable returning the current time (tests and reproducible files)
     """
-    from .discovery import _derive_pairs, resolve_training, try_features
+    from .discovery import derive_pairs, resolve_training, try_features
 
     check_status(status)
     if not isinstance(note, str):
@@ -131,7 +131,7 @@ def review_entry(model, cases, case_id, status, *, derive=None, note: str = "", 
     table = as_table(cases)
     i = table.row_index(str(case_id))
     cid = str(table.ids[i])
-    pairs = _derive_pairs(derive)
+    pairs = derive_pairs(derive)
     stamp = _stamp(clock)
     warnings: list[str] = []
 
@@ -241,9 +241,9 @@ def _snapshot(model: Model, table, i: int) -> dict:
     for col in table.numeric_columns:
         columns[str(col)] = clean_number(pd.to_numeric(frame[col].iloc[i], errors="coerce"))
     row = frame.iloc[[i]]
-    raw = model.recipe._raw_features(_numeric_columns(row, model.recipe.required_columns()))
+    raw = model.recipe.raw_features(numeric_columns_of(row, model.recipe.required_columns()))
     features = {name: clean_number(raw[name][0]) for name in model.features}
-    return {"columns": columns, "features": features, "context": _context(table, i)}
+    return {"columns": columns, "features": features, "context": case_context(table, i)}
 
 
 def _histogram(model: Model, feature: str, population) -> dict:
@@ -252,7 +252,7 @@ def _histogram(model: Model, feature: str, population) -> dict:
     if population is not None:
         normal = np.ones(len(population.frame), bool) if population.labels is None else ~population.labels
         frame = population.frame.loc[normal]
-        values = model.recipe.apply(_numeric_columns(frame, model.recipe.required_columns())).values[:, j]
+        values = model.recipe.apply(numeric_columns_of(frame, model.recipe.required_columns())).values[:, j]
         where = (f"normal rows of {os.path.basename(population.path)}" if population.path
                  else "cases labelled normal")
     else:
@@ -374,7 +374,7 @@ def check_casebook(book, model, cases) -> CheckResult:
 def _score_snapshot(model: Model, entry: dict, cid: str, table) -> float:
     snapshot = entry.get("snapshot")
     columns = snapshot.get("columns") if isinstance(snapshot, dict) else None
-    where = _name(table)
+    where = table_name(table)
     if not isinstance(columns, dict) or not columns:
         raise AfterlookError(f"case {cid!r} of the casebook is not in {where} and its entry has no stored snapshot",
                              title="Unknown case")

@@ -14,7 +14,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from .api import ScoredCases, _name, _numeric_columns, as_table, fit, scored_cases
+from .api import ScoredCases, as_table, fit, numeric_columns_of, scored_cases, table_name
 from .core import candidates as cand
 from .core.errors import AfterlookError
 from .core.recipe import Recipe, parse_assignment
@@ -61,7 +61,7 @@ def resolve_training(model: Model, cases: Table, train=None) -> TrainingRows:
     frame = cases.frame.loc[~cases.labels]
     t = as_table(frame.drop(columns=[cases.label_col]))
     t.path = None
-    return TrainingRows(t, f"cases labelled normal in {_name(cases)}",
+    return TrainingRows(t, f"cases labelled normal in {table_name(cases)}",
                         [f"{why}; fitting on the cases labelled normal instead (give --train to avoid judging on fitted rows)"])
 
 
@@ -117,8 +117,8 @@ def try_features(model: Model, cases, derive, train=None, *, focus: list[str] | 
     """
     table = as_table(cases)
     if table.labels is None:
-        raise AfterlookError(f"{_name(table)} has no label column; try needs labelled cases")
-    pairs = _derive_pairs(derive)
+        raise AfterlookError(f"{table_name(table)} has no label column; try needs labelled cases")
+    pairs = derive_pairs(derive)
     if not pairs:
         raise AfterlookError("nothing to try: give at least one --derive NAME=EXPR")
     for cid in focus or []:
@@ -134,7 +134,7 @@ def try_features(model: Model, cases, derive, train=None, *, focus: list[str] | 
                      training.source, new, training.warnings + new.warnings)
 
 
-def _derive_pairs(derive) -> list[tuple[str, str]]:
+def derive_pairs(derive) -> list[tuple[str, str]]:
     if derive is None:
         return []
     if isinstance(derive, dict):
@@ -235,7 +235,7 @@ def suggest(model: Model, cases, train=None, case_ids=None, top: int = 10, *,
     settings = settings or cand.Settings()
     table = as_table(cases)
     if table.labels is None:
-        raise AfterlookError(f"{_name(table)} has no label column; suggest needs labelled cases")
+        raise AfterlookError(f"{table_name(table)} has no label column; suggest needs labelled cases")
     before = scored_cases(model, table)
     miss_mask = table.labels & ~before.flagged & np.isfinite(before.log_density)
     if case_ids:
@@ -256,14 +256,14 @@ def suggest(model: Model, cases, train=None, case_ids=None, top: int = 10, *,
     warnings += training.warnings
 
     names = model.recipe.features
-    raw_train = model.recipe._raw_features(_numeric_columns(training.table.frame, model.recipe.required_columns()))
+    raw_train = model.recipe.raw_features(numeric_columns_of(training.table.frame, model.recipe.required_columns()))
     normal = np.ones(len(training.table.frame), bool) if training.table.labels is None else ~training.table.labels
     A = np.column_stack([raw_train[n] for n in names])[normal]
     A = A[np.all(np.isfinite(A), axis=1)]
     rows = cand.sample_rows(A.shape[0], settings.sample_size, settings.random_state)
     A = A[rows]
     sample = {n: A[:, k] for k, n in enumerate(names)}
-    raw_cases = model.recipe._raw_features(_numeric_columns(table.frame, model.recipe.required_columns()))
+    raw_cases = model.recipe.raw_features(numeric_columns_of(table.frame, model.recipe.required_columns()))
     C = np.column_stack([raw_cases[n] for n in names])
     T = C[idx]
     if not np.all(np.isfinite(T)):
@@ -341,7 +341,7 @@ class AddedFeatureRefit:
             return None
         frame = training.table.frame
         normal = np.ones(len(frame), bool) if training.table.labels is None else ~training.table.labels
-        raw_cols = _numeric_columns(frame.loc[normal], model.recipe.required_columns())
+        raw_cols = numeric_columns_of(frame.loc[normal], model.recipe.required_columns())
         fm = model.recipe.apply(raw_cols)
         keep = fm.finite_rows
         X = fm.values[keep]
@@ -351,11 +351,11 @@ class AddedFeatureRefit:
             base = GaussianModel(kind=d.kind, shrinkage=d.shrinkage).fit(X, fm.names)
         except AfterlookError:
             return None
-        raw_train = {k: v[keep] for k, v in model.recipe._raw_features(raw_cols).items()}
+        raw_train = {k: v[keep] for k, v in model.recipe.raw_features(raw_cols).items()}
         raw_train.update({k: v[keep] for k, v in raw_cols.items() if k not in raw_train})
-        case_cols = _numeric_columns(cases.frame, model.recipe.required_columns())
+        case_cols = numeric_columns_of(cases.frame, model.recipe.required_columns())
         case_raw = dict(case_cols)
-        case_raw.update(model.recipe._raw_features(case_cols))
+        case_raw.update(model.recipe.raw_features(case_cols))
         case_features = model.recipe.apply(case_cols).values
         return cls(model, X, raw_train, case_features, case_raw, cases.labels, base)
 

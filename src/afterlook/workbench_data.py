@@ -27,8 +27,8 @@ from .api import (
     ExplainResult,
     MissesResult,
     ScoredCases,
-    _context,
-    _numeric_columns,
+    case_context,
+    numeric_columns_of,
     load_model,
     load_table,
     misses,
@@ -115,7 +115,7 @@ class Session:
         want = [c for c in [*self.model.recipe.required_columns(), *extra] if c not in cache]
         if want:
             frame = table.frame.loc[self._normal_rows()] if which == "normal" else table.frame
-            cache.update(_numeric_columns(frame, want))
+            cache.update(numeric_columns_of(frame, want))
         return cache
 
     def scope(self, which: str, extra: Sequence[str] = ()) -> dict:
@@ -125,7 +125,7 @@ class Session:
         """
         raw = self._raw_cache.get(which)
         if raw is None:
-            raw = self._raw_cache[which] = self.model.recipe._raw_features(self._columns(which, []))
+            raw = self._raw_cache[which] = self.model.recipe.raw_features(self._columns(which, []))
         cols = self._columns(which, [c for c in extra if c not in raw])
         return {**cols, **raw}
 
@@ -266,7 +266,7 @@ def case_rows(session: Session, *, near: bool = False, false_alarms: bool = Fals
 
 def _row(session: Session, i: int, kind: str) -> CaseRow:
     sc = session.scored
-    return CaseRow(str(sc.table.ids[i]), kind, float(sc.log_density[i]), float(sc.margin[i]), _context(sc.table, i))
+    return CaseRow(str(sc.table.ids[i]), kind, float(sc.log_density[i]), float(sc.margin[i]), case_context(sc.table, i))
 
 
 def _haystack(row: CaseRow) -> str:
@@ -377,7 +377,7 @@ def case_evidence(session: Session, case_id: str) -> EvidenceView:
     ev = evidence(model.density, sc.features[i], model.quantiles)
     label = None if sc.labels is None else bool(sc.labels[i])
     result = ExplainResult(str(sc.table.ids[i]), float(sc.log_density[i]), model.threshold, ev,
-                           bool(sc.flagged[i]), label, _context(sc.table, i), model.describe_kind())
+                           bool(sc.flagged[i]), label, case_context(sc.table, i), model.describe_kind())
     contributions = np.array([f.contribution for f in ev], dtype=np.float64)
     total = float(np.nansum(contributions))
     raw = session.scope("cases")
@@ -456,10 +456,10 @@ def try_candidate(session: Session, derive: dict[str, str], focus: Sequence[str]
     only the scoring of the unchanged model and the training look-up are
     not repeated, which is what makes a re-score on 100,000 cases quick.
     """
-    from .discovery import _check_columns, _derive_pairs
+    from .discovery import _check_columns, derive_pairs
 
     table = session.cases
-    pairs = _derive_pairs(derive)
+    pairs = derive_pairs(derive)
     if not pairs:
         raise AfterlookError("nothing to try: give a derived feature")
     recipe = session.model.recipe.with_derived(pairs)

@@ -204,7 +204,7 @@ class Recipe:
     def with_derived(self, extra: list[tuple[str, str]]) -> "Recipe":
         return Recipe(self.base, self.derived + list(extra), dict(self.transforms))
 
-    def _raw_features(self, columns: Mapping[str, np.ndarray]) -> dict[str, np.ndarray]:
+    def raw_features(self, columns: Mapping[str, np.ndarray]) -> dict[str, np.ndarray]:
         env: dict[str, np.ndarray] = {}
         for name in self.base:
             if name not in columns:
@@ -228,7 +228,7 @@ class Recipe:
 
     def fit(self, columns: Mapping[str, np.ndarray]) -> "Recipe":
         """Resolve fitted lambdas on training columns; returns a new recipe."""
-        env = self._raw_features(columns)
+        env = self.raw_features(columns)
         fitted = {}
         for name, t in self.transforms.items():
             if t.kind in POWER_KINDS and t.lmbda is None:
@@ -241,7 +241,7 @@ class Recipe:
         return Recipe(self.base, self.derived, fitted)
 
     def apply(self, columns: Mapping[str, np.ndarray]) -> FeatureMatrix:
-        env = self._raw_features(columns)
+        env = self.raw_features(columns)
         names = self.features
         n = len(next(iter(env.values()))) if env else 0
         X = np.empty((n, len(names)))
