@@ -178,15 +178,21 @@ def _pairs(obj) -> list[tuple[str, str]]:
     return [(str(k), str(v)) for k, v in obj]
 
 
+def checked_base_columns(table: Table, columns) -> list[str]:
+    """The base columns asked for, each present in the table and numeric."""
+    base = list(columns)
+    unknown = [c for c in base if c not in table.frame.columns]
+    if unknown:
+        raise AfterlookError(f"training table has no column '{unknown[0]}'")
+    not_numeric = [c for c in base if c not in table.numeric_columns]
+    if not_numeric:
+        raise AfterlookError(f"column '{not_numeric[0]}' is not numeric and cannot be modelled")
+    return base
+
+
 def _build_recipe(table: Table, normal_frame: pd.DataFrame, columns, derive, transform, warnings) -> Recipe:
     if columns:
-        base = list(columns)
-        unknown = [c for c in base if c not in table.frame.columns]
-        if unknown:
-            raise AfterlookError(f"training table has no column '{unknown[0]}'")
-        not_numeric = [c for c in base if c not in table.numeric_columns]
-        if not_numeric:
-            raise AfterlookError(f"column '{not_numeric[0]}' is not numeric and cannot be modelled")
+        base = checked_base_columns(table, columns)
     else:
         base = list(table.numeric_columns)
         values = numeric_columns_of(normal_frame, base)
@@ -470,13 +476,7 @@ def fit_streamed(
     warnings: list[str] = []
     head = load_head(train_path, id_col=id_col, label_col=label_col)
     check_streamable(head.label_col, head.path)
-    base = list(columns) if columns else list(head.numeric_columns)
-    unknown = [c for c in base if c not in head.frame.columns]
-    if unknown:
-        raise AfterlookError(f"training table has no column '{unknown[0]}'")
-    not_numeric = [c for c in base if c not in head.numeric_columns]
-    if not_numeric:
-        raise AfterlookError(f"column '{not_numeric[0]}' is not numeric and cannot be modelled")
+    base = checked_base_columns(head, columns) if columns else list(head.numeric_columns)
     recipe = Recipe(base, _pairs(derive), {n: parse_transform(n, t) for n, t in _pairs(transform)})
     if engine == "dask":
         from .engines.dask_engine import fit_dask

@@ -40,7 +40,6 @@ import getpass
 import os
 from dataclasses import dataclass, field
 from datetime import datetime, timezone
-from pathlib import Path
 from typing import Callable
 
 import numpy as np
@@ -50,6 +49,7 @@ from .api import as_table, case_context, explain, numeric_columns_of, scored_cas
 from .core.errors import AfterlookError
 from .core.thresholds import flag
 from .model import Model, load_model
+from .store.atomic import check_writable
 from .store.casebook import STATUSES, Casebook, CasebookConflict, check_status, clean_number
 
 __all__ = [
@@ -281,21 +281,12 @@ def add_to_casebook(book_path, model, cases, case_id, status, *, derive=None, no
     """Open (or create) the book, review the case, upsert it and save; returns the stored entry."""
     check_status(status)
     book = Casebook.open(book_path, create=True)
-    _check_writable(book.path)
+    check_writable(book.path, "casebook")  # before the (slow) review
     entry = review_entry(model, cases, case_id, status, derive=derive, note=note, reviewer=reviewer,
                          train=train, model_path=model_path, clock=clock)
     stored = book.upsert(entry)
     book.save()
     return stored
-
-
-def _check_writable(p: Path) -> None:
-    """Fail before the (slow) review when the book could not be written anyway."""
-    folder = p.parent if str(p.parent) else Path(".")
-    if not folder.is_dir():
-        raise AfterlookError(f"cannot write casebook {p}: folder '{folder}' does not exist")
-    if not os.access(folder, os.W_OK | os.X_OK):
-        raise AfterlookError(f"cannot write casebook {p}: permission denied on folder '{folder}'")
 
 
 # --------------------------------------------------------------------------

@@ -12,7 +12,6 @@ fast; tiny hand-made frames cover the edge cases.
 
 from __future__ import annotations
 
-import json
 import os
 import subprocess
 import sys
@@ -23,37 +22,10 @@ import numpy as np
 import pandas as pd
 import pytest
 
-SCRIPT = Path(sys.executable).parent / "afterlook"
-
 #: Small demo sizes: n_cases must leave room for the demo's 15 failures per kind.
 DEMO_SEED = 11
 DEMO_TRAIN_ROWS = 400
 DEMO_CASE_ROWS = 240
-
-
-def _run_cli(*args, cwd: str | os.PathLike | None = None, env: dict | None = None,
-             timeout: float = 120) -> tuple[int, str, str]:
-    """Run the real ``afterlook`` console script; return (exit code, stdout, stderr)."""
-    if not SCRIPT.exists():  # pragma: no cover - a broken install, not a test result
-        pytest.fail(f"console script not found next to the interpreter: {SCRIPT}")
-    full_env = dict(os.environ)
-    full_env.pop("AFTERLOOK_DEBUG", None)  # tracebacks must never be needed
-    full_env["COLUMNS"] = "200"  # wide enough that Rich tables do not wrap ids
-    full_env["NO_COLOR"] = "1"
-    if env:
-        full_env.update(env)
-    proc = subprocess.run(
-        [str(SCRIPT), *[str(a) for a in args]],
-        cwd=cwd, env=full_env, capture_output=True, text=True, timeout=timeout,
-        stdin=subprocess.DEVNULL,
-    )
-    return proc.returncode, proc.stdout, proc.stderr
-
-
-@pytest.fixture(scope="session")
-def run_cli():
-    """``run_cli(*args, cwd=None, env=None) -> (code, stdout, stderr)`` for the real console script."""
-    return _run_cli
 
 
 def _run_module(*args, cwd=None) -> tuple[int, str, str]:
@@ -68,20 +40,6 @@ def _run_module(*args, cwd=None) -> tuple[int, str, str]:
 @pytest.fixture(scope="session")
 def run_module():
     return _run_module
-
-
-def parse_one_json(stdout: str):
-    """Parse stdout as exactly one JSON document (nothing before or after it)."""
-    text = stdout.strip()
-    assert text, "stdout is empty; expected one JSON document"
-    doc, end = json.JSONDecoder().raw_decode(text)
-    assert end == len(text), f"extra output after the JSON document: {text[end:end + 80]!r}"
-    return doc
-
-
-@pytest.fixture(scope="session")
-def one_json():
-    return parse_one_json
 
 
 # --------------------------------------------------------------------------

@@ -36,16 +36,13 @@ judge the tool against the planted structure, never against its own output.
 
 from __future__ import annotations
 
-import json
-import os
-import subprocess
-import sys
 from dataclasses import dataclass, field
 from pathlib import Path
 
 import numpy as np
 import pandas as pd
 import pytest
+from afterlook_cli_runner import run_cli_script
 
 N_TRAIN = 1500
 N_NORMAL_CASES = 300
@@ -226,42 +223,6 @@ def fleet_factory():
 # the real console script
 # --------------------------------------------------------------------------
 
-SCRIPT = Path(sys.executable).parent / "afterlook"
-
-
-def _run_cli(*args, cwd=None) -> tuple[int, str, str]:
-    """Run the installed ``afterlook`` script; return (exit code, stdout, stderr)."""
-    if not SCRIPT.exists():  # pragma: no cover - a broken install, not a test result
-        pytest.fail(f"console script not found next to the interpreter: {SCRIPT}")
-    env = dict(os.environ)
-    env.pop("AFTERLOOK_DEBUG", None)
-    env["COLUMNS"] = "200"
-    env["NO_COLOR"] = "1"
-    proc = subprocess.run([str(SCRIPT), *map(str, args)], cwd=cwd, env=env, capture_output=True, text=True,
-                          timeout=180, stdin=subprocess.DEVNULL)
-    return proc.returncode, proc.stdout, proc.stderr
-
-
-@pytest.fixture(scope="session")
-def run_cli():
-    """``run_cli(*args, cwd=None) -> (code, stdout, stderr)``."""
-    return _run_cli
-
-
-def _one_json(stdout: str):
-    """stdout parsed as exactly one JSON document."""
-    text = stdout.strip()
-    assert text, "stdout is empty; expected one JSON document"
-    doc, end = json.JSONDecoder().raw_decode(text)
-    assert end == len(text), f"extra output after the JSON document: {text[end:end + 80]!r}"
-    return doc
-
-
-@pytest.fixture(scope="session")
-def one_json():
-    return _one_json
-
-
 @dataclass
 class FleetFiles:
     dir: Path
@@ -278,7 +239,7 @@ def write_fleet_files(fleet: Fleet, folder: Path, fit_model: bool = True) -> Fle
     fleet.train.to_csv(files.train, index=False)
     fleet.cases.to_csv(files.cases, index=False)
     if fit_model:
-        code, out, err = _run_cli("fit", files.train, "--out", files.model, "--cases", files.cases,
+        code, out, err = run_cli_script("fit", files.train, "--out", files.model, "--cases", files.cases,
                                   "--kind", "independent", "--json")
         assert code == 0, err
     return files

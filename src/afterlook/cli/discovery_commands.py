@@ -130,9 +130,9 @@ def run_try(args) -> int:
 
     pairs = [parse_assignment(d, "--derive") for d in args.derive]
     if args.out:
-        from .main import _check_writable
+        from ..store.atomic import check_writable
 
-        _check_writable(args.out)
+        check_writable(args.out)
     model, cases, train = _load(args)
     result = try_features(model, cases, pairs, train=train, focus=args.case)
     _warn(result.warnings)

@@ -11,13 +11,12 @@ import argparse
 import json
 import os
 import sys
-from pathlib import Path
 
 from .. import _version
+from ..cautions import CAUTION
 from ..core.errors import AfterlookError
+from ..store.atomic import check_writable
 from .exit_codes import EXIT_BAD_INPUT, EXIT_CHECK_FAILED, EXIT_INTERNAL, EXIT_OK
-
-from ..cautions import CAUTION  # noqa: E402 (one sentence, shared with reports)
 
 
 class _Parser(argparse.ArgumentParser):
@@ -119,7 +118,7 @@ def cmd_fit(args) -> int:
 
     derive = [parse_assignment(d, "--derive") for d in args.derive]
     transform = [parse_assignment(t, "--transform") for t in args.transform]
-    _check_writable(args.out)
+    check_writable(args.out)
     cases = api.load_table(args.cases, id_col=args.id_col, label_col=args.label_col, require_labels=True) if args.cases else None
     if args.engine == "memory":
         if args.scheduler:
@@ -174,7 +173,7 @@ def cmd_score(args) -> int:
     model = api.load_model(args.model)
     table = api.load_table(args.data, id_col=args.id_col, label_col=args.label_col)
     if args.out:
-        _check_writable(args.out)
+        check_writable(args.out)
     scored = model.score(table.frame)
     _warn(table.warnings, args)
     n_bad = int(scored["log_density"].isna().sum())
@@ -258,17 +257,6 @@ COMMANDS = {
     "explain": cmd_explain,
     "demo": cmd_demo,
 }
-
-
-def _check_writable(path: str) -> None:
-    p = Path(path)
-    folder = p.parent if str(p.parent) else Path(".")
-    if p.is_dir():
-        raise AfterlookError(f"cannot write {p}: it is a directory")
-    if not folder.is_dir():
-        raise AfterlookError(f"cannot write {p}: folder '{folder}' does not exist")
-    if not os.access(folder, os.W_OK) or (p.exists() and not os.access(p, os.W_OK)):
-        raise AfterlookError(f"cannot write {p}: permission denied")
 
 
 def main(argv: list[str] | None = None) -> int:

@@ -17,15 +17,28 @@ from pathlib import Path
 from ..core.errors import AfterlookError
 
 
-def write_bytes_atomic(path: str | os.PathLike, data: bytes) -> None:
-    """Write ``data`` to ``path`` atomically (see :func:`_write_atomic`)."""
+def check_writable(path: str | os.PathLike, what: str = "") -> Path:
+    """Fail early, with one line, when ``path`` could not be written.
+
+    Callers use it before slow work (a fit, a review) so that nothing is
+    computed for an output that cannot be saved. ``what`` names the file in
+    the message (e.g. "casebook").
+    """
     p = Path(path)
     folder = p.parent if str(p.parent) else Path(".")
+    label = f"{what} {p}" if what else str(p)
     if p.is_dir():
-        raise AfterlookError(f"cannot write {p}: it is a folder")
+        raise AfterlookError(f"cannot write {label}: it is a directory, not a file")
     if not folder.is_dir():
-        raise AfterlookError(f"cannot write {p}: folder '{folder}' does not exist")
-    _write_atomic(p, data)
+        raise AfterlookError(f"cannot write {label}: folder '{folder}' does not exist")
+    if not os.access(folder, os.W_OK | os.X_OK) or (p.exists() and not os.access(p, os.W_OK)):
+        raise AfterlookError(f"cannot write {label}: permission denied")
+    return p
+
+
+def write_bytes_atomic(path: str | os.PathLike, data: bytes) -> None:
+    """Write ``data`` to ``path`` atomically (see :func:`_write_atomic`)."""
+    _write_atomic(check_writable(path), data)
 
 
 def _write_atomic(p: Path, data: bytes, *, mode_of: Path | None = None) -> None:

@@ -49,8 +49,6 @@ import hashlib
 import json
 import math
 import os
-import secrets
-import stat
 from datetime import datetime, timezone
 from pathlib import Path
 from typing import Iterator
