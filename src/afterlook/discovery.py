@@ -106,7 +106,8 @@ class TryResult:
         }
 
 
-def try_features(model: Model, cases, derive, train=None, *, focus: list[str] | None = None) -> TryResult:
+def try_features(model: Model, cases, derive, train=None, *, focus: list[str] | None = None,
+                 training: TrainingRows | None = None, before: ScoredCases | None = None) -> TryResult:
     """Re-fit with extra derived features and compare before/after.
 
     Parameters
@@ -114,6 +115,9 @@ def try_features(model: Model, cases, derive, train=None, *, focus: list[str] | 
     derive : {name: expression} or list of "NAME=EXPR" / (name, expression)
     focus : case ids always listed in ``cases`` (e.g. the miss under review),
         besides every case whose flag changed.
+    training, before : the resolved normal population and ``model``'s scores of
+        ``cases``, when the caller already has them (the workbench keeps both
+        for its session, which makes a re-score on 100,000 cases quick).
     """
     table = as_table(cases)
     if table.labels is None:
@@ -125,9 +129,9 @@ def try_features(model: Model, cases, derive, train=None, *, focus: list[str] | 
         table.row_index(str(cid))  # unknown id: the usual one-line error
     recipe = model.recipe.with_derived(pairs)
     _check_columns(recipe, table, pairs)
-    training = resolve_training(model, table, train)
+    training = training or resolve_training(model, table, train)
     new = refit(model, recipe, training, table)
-    before = scored_cases(model, table)
+    before = before or scored_cases(model, table)
     after = scored_cases(new, table)
     rows = _flip_rows(before, after, focus or [])
     return TryResult(before.confusion(), after.confusion(), model.threshold, new.threshold, rows, pairs,
@@ -155,12 +159,9 @@ def _check_columns(recipe: Recipe, table: Table, pairs) -> None:
 
 def _flip_rows(before: ScoredCases, after: ScoredCases, focus: list[str]) -> list[dict]:
     ids = before.table.ids
-    changed = before.flagged != after.flagged
-    want = changed.copy()
-    index = {str(c): i for i, c in enumerate(ids)}
+    want = before.flagged != after.flagged
     for cid in focus:
-        if str(cid) in index:
-            want[index[str(cid)]] = True
+        want[before.table.row_index(str(cid))] = True  # the table keeps its id index
     rows = []
     for i in np.flatnonzero(want):
         rows.append({

@@ -40,7 +40,7 @@ from .core.explain import evidence
 from .core.histograms import HistogramCounts, histogram_counts
 from .core.recipe import apply_transform, parse_assignment
 from .core.thresholds import Confusion
-from .discovery import SuggestResult, TrainingRows, TryResult, refit, resolve_training, suggest
+from .discovery import SuggestResult, TrainingRows, TryResult, resolve_training, suggest
 from .model import Model
 from .store.tables import Table
 
@@ -450,52 +450,22 @@ def _free_name(existing: Sequence[str]) -> str:
 
 
 def try_candidate(session: Session, derive: dict[str, str], focus: Sequence[str] = ()) -> TryResult:
-    """:func:`afterlook.discovery.try_features`, reusing the session's scoring and normal population.
+    """:func:`afterlook.discovery.try_features` with the session's normal population and scores.
 
-    Same re-fit, same threshold policy, same result (``to_dict()`` equal);
-    only the scoring of the unchanged model and the training look-up are
-    not repeated, which is what makes a re-score on 100,000 cases quick.
+    Same re-fit, threshold policy and result; only the look-up of the
+    training rows and the scoring of the unchanged model are not repeated.
     """
-    from .discovery import _check_columns, derive_pairs
+    from .discovery import try_features
 
-    table = session.cases
-    pairs = derive_pairs(derive)
-    if not pairs:
-        raise AfterlookError("nothing to try: give a derived feature")
-    recipe = session.model.recipe.with_derived(pairs)
-    _check_columns(recipe, table, pairs)
-    new = refit(session.model, recipe, session.training, table)
-    before = session.scored
-    after = scored_cases(new, table)
-    rows = _flip_rows(session, before, after, focus)
-    return TryResult(before.confusion(), after.confusion(), session.model.threshold, new.threshold, rows, pairs,
-                     session.training.source, new, session.training.warnings + new.warnings)
-
-
-def _flip_rows(session: Session, before: ScoredCases, after: ScoredCases, focus: Sequence[str]) -> list[dict]:
-    # Same rows, order and values as afterlook.discovery._flip_rows, without a
-    # dict over every id (the table's own id index is built once and kept).
-    ids = before.table.ids
-    want = before.flagged != after.flagged
-    for cid in focus:
+    known = []
+    for cid in focus:  # the selection may be filtered away: never an error here
         try:
-            want[session.row(cid)] = True
+            session.row(cid)
         except AfterlookError:
-            pass
-    rows = []
-    for i in np.flatnonzero(want):
-        rows.append({
-            "case": str(ids[i]),
-            "label": "anomaly" if before.labels[i] else "normal",
-            "before": {"log_density": _finite(before.log_density[i]), "flagged": bool(before.flagged[i])},
-            "after": {"log_density": _finite(after.log_density[i]), "flagged": bool(after.flagged[i])},
-        })
-    rows.sort(key=lambda r: (r["label"] != "anomaly", r["case"]))
-    return rows
-
-
-def _finite(x) -> float | None:
-    return float(x) if np.isfinite(x) else None
+            continue
+        known.append(cid)
+    return try_features(session.model, session.cases, derive, focus=known, training=session.training,
+                        before=session.scored)
 
 
 @dataclass(frozen=True)
