@@ -81,6 +81,12 @@ def test_try_result_view(snap_compare, demo, tmp_path):
         await pilot.press("t", *"amps_per_power = motor_current_a / hydraulic_power", "enter")
         await settle(pilot)
         assert pilot.app.trial_view is not None  # the picture must show a finished try
+        # The panel scrolls the comparison into view once it is laid out; under
+        # load that can land a few frames later, so wait for it (bounded).
+        for _ in range(100):
+            if pilot.app.try_panel.scroll_offset.y > 0:
+                break
+            await pilot.pause(0.05)
 
     assert snap_compare(make_app(demo, tmp_path), terminal_size=WIDE, run_before=run_before)
 

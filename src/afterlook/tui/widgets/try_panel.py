@@ -121,6 +121,18 @@ class TryPanel(VerticalScroll):
             if len(rows) > FLIPS_SHOWN:
                 flips.append(f"\n  … {len(rows) - FLIPS_SHOWN} more", style=self._style("try--dim"))
         self.query_one("#trial-flips", Static).update(flips)
-        # on a short screen the comparison starts below the expression box: bring it into view
-        self.call_after_refresh(self.scroll_to_widget, self.query_one("#trial-head", Static), top=True,
-                                animate=False)
+        # On a short screen the comparison starts below the expression box: bring
+        # it into view once the new content is laid out. The layout may land a
+        # refresh later under load, so the scroll also runs when the panel's
+        # content size changes (watch_virtual_size), not only after one refresh.
+        self._scroll_pending = True
+        self.call_after_refresh(self._scroll_to_result)
+
+    def _scroll_to_result(self) -> None:
+        if self.view is not None:
+            self.scroll_to_widget(self.query_one("#trial-head", Static), top=True, animate=False)
+
+    def watch_virtual_size(self, old, new) -> None:
+        if getattr(self, "_scroll_pending", False) and new.height > old.height:
+            self._scroll_pending = False
+            self._scroll_to_result()
