@@ -108,7 +108,7 @@ def main() -> None:
 
     # The whole suggest call, through the API, for information.
     import afterlook
-    from afterlook.discovery import suggest
+    from afterlook.analysis.discovery import suggest
 
     cases = pd.concat([miss.assign(id="miss", label="anomaly"),
                        train.iloc[1:2001].assign(id=[f"n{k}" for k in range(2000)], label="normal")],

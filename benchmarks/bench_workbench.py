@@ -10,10 +10,10 @@
 2. re-score      On 100,000 cases (``afterlook.demo.generate(seed=7,
                  n_cases=100_000)``, the demo's recipe and independent model):
                  what the workbench's worker runs when a candidate is applied,
-                 ``workbench_data.try_candidate`` + ``trial_view`` (re-fit with
+                 ``analysis.workbench.try_candidate`` + ``trial_view`` (re-fit with
                  the feature, threshold re-picked by the same policy, every
                  case re-scored, flips listed), against
-                 * ``afterlook.discovery.try_features`` (the public API, which
+                 * ``afterlook.analysis.trial.try_features`` (the public API, which
                    also re-scores the unchanged model and looks the training
                    file up again), and
                  * the plain alternative: pandas for the feature, numpy for
@@ -88,7 +88,7 @@ def _stats(times: list[float]) -> str:
 
 
 def bench_first_screen(folder: Path, repeat: int) -> None:
-    from afterlook.cli.demo_command import write_demo
+    from afterlook.demo.writer import write_demo
 
     train, cases, model = write_demo(folder / "demo", seed=SEED)
     inner, outer = [], []
@@ -128,20 +128,20 @@ def _plain_alternative(train_df, cases_df, labels, derive_expr_cols, transform_c
 
 
 def bench_rescore(folder: Path, n_cases: int, repeat: int) -> None:
-    from afterlook import api
-    from afterlook import workbench_data as wd
-    from afterlook.cli.demo_command import DEMO_DERIVE, DEMO_KIND, DEMO_TRANSFORM
+    import afterlook
+    from afterlook.analysis import workbench as wd
+    from afterlook.demo.writer import DEMO_DERIVE, DEMO_KIND, DEMO_TRANSFORM
     from afterlook.demo import generate
-    from afterlook.discovery import try_features
+    from afterlook.analysis.trial import try_features
     from afterlook.store.tables import write_table
 
     scenario = generate(seed=SEED, n_cases=n_cases)
     train_path, cases_path, model_path = folder / "train.csv", folder / "cases.csv", folder / "model.json"
     write_table(scenario.train, train_path)
     write_table(scenario.cases, cases_path)
-    train = api.load_table(train_path)
-    cases = api.load_table(cases_path, require_labels=True)
-    model = api.fit(train, cases=cases, kind=DEMO_KIND, threshold="f1", derive=DEMO_DERIVE, transform=DEMO_TRANSFORM)
+    train = afterlook.load_table(train_path)
+    cases = afterlook.load_table(cases_path, require_labels=True)
+    model = afterlook.fit(train, cases=cases, kind=DEMO_KIND, threshold="f1", derive=DEMO_DERIVE, transform=DEMO_TRANSFORM)
     model.save(model_path)
     session = wd.open_session(model_path, cases_path, train_path=train_path, casebook=folder / "casebook.json")
     worst = session.missed.misses[0].case

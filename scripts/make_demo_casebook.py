@@ -35,14 +35,15 @@ import tempfile
 from datetime import datetime, timedelta, timezone
 from pathlib import Path
 
-from afterlook import api
-from afterlook.casebook import review_entry
-from afterlook.cli.demo_command import write_demo
+import afterlook
+from afterlook.analysis.review import review_entry
+from afterlook.demo.writer import write_demo
 from afterlook.core.errors import AfterlookError
 from afterlook.demo import generate
-from afterlook.discovery import suggest, try_features
-from afterlook.report import render_markdown
-from afterlook.store.casebook import Casebook, backup_path, write_bytes_atomic
+from afterlook.analysis.discovery import suggest
+from afterlook.analysis.trial import try_features
+from afterlook.analysis.report import render_markdown
+from afterlook.store.casebook_file import Casebook, backup_path, write_bytes_atomic
 
 SEED = 7
 BOOK_NAME = "pump-stations.casebook.json"
@@ -78,12 +79,12 @@ class FixedClock:
 def build(work: Path) -> tuple[str, str, bytes]:
     """Demo files in ``work``; returns (casebook text, report text, model file bytes)."""
     train_path, cases_path, model_path = write_demo(work, seed=SEED)
-    model = api.load_model(model_path)
-    cases = api.load_table(cases_path, require_labels=True)
-    train = api.load_table(train_path)
+    model = afterlook.load_model(model_path)
+    cases = afterlook.load_table(cases_path, require_labels=True)
+    train = afterlook.load_table(train_path)
     kinds = generate(seed=SEED).kinds
 
-    found = api.misses(model, cases).misses
+    found = afterlook.misses(model, cases).misses
     if not found:
         raise AfterlookError("the demo model has no misses; nothing to record")
     worst = found[0].case

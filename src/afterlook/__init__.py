@@ -19,24 +19,22 @@ Names are imported lazily so that ``import afterlook.core`` stays light
 from ._version import __version__
 
 _EXPORTS = {
-    "load_table": "afterlook.api",
-    "load_model": "afterlook.api",
-    "fit": "afterlook.api",
-    "misses": "afterlook.api",
-    "explain": "afterlook.api",
-    "shape": "afterlook.api",
-    "Model": "afterlook.model",
-    "suggest": "afterlook.discovery",
-    "try_features": "afterlook.discovery",
+    "load_table": "afterlook.store.tables",
+    "load_model": "afterlook.analysis.model",
+    "Model": "afterlook.analysis.model",
+    "fit": "afterlook.analysis.fitting",
+    "misses": "afterlook.analysis.evidence",
+    "explain": "afterlook.analysis.evidence",
+    "shape": "afterlook.analysis.shaping",
+    "suggest": "afterlook.analysis.discovery",
+    "try_features": "afterlook.analysis.trial",
     "AfterlookError": "afterlook.core.errors",
+    # casebook: reviewed misses, regression check against a model
+    "Casebook": "afterlook.store.casebook_file",
+    "review_entry": "afterlook.analysis.review",
+    "add_to_casebook": "afterlook.analysis.review",
+    "check_casebook": "afterlook.analysis.review",
 }
-# casebook: reviewed misses, regression check against a model
-_EXPORTS.update({
-    "Casebook": "afterlook.casebook",
-    "review_entry": "afterlook.casebook",
-    "add_to_casebook": "afterlook.casebook",
-    "check_casebook": "afterlook.casebook",
-})
 
 __all__ = ["__version__", *_EXPORTS]
 

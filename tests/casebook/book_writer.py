@@ -7,7 +7,7 @@ therefore a function of ``k`` alone (:func:`expected_document`). The writer
 starts from the step found in the book on disk, so every run also opens the
 file the previous kill left behind. After each save it prints ``saved K``.
 
-Only :mod:`afterlook.store.casebook` is loaded, without the package's
+Only :mod:`afterlook.store.casebook_file` is loaded, without the package's
 ``afterlook.store.__init__`` (which imports pandas and pyarrow for the table
 reader and costs about a second per start): the module under test is the same
 file, and 50+ starts stay quick.
@@ -29,7 +29,7 @@ def load_store():
         pkg = types.ModuleType("afterlook.store")
         pkg.__path__ = [str(STORE)]
         sys.modules["afterlook.store"] = pkg
-    import afterlook.store.casebook as store
+    import afterlook.store.casebook_file as store
 
     return store
 

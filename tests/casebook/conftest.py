@@ -1,6 +1,6 @@
 """Fixtures for the casebook tests: the demo on disk, its best finding, and a runner for the console script.
 
-The demo comes from ``afterlook.cli.demo_command.write_demo`` (the invented
+The demo comes from ``afterlook.demo.writer.write_demo`` (the invented
 pump-station fleet, seed 7), exactly what ``afterlook demo`` writes. It is
 written once per session; tests copy what they change.
 """
@@ -38,17 +38,17 @@ class Demo:
 
 @pytest.fixture(scope="session")
 def demo(tmp_path_factory) -> Demo:
-    from afterlook import api
-    from afterlook.cli.demo_command import write_demo
+    import afterlook
+    from afterlook.demo.writer import write_demo
     from afterlook.demo import generate
-    from afterlook.discovery import suggest
+    from afterlook.analysis.discovery import suggest
 
     folder = tmp_path_factory.mktemp("casebook_demo")
     train, cases, model_path = write_demo(folder, seed=DEMO_SEED)
-    model = api.load_model(model_path)
-    table = api.load_table(cases, require_labels=True)
-    worst = api.misses(model, table).misses[0].case
-    found = suggest(model, table, train=api.load_table(train), case_ids=[worst], top=5)
+    model = afterlook.load_model(model_path)
+    table = afterlook.load_table(cases, require_labels=True)
+    worst = afterlook.misses(model, table).misses[0].case
+    found = suggest(model, table, train=afterlook.load_table(train), case_ids=[worst], top=5)
     best = next(c for c in found.candidates if c.beyond_chance)
     return Demo(folder, train, cases, model_path, worst, best.name, best.expression, generate(seed=DEMO_SEED).kinds)
 

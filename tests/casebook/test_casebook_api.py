@@ -17,10 +17,10 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from afterlook import api
-from afterlook.casebook import STATUSES, CheckResult, add_to_casebook, check_casebook, review_entry
+import afterlook
+from afterlook.analysis.review import STATUSES, CheckResult, add_to_casebook, check_casebook, review_entry
 from afterlook.core.errors import AfterlookError
-from afterlook.store.casebook import Casebook
+from afterlook.store.casebook_file import Casebook
 
 STAMP = re.compile(r"^\d{4}-\d\d-\d\dT\d\d:\d\d:\d\dZ$")
 
@@ -41,15 +41,15 @@ class Clock:
 
 @pytest.fixture(scope="module")
 def explained(demo):
-    model = api.load_model(demo.model)
+    model = afterlook.load_model(demo.model)
     return review_entry(model, demo.cases, demo.worst, "explained", derive={demo.name: demo.expression},
                         note="worn impeller", reviewer="tester", train=demo.train, model_path="model.json")
 
 
 @pytest.fixture(scope="module")
 def bearing(demo):
-    model = api.load_model(demo.model)
-    misses = api.misses(model, api.load_table(demo.cases)).misses
+    model = afterlook.load_model(demo.model)
+    misses = afterlook.misses(model, afterlook.load_table(demo.cases)).misses
     case = next(m.case for m in misses if demo.kinds.get(m.case) == "bearing_wear")
     return review_entry(model, demo.cases, case, "needs-signal", train=demo.train, reviewer="tester")
 
@@ -81,7 +81,7 @@ def test_entry_bookkeeping(demo, explained):
     assert explained["derived_feature"] == {"name": demo.name, "expression": demo.expression}
     assert explained["deciding_feature"]["name"] == demo.name
     assert explained["model"]["path"] == "model.json"
-    assert explained["model"]["fingerprint"] == api.load_model(demo.model).fingerprint()
+    assert explained["model"]["fingerprint"] == afterlook.load_model(demo.model).fingerprint()
     assert explained["model_after"]["fingerprint"] != explained["model"]["fingerprint"]
     assert demo.name in explained["model_after"]["features"]
     assert STAMP.match(explained["created"]) and explained["updated"] == explained["created"]
@@ -147,7 +147,7 @@ def test_deciding_feature_without_derive_is_the_most_negative_contribution(demo,
 def test_reviewer_defaults_to_the_os_user_or_unknown(demo, monkeypatch):
     import getpass
 
-    model = api.load_model(demo.model)
+    model = afterlook.load_model(demo.model)
     monkeypatch.setattr(getpass, "getuser", lambda: "site-engineer")
     assert review_entry(model, demo.cases, demo.worst, "open")["reviewer"] == "site-engineer"
 
@@ -159,7 +159,7 @@ def test_reviewer_defaults_to_the_os_user_or_unknown(demo, monkeypatch):
 
 
 def test_bad_status_and_unknown_case_are_refused(demo):
-    model = api.load_model(demo.model)
+    model = afterlook.load_model(demo.model)
     with pytest.raises(AfterlookError) as info:
         review_entry(model, demo.cases, demo.worst, "fixed")
     assert all(s in info.value.message for s in STATUSES)
@@ -170,7 +170,7 @@ def test_bad_status_and_unknown_case_are_refused(demo):
 def test_add_twice_updates_with_history_and_keeps_created(demo, tmp_path):
     book = tmp_path / "book.json"
     clock = Clock()
-    model = api.load_model(demo.model)
+    model = afterlook.load_model(demo.model)
     first = add_to_casebook(book, model, demo.cases, demo.worst, "open", reviewer="a", clock=clock)
     second = add_to_casebook(book, model, demo.cases, demo.worst, "accepted-risk", note="rare", reviewer="b",
                              clock=clock)
@@ -186,7 +186,7 @@ def test_check_regresses_explained_cases_the_model_leaves_unflagged(demo, explai
     book = Casebook("unused.json")
     book.upsert(explained)
     book.upsert(bearing)
-    old = check_casebook(book, api.load_model(demo.model), demo.cases)
+    old = check_casebook(book, afterlook.load_model(demo.model), demo.cases)
     assert isinstance(old, CheckResult)
     assert old.regressed == [demo.worst] and not old.ok
     assert old.to_dict()["entries"] == 2 and old.to_dict()["ok"] is False
@@ -195,9 +195,9 @@ def test_check_regresses_explained_cases_the_model_leaves_unflagged(demo, explai
 
 
 def test_check_scores_the_stored_snapshot_of_a_case_missing_from_the_table(demo, explained, bearing):
-    from afterlook.discovery import try_features
+    from afterlook.analysis.trial import try_features
 
-    model = api.load_model(demo.model)
+    model = afterlook.load_model(demo.model)
     new = try_features(model, demo.cases, {demo.name: demo.expression}, train=demo.train).model
     book = Casebook("unused.json")
     book.upsert(explained)

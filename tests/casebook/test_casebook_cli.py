@@ -13,7 +13,7 @@ from html.parser import HTMLParser
 
 import pytest
 
-from afterlook.store.casebook import STATUSES
+from afterlook.store.casebook_file import STATUSES
 
 
 def sha(path) -> str:

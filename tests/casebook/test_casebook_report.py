@@ -10,11 +10,11 @@ from html.parser import HTMLParser
 
 import pytest
 
-from afterlook import api
-from afterlook.casebook import review_entry
+import afterlook
+from afterlook.analysis.review import review_entry
 from afterlook.cli.main import CAUTION
-from afterlook.report import histogram_svg, render_html, render_markdown
-from afterlook.store.casebook import Casebook
+from afterlook.analysis.report import histogram_svg, render_html, render_markdown
+from afterlook.store.casebook_file import Casebook
 
 HOSTILE = '<script>alert("x")</script> & "quoted" | pipe [link](https://example.invalid/x) *bold* `tick`'
 
@@ -54,9 +54,9 @@ def parse(text: str) -> Page:
 
 @pytest.fixture(scope="module")
 def book(demo):
-    model = api.load_model(demo.model)
-    cases = api.load_table(demo.cases)
-    misses = api.misses(model, cases).misses
+    model = afterlook.load_model(demo.model)
+    cases = afterlook.load_table(demo.cases)
+    misses = afterlook.misses(model, cases).misses
     derive = {demo.name: demo.expression}
     b = Casebook("pump.casebook.json")
     b.upsert(review_entry(model, cases, demo.worst, "explained", derive=derive, train=demo.train,

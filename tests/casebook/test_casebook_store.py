@@ -15,7 +15,7 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
 from afterlook.core.errors import AfterlookError
-from afterlook.store.casebook import (
+from afterlook.store.casebook_file import (
     HISTORY_LIMIT,
     STATUSES,
     Casebook,
@@ -110,7 +110,7 @@ def test_second_save_keeps_the_previous_file_as_bak(tmp_path):
 
 
 def test_a_failing_write_leaves_the_old_book_and_no_temp_file(tmp_path, monkeypatch):
-    import afterlook.store.casebook as store
+    import afterlook.store.casebook_file as store
 
     path = tmp_path / "book.json"
     book = Casebook.open(path)

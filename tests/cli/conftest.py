@@ -65,7 +65,7 @@ def demo_files(tmp_path_factory) -> DemoFiles:
 
     Read-only for the tests: copy a file before changing it.
     """
-    from afterlook import api
+    import afterlook
     from afterlook.demo import generate
     from afterlook.store.tables import write_table
 
@@ -77,7 +77,7 @@ def demo_files(tmp_path_factory) -> DemoFiles:
     files = DemoFiles(folder, train, cases, folder / "model_full.json", folder / "model_independent.json",
                       sc.train, sc.cases, sc.kinds)
     for kind, path in (("full", files.model_full), ("independent", files.model_independent)):
-        model = api.fit(api.load_table(train), cases=api.load_table(cases, require_labels=True),
+        model = afterlook.fit(afterlook.load_table(train), cases=afterlook.load_table(cases, require_labels=True),
                         kind=kind, threshold="f1")
         model.save(path)
     return files
@@ -127,9 +127,9 @@ def tiny_cases(tmp_path) -> Path:
 @pytest.fixture
 def tiny_model(tmp_path, tiny_train, tiny_cases) -> Path:
     """A full-covariance model fitted (in-process, through the API) on the tiny tables."""
-    from afterlook import api
+    import afterlook
 
-    model = api.fit(api.load_table(tiny_train), cases=api.load_table(tiny_cases, require_labels=True),
+    model = afterlook.fit(afterlook.load_table(tiny_train), cases=afterlook.load_table(tiny_cases, require_labels=True),
                     kind="full", threshold="f1")
     path = tmp_path / "tiny_model.json"
     model.save(path)

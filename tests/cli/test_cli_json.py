@@ -19,7 +19,8 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from afterlook import api
+import afterlook
+from afterlook.analysis.session import scored_cases
 from afterlook.demo import FEATURE_COLUMNS, generate
 
 DERIVE = "head_per_amp=(discharge_bar - suction_bar) / motor_current_a"
@@ -51,7 +52,7 @@ def demo_kinds() -> dict:
 @pytest.fixture(scope="module")
 def case_id(work) -> str:
     """The worst miss of the independent model (a case labelled anomaly that it scored as normal)."""
-    result = api.misses(api.load_model(work / "independent.json"), api.load_table(work / "cases.csv"))
+    result = afterlook.misses(afterlook.load_model(work / "independent.json"), afterlook.load_table(work / "cases.csv"))
     assert result.misses, "the small demo scenario should have misses under the independent model"
     return result.misses[0].case
 
@@ -128,34 +129,34 @@ def test_fit_on_tiny_tables_matches_the_api(tiny_train, tiny_cases, tiny_model, 
     assert doc["policy"] == "f1" and "tiny_cases.csv" in doc["chosen_on"]
     assert doc["metrics"]["tp"] >= 1  # the far-out anomaly c3 is flagged
     assert doc["metrics"]["tp"] + doc["metrics"]["fn"] == 3
-    api_model = api.load_model(tiny_model)
+    api_model = afterlook.load_model(tiny_model)
     assert doc["threshold"] == pytest.approx(api_model.threshold, rel=1e-12)
     assert doc["fingerprint"] == api_model.fingerprint()
-    assert api.load_model(out_path).fingerprint() == api_model.fingerprint()
+    assert afterlook.load_model(out_path).fingerprint() == api_model.fingerprint()
 
 
 def test_saved_model_scores_like_the_in_memory_model(runs, work):
     """CLI-fitted file, in-memory fit and its saved-and-reloaded copy give the same log-densities."""
     assert runs["fit_full"][0] == 0, runs["fit_full"][2]
-    train = api.load_table(work / "train.csv")
-    cases = api.load_table(work / "cases.csv")
+    train = afterlook.load_table(work / "train.csv")
+    cases = afterlook.load_table(work / "cases.csv")
     name, expr = DERIVE.split("=", 1)
     col, texpr = TRANSFORM.split("=", 1)
-    memory = api.fit(train, cases=cases, kind="full", derive={name.strip(): expr.strip()},
+    memory = afterlook.fit(train, cases=cases, kind="full", derive={name.strip(): expr.strip()},
                      transform={col: texpr})
     memory.save(work / "resaved.json")
-    reloaded = api.load_model(work / "resaved.json")
-    from_cli = api.load_model(work / "fit_full.json")
+    reloaded = afterlook.load_model(work / "resaved.json")
+    from_cli = afterlook.load_model(work / "fit_full.json")
 
-    ld_memory = api.scored_cases(memory, cases).log_density
+    ld_memory = scored_cases(memory, cases).log_density
     assert np.isfinite(ld_memory).all()
     for other in (reloaded, from_cli):
-        np.testing.assert_allclose(api.scored_cases(other, cases).log_density, ld_memory, rtol=1e-12, atol=1e-12)
+        np.testing.assert_allclose(scored_cases(other, cases).log_density, ld_memory, rtol=1e-12, atol=1e-12)
         assert other.threshold == pytest.approx(memory.threshold, rel=1e-12, abs=1e-12)
         assert other.features == memory.features
     # the comparison can fail: a different model scores differently
-    other_kind = api.fit(train, kind="independent", derive={name.strip(): expr.strip()}, transform={col: texpr})
-    assert not np.allclose(api.scored_cases(other_kind, cases).log_density, ld_memory, rtol=1e-6)
+    other_kind = afterlook.fit(train, kind="independent", derive={name.strip(): expr.strip()}, transform={col: texpr})
+    assert not np.allclose(scored_cases(other_kind, cases).log_density, ld_memory, rtol=1e-6)
 
 
 # --------------------------------------------------------------------------
@@ -168,7 +169,7 @@ def test_score_json(runs, work, demo_files, one_json):
     frame = demo_files.cases_frame
     assert doc["n_rows"] == len(frame) == len(doc["rows"])
     assert [r["case"] for r in doc["rows"]] == frame["id"].astype(str).tolist()
-    model = api.load_model(work / "full.json")
+    model = afterlook.load_model(work / "full.json")
     expected = model.log_density(frame)
     got = np.array([r["log_density"] for r in doc["rows"]], dtype=float)
     np.testing.assert_allclose(got, expected, rtol=1e-12)
@@ -191,7 +192,7 @@ def test_score_out_adds_two_columns(runs, work):
     pd.testing.assert_frame_equal(scored[numeric], original[numeric], check_dtype=False)
     for col in ("id", "station", "label"):
         assert scored[col].tolist() == original[col].tolist(), col
-    model = api.load_model(work / "full.json")
+    model = afterlook.load_model(work / "full.json")
     np.testing.assert_allclose(scored["log_density"], model.log_density(original), rtol=1e-12)
     assert scored["flagged"].tolist() == (scored["log_density"] < model.threshold).tolist()
     assert 0 < scored["flagged"].sum() < len(scored)
@@ -228,8 +229,8 @@ def test_misses_json_matches_api(kind, runs, work, demo_files, one_json):
     margins = [m["margin"] for m in misses]
     assert margins == sorted(margins, reverse=True)
 
-    model = api.load_model(work / f"{kind}.json")
-    expected = api.misses(model, api.load_table(work / "cases.csv")).to_dict()
+    model = afterlook.load_model(work / f"{kind}.json")
+    expected = afterlook.misses(model, afterlook.load_table(work / "cases.csv")).to_dict()
     assert doc == _roundtrip(expected)
 
 
@@ -251,8 +252,8 @@ def test_explain_json_matches_api(kind, runs, work, case_id, one_json):
         else:
             assert _finite_number(f["conditional_z"])
 
-    model = api.load_model(work / f"{kind}.json")
-    expected = api.explain(model, api.load_table(work / "cases.csv"), case_id).to_dict()
+    model = afterlook.load_model(work / f"{kind}.json")
+    expected = afterlook.explain(model, afterlook.load_table(work / "cases.csv"), case_id).to_dict()
     assert doc == _roundtrip(expected)
 
 
@@ -280,9 +281,9 @@ def test_demo_text(runs, work, demo_kinds):
     saved = json.loads((folder / "model.json").read_text())
     assert saved["format"] == "afterlook-model" and saved["model"]["kind"] == "independent"
 
-    model = api.load_model(folder / "model.json")
-    cases = api.load_table(folder / "cases.csv")
-    worst = api.misses(model, cases).misses[0]
+    model = afterlook.load_model(folder / "model.json")
+    cases = afterlook.load_table(folder / "cases.csv")
+    worst = afterlook.misses(model, cases).misses[0]
     assert demo_kinds[worst.case] in RELATION_KINDS
 
     row = _first_miss_row(out)
@@ -312,7 +313,7 @@ def test_demo_json(runs, work, demo_kinds, one_json):
     assert worst is not None
     assert worst["case"] == doc["misses"]["misses"][0]["case"]
     assert demo_kinds[worst["case"]] in RELATION_KINDS
-    model = api.load_model(folder / "model.json")
+    model = afterlook.load_model(folder / "model.json")
     names = [f["name"] for f in worst["features"]]
     assert names == model.features
     assert set(FEATURE_COLUMNS) <= set(names)
@@ -321,7 +322,7 @@ def test_demo_json(runs, work, demo_kinds, one_json):
             assert _finite_number(f[key]), (f["name"], key)
         assert f["conditional_z"] is None  # the demo model is independent
     # same analysis as the Python API on the written files
-    expected = api.explain(model, api.load_table(folder / "cases.csv"), worst["case"]).to_dict()
+    expected = afterlook.explain(model, afterlook.load_table(folder / "cases.csv"), worst["case"]).to_dict()
     assert worst == _roundtrip(expected)
 
 

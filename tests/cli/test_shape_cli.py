@@ -94,10 +94,10 @@ def test_json_numbers_equal_scipy_on_the_seeded_sample(shape_doc, demo_train):
 
 
 def test_api_to_dict_equals_the_cli_json(shape_doc, demo_train):
-    from afterlook import api
+    import afterlook
 
     path, _ = demo_train
-    assert json.loads(json.dumps(api.shape(api.load_table(path)).to_dict())) == shape_doc
+    assert json.loads(json.dumps(afterlook.shape(afterlook.load_table(path)).to_dict())) == shape_doc
 
 
 def test_suggested_transform_fits(run_cli, demo_train, shape_doc, tmp_path):

@@ -191,18 +191,18 @@ class FittedFleet:
 
     def unflagged(self, ids) -> list[str]:
         """Those of ``ids`` the fitted model leaves unflagged (misses, for anomalies)."""
-        from afterlook import api
+        from afterlook.analysis.session import scored_cases
 
-        sc = api.scored_cases(self.model, self.cases)
+        sc = scored_cases(self.model, self.cases)
         flagged = dict(zip((str(i) for i in sc.table.ids), sc.flagged))
         return [i for i in ids if not flagged[i]]
 
 
 def fit_fleet(fleet: Fleet) -> FittedFleet:
     """The per-column (independent) Gaussian: the kind that misses relation breaks."""
-    from afterlook import api
+    import afterlook
 
-    return FittedFleet(fleet, api.fit(fleet.train, cases=fleet.cases, kind="independent"))
+    return FittedFleet(fleet, afterlook.fit(fleet.train, cases=fleet.cases, kind="independent"))
 
 
 @pytest.fixture(scope="session")

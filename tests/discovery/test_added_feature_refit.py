@@ -14,7 +14,9 @@ import pytest
 import afterlook
 from afterlook.core.errors import AfterlookError
 from afterlook.demo import generate
-from afterlook.discovery import AddedFeatureRefit, resolve_training, try_features
+from afterlook.analysis.discovery import AddedFeatureRefit
+from afterlook.analysis.session import Session
+from afterlook.analysis.trial import try_features
 
 EXPRESSIONS = [
     "motor_current_a / (flow_m3h * (discharge_bar - suction_bar))",
@@ -33,13 +35,12 @@ def demo():
 @pytest.mark.parametrize("kind,shrinkage", [("independent", None), ("full", None), ("full", 0.2)])
 @pytest.mark.parametrize("policy", ["f1", "rate:0.02"])
 def test_fast_refit_equals_full_refit(demo, kind, shrinkage, policy):
-    from afterlook.api import as_table
+    from afterlook.analysis.session import as_table
 
     tr, cs = as_table(demo.train), as_table(demo.cases)
     model = afterlook.fit(tr, cases=cs, kind=kind, shrinkage=shrinkage, threshold=policy,
                           transform={"hours_since_service": "log(hours_since_service + 1)"})
-    training = resolve_training(model, cs, tr)
-    fast = AddedFeatureRefit.prepare(model, training, cs)
+    fast = AddedFeatureRefit.prepare(Session(model, cs, tr))
     assert fast is not None
     compared = 0
     for text in EXPRESSIONS:
@@ -54,24 +55,24 @@ def test_fast_refit_equals_full_refit(demo, kind, shrinkage, policy):
         threshold, flagged, conf = outcome
         assert threshold == pytest.approx(full.threshold_after, rel=1e-9, abs=1e-9)
         assert conf == full.after, text
-        ref_flagged = afterlook.api.scored_cases(full.model, cs).flagged
+        ref_flagged = Session(full.model, cs).scored.flagged
         np.testing.assert_array_equal(flagged, ref_flagged)
         compared += 1
     assert compared >= 3
 
 
 def test_robust_or_ledoit_wolf_fall_back_to_the_full_refit(demo):
-    from afterlook.api import as_table
+    from afterlook.analysis.session import as_table
 
     tr, cs = as_table(demo.train), as_table(demo.cases)
     model = afterlook.fit(tr, cases=cs, kind="full", shrinkage="ledoit-wolf")
-    assert AddedFeatureRefit.prepare(model, resolve_training(model, cs, tr), cs) is None
+    assert AddedFeatureRefit.prepare(Session(model, cs, tr)) is None
 
 
 def test_a_candidate_with_nan_on_training_rows_falls_back(demo):
-    from afterlook.api import as_table
+    from afterlook.analysis.session import as_table
 
     tr, cs = as_table(demo.train), as_table(demo.cases)
     model = afterlook.fit(tr, cases=cs, kind="independent")
-    fast = AddedFeatureRefit.prepare(model, resolve_training(model, cs, tr), cs)
+    fast = AddedFeatureRefit.prepare(Session(model, cs, tr))
     assert fast.evaluate("log(hours_since_service - 100)") is None  # log of negatives on some rows

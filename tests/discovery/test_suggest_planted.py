@@ -13,9 +13,9 @@ import numpy as np
 import pytest
 from scipy import stats
 
-from afterlook import api
+import afterlook
 from afterlook.core import candidates as cand
-from afterlook.discovery import suggest
+from afterlook.analysis.discovery import suggest
 
 RELATION_KINDS = ("ratio", "difference", "square")
 SEEDS = (0, 1, 2)
@@ -145,7 +145,7 @@ def test_null_fleet_nothing_beats_chance(fleet_factory, seed):
 
 def test_null_fleet_cli_table_says_nothing_beats_chance(fleet_files, run_cli):
     files = fleet_files("null", 0)
-    found = api.misses(api.load_model(files.model), api.load_table(files.cases))
+    found = afterlook.misses(afterlook.load_model(files.model), afterlook.load_table(files.cases))
     null_misses = [m.case for m in found.misses if m.case in files.fleet.null_anomalies]
     assert null_misses
     code, out, err = run_cli("suggest", files.model, files.cases, null_misses[0])

@@ -17,8 +17,8 @@ import pandas as pd
 import pytest
 from scipy import stats
 
-from afterlook import api
-from afterlook.discovery import try_features
+import afterlook
+from afterlook.analysis.trial import try_features
 
 BASE = list("abcdef")
 
@@ -178,7 +178,7 @@ def test_cli_try_json_shape_matches_api(fleet_files, run_cli, one_json):
             assert {"log_density", "flagged"} <= set(row[side])
             assert isinstance(row[side]["flagged"], bool)
     # the CLI document is the API result's to_dict(), number for number
-    api_doc = try_features(api.load_model(files.model), api.load_table(files.cases), {"r": "a/b"}).to_dict()
+    api_doc = try_features(afterlook.load_model(files.model), afterlook.load_table(files.cases), {"r": "a/b"}).to_dict()
     for side in ("before", "after"):
         assert doc[side] == pytest.approx(api_doc[side], rel=1e-12)
     assert [r["case"] for r in doc["cases"]] == [r["case"] for r in api_doc["cases"]]
@@ -269,7 +269,7 @@ def test_try_train_option_overrides(changed_train, run_cli, one_json):
 
 def test_try_finds_recorded_training_file_beside_the_moved_model(tmp_path, fleet_maker, run_cli, one_json):
     """Fitted with relative names in one folder, used from another: the training file is looked for beside
-    the model file (documented in afterlook.discovery)."""
+    the model file (documented in afterlook.analysis.session)."""
     make_fleet, write_fleet_files = fleet_maker
     files = write_fleet_files(make_fleet("ratio", 4), tmp_path / "site", fit_model=False)
     code, _, err = run_cli("fit", "train.csv", "--out", "model.json", "--cases", "cases.csv", "--kind", "independent",

@@ -15,7 +15,7 @@ import numpy as np
 import pytest
 
 import afterlook
-from afterlook.api import fit, fit_streamed
+from afterlook.analysis.fitting import fit, fit_streamed
 from afterlook.core.errors import AfterlookError
 from afterlook.core.gaussian import SufficientStats
 from afterlook.demo import generate

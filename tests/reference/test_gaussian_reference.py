@@ -292,10 +292,10 @@ def test_breast_cancer_full_model_separates_malignant_cases():
     # 0.965 with the plain covariance when written), not a published one.
     from sklearn.metrics import roc_auc_score
 
-    from afterlook import api
+    import afterlook
 
     train, cases, is_malignant, features = _breast_cancer_split(seed=0)
-    model = api.fit(train, kind="full", columns=features, threshold="rate:0.01")  # plain: no shrinkage needed
+    model = afterlook.fit(train, kind="full", columns=features, threshold="rate:0.01")  # plain: no shrinkage needed
     assert model.density.shrinkage_ == 0.0
     ld = model.log_density(cases)
     assert np.all(np.isfinite(ld))
@@ -309,10 +309,10 @@ def test_breast_cancer_ledoit_wolf_separates_malignant_cases_on_several_splits(s
     # between about 0.97 and 0.98 on these seeded splits when written.
     from sklearn.metrics import roc_auc_score
 
-    from afterlook import api
+    import afterlook
 
     train, cases, is_malignant, features = _breast_cancer_split(seed=seed)
-    model = api.fit(train, kind="full", columns=features, shrinkage="ledoit-wolf", threshold="rate:0.01")
+    model = afterlook.fit(train, kind="full", columns=features, shrinkage="ledoit-wolf", threshold="rate:0.01")
     assert 0.0 < model.density.shrinkage_ < 1.0
     auc = roc_auc_score(is_malignant, -model.log_density(cases))
     assert auc >= 0.95, auc

@@ -25,7 +25,7 @@ class Demo:
 
 @pytest.fixture(scope="session")
 def demo(tmp_path_factory) -> Demo:
-    from afterlook.cli.demo_command import write_demo
+    from afterlook.demo.writer import write_demo
 
     folder = tmp_path_factory.mktemp("workbench_demo")
     train, cases, model = write_demo(folder, seed=DEMO_SEED)
@@ -42,7 +42,7 @@ def demo_copy(demo, tmp_path) -> Demo:
 
 @pytest.fixture(scope="session")
 def session(demo):
-    from afterlook.workbench_data import open_session
+    from afterlook.analysis.workbench import open_session
 
     return open_session(demo.model, demo.cases, train_path=demo.train, casebook=demo.folder / "unused.json")
 

@@ -10,7 +10,7 @@ from pathlib import Path
 
 import pytest
 
-from afterlook import api
+import afterlook
 
 SCRIPT = Path(sys.executable).parent / "afterlook"
 
@@ -28,7 +28,7 @@ def test_review_json_prints_what_the_workbench_opens_on(demo, tmp_path):
                          "--json")
     assert code == 0, err
     doc = json.loads(out)
-    ref = api.misses(api.load_model(demo.model), api.load_table(demo.cases, require_labels=True)).to_dict()
+    ref = afterlook.misses(afterlook.load_model(demo.model), afterlook.load_table(demo.cases, require_labels=True)).to_dict()
     assert doc["threshold"] == ref["threshold"]
     assert (doc["n_cases"], doc["n_anomalies"], doc["n_misses"]) == (ref["n_cases"], ref["n_anomalies"],
                                                                      ref["n_misses"])

@@ -13,7 +13,7 @@ from __future__ import annotations
 import pytest
 
 from afterlook.core.candidates import Candidate
-from afterlook.discovery import SuggestResult
+from afterlook.analysis.discovery import SuggestResult
 from afterlook.tui import create_app
 from afterlook.tui.messages import CandidatesReady
 

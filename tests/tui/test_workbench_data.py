@@ -1,7 +1,7 @@
-"""The numbers the workbench shows (afterlook.workbench_data) against the API and naive recomputations.
+"""The numbers the workbench shows (afterlook.analysis.workbench) against the API and naive recomputations.
 
-References: :func:`afterlook.api.misses`, :func:`afterlook.api.explain`,
-:func:`afterlook.discovery.try_features` and :func:`afterlook.api.shape` (the
+References: :func:`afterlook.analysis.evidence.misses`, :func:`afterlook.analysis.evidence.explain`,
+:func:`afterlook.analysis.trial.try_features` and :func:`afterlook.analysis.shaping.shape` (the
 CLI's functions: a number on the screen must equal the one the CLI prints),
 plus numpy written out here for what those do not cover.
 """
@@ -11,18 +11,19 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from afterlook import api
+import afterlook
+from afterlook.analysis.session import scored_cases
 from afterlook.core.errors import AfterlookError
 from afterlook.core.histograms import histogram_counts
-from afterlook.discovery import try_features
-from afterlook import workbench_data as wd
+from afterlook.analysis.trial import try_features
+from afterlook.analysis import workbench as wd
 
 
 @pytest.fixture(scope="module")
 def frames(demo):
-    model = api.load_model(demo.model)
-    cases = api.load_table(demo.cases, require_labels=True)
-    train = api.load_table(demo.train)
+    model = afterlook.load_model(demo.model)
+    cases = afterlook.load_table(demo.cases, require_labels=True)
+    train = afterlook.load_table(demo.train)
     return model, cases, train
 
 
@@ -42,7 +43,7 @@ def test_default_casebook_sits_next_to_the_cases(demo):
 
 def test_status_summary_equals_the_misses_document(session, frames):
     model, cases, _ = frames
-    doc = api.misses(model, cases).to_dict()
+    doc = afterlook.misses(model, cases).to_dict()
     s = wd.status_summary(session)
     assert s.threshold == doc["threshold"] == model.threshold
     assert (s.n_cases, s.n_anomalies, s.n_misses) == (doc["n_cases"], doc["n_anomalies"], doc["n_misses"])
@@ -56,7 +57,7 @@ def test_status_summary_equals_the_misses_document(session, frames):
 def test_case_list_misses_come_worst_margin_first_as_the_api_lists_them(session, frames):
     model, cases, _ = frames
     rows = wd.case_rows(session)
-    listed = api.misses(model, cases).misses
+    listed = afterlook.misses(model, cases).misses
     assert [r.case for r in rows] == [m.case for m in listed]
     assert all(r.kind == wd.KIND_MISS for r in rows)
     margins = [r.margin for r in rows]
@@ -65,7 +66,7 @@ def test_case_list_misses_come_worst_margin_first_as_the_api_lists_them(session,
 
 def test_near_catches_and_false_alarms_follow_their_definitions(session, frames):
     model, cases, _ = frames
-    sc = api.scored_cases(model, cases)
+    sc = scored_cases(model, cases)
     ld, y, thr = sc.log_density, cases.labels, model.threshold
     gap = float(np.median(ld[~y])) - thr  # a typical normal case's distance above the threshold
     assert wd.near_catch_gap(session) == pytest.approx(gap)
@@ -96,7 +97,7 @@ def test_evidence_equals_explain_and_shares_add_up(session, frames):
     model, cases, _ = frames
     case = wd.case_rows(session)[0].case
     view = wd.case_evidence(session, case)
-    ref = api.explain(model, cases, case).to_dict()
+    ref = afterlook.explain(model, cases, case).to_dict()
     assert view.explain.to_dict() == ref
     by_name = {f["name"]: f for f in ref["features"]}
     for r in view.rows:
@@ -198,7 +199,7 @@ def test_trial_view_margins_changes_and_flips(session):
 
 def test_flip_words():
     assert wd.flip_words(False, True) == "now flagged"
-    assert wd.flip_words(True, False) == "now unflagged"
+    assert wd.flip_words(True, False) == "no longer flagged"
     assert wd.flip_words(True, True) == "still flagged"
     assert wd.flip_words(False, False) == "still not flagged"
 
@@ -230,7 +231,7 @@ def test_shaped_histogram_uses_the_transform_shape_picks(session, frames):
     case = wd.case_rows(session)[0].case
     name = "flow_m3h"
     view = wd.histogram_view(session, wd.HistogramSource("feature", name), case, shaped=True, bins=20)
-    picked = api.shape(_normal_train(frames), columns=[name]).features[0]
+    picked = afterlook.shape(_normal_train(frames), columns=[name]).features[0]
     assert picked.transform is not None, "the demo's flow is skewed; shape should pick a transform"
     assert view.shape_note == f"shaped: {picked.description}"
     from afterlook.core.recipe import apply_transform
@@ -277,7 +278,7 @@ def test_histogram_sources_list_features_then_candidates(session):
 
 
 def test_casebook_ids_and_save(demo, tmp_path):
-    from afterlook.store.casebook import Casebook
+    from afterlook.store.casebook_file import Casebook
 
     book = tmp_path / "book.json"
     s = wd.open_session(demo.model, demo.cases, train_path=demo.train, casebook=book)

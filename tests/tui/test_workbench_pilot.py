@@ -2,7 +2,7 @@
 
 Every test builds the App with :func:`afterlook.tui.create_app`, the factory
 the CLI uses, on the demo written by ``write_demo`` (seed 7), at 120 x 40.
-Expected values come from the API (``afterlook.api`` / ``afterlook.discovery``)
+Expected values come from the API (``afterlook.analysis``)
 or the casebook file, never from the App itself.
 """
 
@@ -13,10 +13,10 @@ import threading
 import pytest
 from textual.widgets import DataTable, Input, Static
 
-from afterlook import api
+import afterlook
 from afterlook.core.errors import AfterlookError
-from afterlook.discovery import try_features
-from afterlook.store.casebook import Casebook
+from afterlook.analysis.trial import try_features
+from afterlook.store.casebook_file import Casebook
 from afterlook.tui import create_app
 from afterlook.tui.keys import WORKBENCH_KEYS
 from afterlook.tui.screens.help import HelpScreen
@@ -26,8 +26,8 @@ SIZE = (120, 40)
 
 
 def worst_miss(demo) -> str:
-    model = api.load_model(demo.model)
-    return api.misses(model, api.load_table(demo.cases, require_labels=True)).misses[0].case
+    model = afterlook.load_model(demo.model)
+    return afterlook.misses(model, afterlook.load_table(demo.cases, require_labels=True)).misses[0].case
 
 
 def cell(app, table_id: str, row_key: str, column_key: str) -> str:
@@ -73,8 +73,8 @@ async def test_main_flow_worst_miss_candidates_apply_flip_and_save(demo, tmp_pat
         await pilot.press("a")
         await wait_until(pilot, lambda: app.trial_view is not None, what="the try result")
         assert app.trial.derive == [(top.name, top.expression)]
-        ref = try_features(api.load_model(demo.model), api.load_table(demo.cases), {top.name: top.expression},
-                           train=api.load_table(demo.train), focus=[worst])
+        ref = try_features(afterlook.load_model(demo.model), afterlook.load_table(demo.cases), {top.name: top.expression},
+                           train=afterlook.load_table(demo.train), focus=[worst])
         ref_row = next(r for r in ref.to_dict()["cases"] if r["case"] == worst)
         assert ref_row["before"]["flagged"] is False and ref_row["after"]["flagged"] is True
         assert app.trial_view.case.flagged_after is True and app.trial_view.case.flagged_before is False
@@ -138,7 +138,7 @@ async def test_bad_expression_shows_the_error_and_changes_nothing(demo, tmp_path
 
 @pytest.mark.asyncio
 async def test_toggles_and_filter_change_the_list(demo, session, tmp_path):
-    from afterlook import workbench_data as wd
+    from afterlook.analysis import workbench as wd
 
     counts = wd.case_counts(session)
     app = create_app(demo.model, demo.cases, train_path=demo.train, casebook=tmp_path / "b.json",
@@ -207,7 +207,7 @@ async def test_help_lists_every_key_and_q_quits(demo, tmp_path):
 
 @pytest.mark.asyncio
 async def test_stale_candidate_runs_are_dropped(demo, tmp_path, monkeypatch, wait_until):
-    from afterlook import workbench_data as wd
+    from afterlook.analysis import workbench as wd
 
     first_may_finish = threading.Event()
     real = wd.find_candidates
@@ -314,11 +314,11 @@ async def test_the_mouse_selects_cases_and_tabs_and_z_zooms(demo, tmp_path):
 
 @pytest.mark.asyncio
 async def test_full_model_evidence_shows_conditional_z(demo, tmp_path):
-    from afterlook.cli.demo_command import DEMO_DERIVE, DEMO_TRANSFORM
+    from afterlook.demo.writer import DEMO_DERIVE, DEMO_TRANSFORM
 
-    train, cases = api.load_table(demo.train), api.load_table(demo.cases, require_labels=True)
+    train, cases = afterlook.load_table(demo.train), afterlook.load_table(demo.cases, require_labels=True)
     # the full model, without the derived column (it would be collinear with the base readings)
-    model = api.fit(train, cases=cases, kind="full", threshold="f1", transform=DEMO_TRANSFORM)
+    model = afterlook.fit(train, cases=cases, kind="full", threshold="f1", transform=DEMO_TRANSFORM)
     assert DEMO_DERIVE  # the demo's own recipe derives; this one deliberately does not
     path = tmp_path / "full.json"
     model.save(path)
@@ -326,7 +326,7 @@ async def test_full_model_evidence_shows_conditional_z(demo, tmp_path):
     async with app.run_test(size=SIZE) as pilot:
         await pilot.pause()
         case = app.selected_case
-        ref = {f["name"]: f for f in api.explain(model, cases, case).to_dict()["features"]}
+        ref = {f["name"]: f for f in afterlook.explain(model, cases, case).to_dict()["features"]}
         table = app.workbench.query_one("#evidence-table", DataTable)
         keys = [c.key.value for c in table.ordered_columns]
         assert "cond_z" in keys and "relation" in keys

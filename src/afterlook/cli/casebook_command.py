@@ -1,7 +1,7 @@
 """`afterlook casebook add|list|show|report|check`: argument parsing and output only.
 
-The entry is built by :mod:`afterlook.casebook`, the file is handled by
-:mod:`afterlook.store.casebook`, reports come from :mod:`afterlook.report`.
+The entry is built by :mod:`afterlook.analysis.review`, the file is handled by
+:mod:`afterlook.store.casebook_file`, reports come from :mod:`afterlook.analysis.report`.
 """
 
 from __future__ import annotations
@@ -12,7 +12,8 @@ import sys
 from pathlib import Path
 
 from ..core.errors import AfterlookError
-from .exit_codes import EXIT_CHECK_FAILED, EXIT_OK
+from ..core.errors import EXIT_CHECK_FAILED, EXIT_OK
+from .output import emit_json, warn
 
 ACTIONS = ("add", "list", "show", "report", "check")
 
@@ -25,7 +26,7 @@ DESCRIPTION = (
 
 
 def register(sub, add_common, add_table_opts, caution) -> dict:
-    from ..store.casebook import STATUSES
+    from ..store.casebook_file import STATUSES
 
     p = sub.add_parser("casebook", help="record reviewed misses; list, show, report, regression-check",
                        description=DESCRIPTION, epilog=caution)
@@ -81,15 +82,6 @@ def run(args) -> int:
     return {"add": run_add, "list": run_list, "show": run_show, "report": run_report, "check": run_check}[action](args)
 
 
-def _emit_json(doc) -> None:
-    sys.stdout.write(json.dumps(doc, indent=2, allow_nan=False) + "\n")
-
-
-def _warn(messages) -> None:
-    for m in messages:
-        print(f"afterlook: warning: {m}", file=sys.stderr)
-
-
 def _fmt(x) -> str:
     from .render import fmt
 
@@ -102,27 +94,25 @@ def _fmt(x) -> str:
 
 
 def run_add(args) -> int:
-    from .. import api
-    from ..casebook import add_to_casebook
+    from ..analysis.review import add_to_casebook
     from ..core.recipe import parse_assignment
-    from ..store.casebook import Casebook, check_status
+    from ..store.casebook_file import Casebook, check_status
+    from .inputs import open_session
 
     check_status(args.status)
     pairs = [parse_assignment(d, "--derive") for d in args.derive]
     existing = Casebook.open(args.book, create=True)  # refuse a bad book before the (slower) review
     previous = existing.entries.get(str(args.case))
-    model = api.load_model(args.model)
-    cases = api.load_table(args.cases, id_col=args.id_col, label_col=args.label_col)
-    train = api.load_table(args.train, id_col=args.id_col, label_col=args.label_col) if args.train else None
-    entry = add_to_casebook(args.book, model, cases, args.case, args.status, derive=pairs or None, note=args.note,
-                            reviewer=args.reviewer, train=train, model_path=args.model)
-    _warn(entry.get("warnings") or [])
+    session = open_session(args, require_labels=False)
+    entry = add_to_casebook(args.book, session, None, args.case, args.status, derive=pairs or None, note=args.note,
+                            reviewer=args.reviewer, model_path=args.model)
+    warn(entry.get("warnings") or [])
     final = entry.get("after") or entry.get("before") or {}
     if entry["status"] == "explained" and not final.get("flagged"):
-        _warn([f"case {entry['case']} is marked explained but the {'re-fitted' if entry.get('after') else 'given'} "
+        warn([f"case {entry['case']} is marked explained but the {'re-fitted' if entry.get('after') else 'given'} "
                "model does not flag it; 'casebook check' will report it as regressed"])
     if args.json:
-        _emit_json(entry)
+        emit_json(entry)
         return EXIT_OK
     from . import render
 
@@ -150,12 +140,12 @@ def _score_words(entry: dict) -> str:
 
 
 def run_list(args) -> int:
-    from ..store.casebook import Casebook
+    from ..store.casebook_file import Casebook
 
     book = Casebook.open(args.book, create=False)
     entries = [book.entries[k] for k in sorted(book.entries)]
     if args.json:
-        _emit_json({"book": args.book, "entries": [_list_row(e) for e in entries]})
+        emit_json({"book": args.book, "entries": [_list_row(e) for e in entries]})
         return EXIT_OK
     from rich import box
     from rich.table import Table
@@ -232,16 +222,16 @@ def _versus(part: dict | None) -> str:
 
 
 def run_show(args) -> int:
-    from ..store.casebook import Casebook
+    from ..store.casebook_file import Casebook
 
     book = Casebook.open(args.book, create=False)
     entry = book.get(args.case_id)
     if args.json:
-        _emit_json(entry)
+        emit_json(entry)
         return EXIT_OK
     from rich.markdown import Markdown
 
-    from .. import report
+    from ..analysis import report
     from . import render
 
     render.console().print(Markdown(report.render_entry_markdown(entry)))
@@ -254,8 +244,8 @@ def run_show(args) -> int:
 
 
 def run_report(args) -> int:
-    from .. import report
-    from ..store.casebook import Casebook, write_bytes_atomic
+    from ..analysis import report
+    from ..store.casebook_file import Casebook, write_bytes_atomic
 
     fmt = args.format
     if fmt is None:
@@ -270,7 +260,7 @@ def run_report(args) -> int:
         doc = {"book": args.book, "format": fmt, "out": args.out, "entries": len(book.entries)}
         if not args.out:
             doc["report"] = text
-        _emit_json(doc)
+        emit_json(doc)
         return EXIT_OK
     if args.out:
         print(f"wrote {args.out} ({fmt}, {len(book.entries)} case(s))")
@@ -281,7 +271,7 @@ def run_report(args) -> int:
 
 def _refuse_overwriting_a_book(out: Path, book: Path) -> None:
     """A report must never replace a casebook (this one, its backup, or any other), nor a model file."""
-    from ..store.casebook import FORMAT, backup_path
+    from ..store.casebook_file import FORMAT, backup_path
 
     for protected in (book, backup_path(book)):
         if out.exists() and protected.exists() and os.path.samefile(out, protected):
@@ -304,18 +294,17 @@ def _refuse_overwriting_a_book(out: Path, book: Path) -> None:
 
 
 def run_check(args) -> int:
-    from .. import api
-    from ..casebook import check_casebook
-    from ..store.casebook import Casebook
+    from ..analysis.review import check_casebook
+    from ..store.casebook_file import Casebook
+    from .inputs import open_session
 
     book = Casebook.open(args.book, create=False)
-    model = api.load_model(args.model)
-    cases = api.load_table(args.cases, id_col=args.id_col, label_col=args.label_col)
-    result = check_casebook(book, model, cases)
-    _warn(cases.warnings)
+    session = open_session(args, require_labels=False)
+    result = check_casebook(book, session, None)
+    warn(session.cases.warnings)
     code = EXIT_OK if result.ok else EXIT_CHECK_FAILED
     if args.json:
-        _emit_json(result.to_dict())
+        emit_json(result.to_dict())
         return code
     from rich import box
     from rich.table import Table
@@ -324,7 +313,7 @@ def run_check(args) -> int:
     from . import render
 
     out = render.console()
-    out.print(render.model_line(model, args.model))
+    out.print(render.model_line(session.model, args.model))
     table = Table(box=box.SIMPLE_HEAD, show_edge=False, pad_edge=False)
     for name, justify in (("case", "left"), ("status", "left"), ("log-density", "right"), ("threshold", "right"),
                           ("now", "left"), ("verdict", "left")):

@@ -2,16 +2,16 @@
 
 from __future__ import annotations
 
-import json
 import math
-import sys
 
 from rich import box
 from rich.table import Table
 from rich.text import Text
 
 from ..core.errors import AfterlookError
-from .exit_codes import EXIT_OK
+from ..analysis.wording import flip_words
+from ..core.errors import EXIT_OK
+from .output import emit_json, warn
 
 
 def register(sub, add_common, add_table_opts, caution) -> dict:
@@ -42,23 +42,10 @@ def register(sub, add_common, add_table_opts, caution) -> dict:
     return {"suggest": run_suggest, "try": run_try}
 
 
-def _load(args):
-    from .. import api
-
-    model = api.load_model(args.model)
-    cases = api.load_table(args.cases, id_col=args.id_col, label_col=args.label_col, require_labels=True)
-    train = api.load_table(args.train, id_col=args.id_col, label_col=args.label_col) if args.train else None
-    return model, cases, train
-
-
-def _warn(messages) -> None:
-    for m in messages:
-        print(f"afterlook: warning: {m}", file=sys.stderr)
-
-
 def run_suggest(args) -> int:
+    from ..analysis.discovery import suggest
     from ..core.candidates import Settings
-    from ..discovery import suggest
+    from .inputs import open_session
 
     if args.top < 1:
         raise AfterlookError("--top must be at least 1")
@@ -66,28 +53,20 @@ def run_suggest(args) -> int:
         raise AfterlookError("--alarm-rate must lie strictly between 0 and 1")
     if args.sample < 100:
         raise AfterlookError("--sample must be at least 100 rows")
-    model, cases, train = _load(args)
+    session = open_session(args)
     settings = Settings(sample_size=args.sample, min_correlation=args.min_correlation, alarm_rate=args.alarm_rate)
-    result = suggest(model, cases, train=train, case_ids=args.case_ids or None, top=args.top,
+    result = suggest(session, None, case_ids=args.case_ids or None, top=args.top,
                      settings=settings, shaping=not args.no_shaping)
-    _warn(result.warnings)
+    warn(result.warnings)
     if args.json:
-        sys.stdout.write(json.dumps(result.to_dict(), indent=2, allow_nan=False) + "\n")
+        emit_json(result.to_dict())
         return EXIT_OK
     from . import render
 
     out = render.console()
-    out.print(render.model_line(model, args.model))
+    out.print(render.model_line(session.model, args.model))
     out.print(suggest_table(result))
     return EXIT_OK
-
-
-def verdict_words(c) -> str:
-    if c.beyond_chance:
-        if c.false_alarms_added is not None and c.catches_targets is not None:
-            return f"finding; catches {c.catches_targets}, {c.false_alarms_added:+d} false alarms"
-        return "finding (not re-fitted)"
-    return "could be chance"
 
 
 def suggest_table(result):
@@ -125,29 +104,30 @@ def suggest_table(result):
 
 
 def run_try(args) -> int:
+    from ..analysis.trial import try_features
     from ..core.recipe import parse_assignment
-    from ..discovery import try_features
+    from .inputs import open_session
 
     pairs = [parse_assignment(d, "--derive") for d in args.derive]
     if args.out:
         from ..store.atomic import check_writable
 
         check_writable(args.out)
-    model, cases, train = _load(args)
-    result = try_features(model, cases, pairs, train=train, focus=args.case)
-    _warn(result.warnings)
+    session = open_session(args)
+    result = try_features(session, None, pairs, focus=args.case)
+    warn(result.warnings)
     if args.out:
         result.model.save(args.out)
     if args.json:
         doc = result.to_dict()
         if args.out:
             doc["out"] = args.out
-        sys.stdout.write(json.dumps(doc, indent=2, allow_nan=False) + "\n")
+        emit_json(doc)
         return EXIT_OK
     from . import render
 
     out = render.console()
-    out.print(render.model_line(model, args.model))
+    out.print(render.model_line(session.model, args.model))
     out.print(try_table(result))
     if args.out:
         out.print(f"wrote {args.out} (recipe now: {', '.join(result.model.features)})")
@@ -177,9 +157,7 @@ def try_table(result):
     flips.add_column("change")
     for row in d["cases"][:25]:
         b, a = row["before"], row["after"]
-        change = ("now flagged" if a["flagged"] and not b["flagged"] else
-                  "no longer flagged" if b["flagged"] and not a["flagged"] else
-                  ("flagged" if a["flagged"] else "still unflagged"))
+        change = flip_words(b["flagged"], a["flagged"])
         flips.add_row(row["case"], row["label"], _ld(b), _ld(a), change)
     parts = [head, t, summary, flips]
     if len(d["cases"]) > 25:

@@ -1,22 +1,22 @@
-"""Command line: argument parsing, exit codes, output. No numerics.
+"""Command line: the parser, its command registry, dispatch and one-line errors. No numerics.
 
 Every command accepts ``--json`` (one JSON document on stdout, nothing
-else). Errors are one line on stderr. Exit codes are in
-:mod:`afterlook.cli.exit_codes`.
+else; :mod:`afterlook.cli.output`). Errors are one line on stderr. Exit
+codes are in :mod:`afterlook.core.errors`.
 """
 
 from __future__ import annotations
 
 import argparse
-import json
 import os
 import sys
 
 from .. import _version
 from ..cautions import CAUTION
-from ..core.errors import AfterlookError
+from ..core.errors import EXIT_BAD_INPUT, EXIT_CHECK_FAILED, EXIT_INTERNAL, EXIT_INTERRUPTED, EXIT_OK, AfterlookError
+from ..core.numbers import finite_or_none
 from ..store.atomic import check_writable
-from .exit_codes import EXIT_BAD_INPUT, EXIT_CHECK_FAILED, EXIT_INTERNAL, EXIT_OK
+from .output import emit_json, error_line, warn
 
 
 class _Parser(argparse.ArgumentParser):
@@ -92,9 +92,11 @@ def build_parser() -> argparse.ArgumentParser:
     _add_table_opts(p)
     _add_common(p)
 
-    from . import extra_commands
+    from . import casebook_command, discovery_commands, review_command, shape_command
 
-    extra_commands.register(sub, _add_common, _add_table_opts, CAUTION)
+    # The command registry: each module adds its subcommands and returns their handlers.
+    for module in (shape_command, discovery_commands, casebook_command, review_command):
+        COMMANDS.update(module.register(sub, _add_common, _add_table_opts, CAUTION))
     return parser
 
 
@@ -103,28 +105,21 @@ def build_parser() -> argparse.ArgumentParser:
 # --------------------------------------------------------------------------
 
 
-def _warn(messages, args) -> None:
-    for m in messages:
-        print(f"afterlook: warning: {m}", file=sys.stderr)
-
-
-def _emit_json(doc: dict) -> None:
-    sys.stdout.write(json.dumps(doc, indent=2, allow_nan=False) + "\n")
-
-
 def cmd_fit(args) -> int:
-    from .. import api
+    from ..analysis import fitting
+    from ..analysis.session import Session
     from ..core.recipe import parse_assignment
+    from ..store.tables import load_table
 
     derive = [parse_assignment(d, "--derive") for d in args.derive]
     transform = [parse_assignment(t, "--transform") for t in args.transform]
     check_writable(args.out)
-    cases = api.load_table(args.cases, id_col=args.id_col, label_col=args.label_col, require_labels=True) if args.cases else None
+    cases = load_table(args.cases, id_col=args.id_col, label_col=args.label_col, require_labels=True) if args.cases else None
     if args.engine == "memory":
         if args.scheduler:
             raise AfterlookError("--scheduler needs --engine dask")
-        train = api.load_table(args.train, id_col=args.id_col, label_col=args.label_col)
-        model = api.fit(train, cases=cases, kind=args.kind, robust=args.robust, shrinkage=args.shrinkage,
+        train = load_table(args.train, id_col=args.id_col, label_col=args.label_col)
+        model = fitting.fit(train, cases=cases, kind=args.kind, robust=args.robust, shrinkage=args.shrinkage,
                         derive=derive, transform=transform, threshold=args.threshold, columns=args.columns)
     else:
         if args.engine not in ("chunked", "dask"):
@@ -133,13 +128,13 @@ def cmd_fit(args) -> int:
             raise AfterlookError("--robust needs every row in memory; drop --engine or --robust")
         if args.chunk_rows < 1:
             raise AfterlookError("--chunk-rows must be at least 1")
-        model = api.fit_streamed(args.train, engine=args.engine, scheduler=args.scheduler,
+        model = fitting.fit_streamed(args.train, engine=args.engine, scheduler=args.scheduler,
                                  chunk_rows=args.chunk_rows, cases=cases, kind=args.kind,
-                                 shrinkage=args.shrinkage, derive=derive, transform=transform,
+                                     shrinkage=args.shrinkage, derive=derive, transform=transform,
                                  threshold=args.threshold, columns=args.columns, id_col=args.id_col,
                                  label_col=args.label_col)
     model.save(args.out)
-    _warn(model.warnings, args)
+    warn(model.warnings)
     summary = {
         "model": args.out,
         "kind": model.kind,
@@ -151,9 +146,9 @@ def cmd_fit(args) -> int:
         "fingerprint": model.fingerprint(),
     }
     if cases is not None and cases.labels is not None:
-        summary["metrics"] = api.scored_cases(model, cases).confusion().to_dict()
+        summary["metrics"] = Session(model, cases).scored.confusion().to_dict()
     if args.json:
-        _emit_json(summary)
+        emit_json(summary)
         return EXIT_OK
     from . import render
 
@@ -168,17 +163,18 @@ def cmd_fit(args) -> int:
 
 
 def cmd_score(args) -> int:
-    from .. import api
+    from ..analysis.model import load_model
+    from ..store.tables import load_table
 
-    model = api.load_model(args.model)
-    table = api.load_table(args.data, id_col=args.id_col, label_col=args.label_col)
+    model = load_model(args.model)
+    table = load_table(args.data, id_col=args.id_col, label_col=args.label_col)
     if args.out:
         check_writable(args.out)
     scored = model.score(table.frame)
-    _warn(table.warnings, args)
+    warn(table.warnings)
     n_bad = int(scored["log_density"].isna().sum())
     if n_bad:
-        _warn([f"{n_bad} row(s) have NaN or infinite features: log_density is empty and they are not flagged"], args)
+        warn([f"{n_bad} row(s) have NaN or infinite features: log_density is empty and they are not flagged"])
     if args.out:
         from ..store.tables import write_table
 
@@ -195,10 +191,10 @@ def cmd_score(args) -> int:
     if args.json:
         if not args.out:
             doc["rows"] = [
-                {"case": str(cid), "log_density": (None if ld != ld else float(ld)), "flagged": bool(fl)}
+                {"case": str(cid), "log_density": finite_or_none(ld), "flagged": bool(fl)}
                 for cid, ld, fl in zip(table.ids, scored["log_density"], scored["flagged"])
             ]
-        _emit_json(doc)
+        emit_json(doc)
         return EXIT_OK
     if not args.out:
         cols = ([table.id_col] if table.id_col else []) + ["log_density", "flagged"]
@@ -209,14 +205,16 @@ def cmd_score(args) -> int:
 
 
 def cmd_misses(args) -> int:
-    from .. import api
+    from ..analysis.evidence import misses
+    from ..analysis.model import load_model
+    from ..store.tables import load_table
 
-    model = api.load_model(args.model)
-    cases = api.load_table(args.cases, id_col=args.id_col, label_col=args.label_col, require_labels=True)
-    result = api.misses(model, cases)
-    _warn(result.warnings, args)
+    model = load_model(args.model)
+    cases = load_table(args.cases, id_col=args.id_col, label_col=args.label_col, require_labels=True)
+    result = misses(model, cases)
+    warn(result.warnings)
     if args.json:
-        _emit_json(result.to_dict())
+        emit_json(result.to_dict())
         return EXIT_OK
     from . import render
 
@@ -227,14 +225,16 @@ def cmd_misses(args) -> int:
 
 
 def cmd_explain(args) -> int:
-    from .. import api
+    from ..analysis.evidence import explain
+    from ..analysis.model import load_model
+    from ..store.tables import load_table
 
-    model = api.load_model(args.model)
-    cases = api.load_table(args.cases, id_col=args.id_col, label_col=args.label_col)
-    result = api.explain(model, cases, args.case_id)
-    _warn(cases.warnings, args)
+    model = load_model(args.model)
+    cases = load_table(args.cases, id_col=args.id_col, label_col=args.label_col)
+    result = explain(model, cases, args.case_id)
+    warn(cases.warnings)
     if args.json:
-        _emit_json(result.to_dict())
+        emit_json(result.to_dict())
         return EXIT_OK
     from . import render
 
@@ -267,18 +267,13 @@ def main(argv: list[str] | None = None) -> int:
         if not args.command:
             parser.print_help()
             return EXIT_BAD_INPUT
-        handler = COMMANDS.get(args.command)
-        if handler is None:
-            from . import extra_commands
-
-            handler = extra_commands.COMMANDS[args.command]
-        return handler(args)
+        return COMMANDS[args.command](args)
     except AfterlookError as exc:
-        print(f"afterlook: error: {exc.message}", file=sys.stderr)
+        error_line(exc.message)
         return exc.exit_code
     except KeyboardInterrupt:
         print("afterlook: interrupted", file=sys.stderr)
-        return 130
+        return EXIT_INTERRUPTED
     except BrokenPipeError:
         # e.g. `afterlook score ... | head`: the reader went away; not an error of ours.
         try:
@@ -287,13 +282,13 @@ def main(argv: list[str] | None = None) -> int:
             pass
         return EXIT_OK
     except MemoryError:
-        print("afterlook: error: out of memory (try a smaller table or the chunked engine)", file=sys.stderr)
+        error_line("out of memory (try a smaller table or the chunked engine)")
         return EXIT_BAD_INPUT
     except Exception as exc:  # a bug in afterlook, not bad input
         if os.environ.get("AFTERLOOK_DEBUG"):
             raise
-        print(f"afterlook: internal error: {type(exc).__name__}: {exc} "
-              "(please report it; set AFTERLOOK_DEBUG=1 for the traceback)", file=sys.stderr)
+        error_line(f"{type(exc).__name__}: {exc} (please report it; set AFTERLOOK_DEBUG=1 for the traceback)",
+                   "internal error")
         return EXIT_INTERNAL
 
 

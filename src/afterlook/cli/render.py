@@ -9,11 +9,11 @@ from rich.console import Console, Group
 from rich.table import Table
 from rich.text import Text
 
-from ..api import ExplainResult, MissesResult
-from ..model import Model
+from ..analysis.evidence import ExplainResult, MissesResult
+from ..analysis.model import Model
+from ..analysis.wording import BAR_FULL_SCALE, RELATION_RULE, bar_cells, relation_broken
 
 BAR_HALF = 5  # characters each side of zero in a z bar
-BAR_FULL_SCALE = 4.0  # |z| that fills half a bar
 
 
 def fmt(x, digits: int = 3) -> str:
@@ -30,8 +30,7 @@ def z_bar(z: float | None, half: int = BAR_HALF, full_scale: float = BAR_FULL_SC
     """A signed bar centred on zero; the sign is drawn (- left, + right), not only coloured."""
     if z is None or not math.isfinite(z):
         return Text(" " * half + "?" + " " * half)
-    n = min(half, int(round(abs(z) / full_scale * half)))
-    over = abs(z) > full_scale
+    n, over = bar_cells(z, half, full_scale)
     left = " " * half
     right = " " * half
     style = "bold red" if abs(z) >= 3 else ("yellow" if abs(z) >= 2 else "cyan")
@@ -147,7 +146,7 @@ def explain_table(result: ExplainResult) -> Group:
     parts += [table, note]
     if full:
         parts.append(Text("cond z: standard deviations from the value expected given all other features"
-                          + ("; ! = relation broken (|cond z| >= 3 while |z| < 2)" if broken else ""), style="dim"))
+                          + (f"; ! = relation broken ({RELATION_RULE})" if broken else ""), style="dim"))
     return Group(*parts)
 
 
@@ -158,9 +157,7 @@ def _short_num(x: float) -> str:
 
 
 def _relation_mark(z: float, cz: float | None) -> str:
-    if cz is None or not math.isfinite(cz):
-        return " "
-    return "!" if abs(cz) >= 3 and abs(z) < 2 else " "
+    return "!" if relation_broken(z, cz) else " "
 
 
 def console(stderr: bool = False) -> Console:

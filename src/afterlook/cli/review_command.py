@@ -9,11 +9,11 @@ workbench would open on (the status line's numbers) and does not start it.
 
 from __future__ import annotations
 
-import json
 import sys
 
 from ..core.errors import AfterlookError
-from .exit_codes import EXIT_OK
+from ..core.errors import EXIT_OK
+from .output import emit_json
 
 DESCRIPTION = (
     "Open the workbench: misses worst margin first, the evidence for each, candidate derived features "
@@ -41,11 +41,11 @@ def run(args) -> int:
     app = create_app(args.model, args.cases, train_path=args.train, casebook=args.casebook,
                      id_col=args.id_col, label_col=args.label_col)
     if args.json:
-        from ..workbench_data import status_summary
+        from ..analysis.workbench import status_summary
 
         doc = status_summary(app.session).to_dict()
         doc["casebook"] = app.session.casebook_path
-        sys.stdout.write(json.dumps(doc, indent=2, allow_nan=False) + "\n")
+        emit_json(doc)
         return EXIT_OK
     if not (sys.stdin.isatty() and sys.stdout.isatty()):
         raise AfterlookError("afterlook review needs a terminal; for scripts use afterlook misses, explain, "

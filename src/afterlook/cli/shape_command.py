@@ -7,13 +7,12 @@ histograms before/after, and the exact ``afterlook fit`` option to apply).
 
 from __future__ import annotations
 
-import json
 import math
 import shlex
-import sys
 
 from ..core.errors import AfterlookError
-from .exit_codes import EXIT_OK
+from ..core.errors import EXIT_OK
+from .output import emit_json, warn
 
 DESCRIPTION = (
     "Search per numeric column for a transform (log(x + c), powers x ** p, Box-Cox, Yeo-Johnson) "
@@ -33,7 +32,7 @@ def _sample_size(text: str) -> int:
     return n
 
 
-def register(sub, add_common, add_table_opts, caution) -> None:
+def register(sub, add_common, add_table_opts, caution) -> dict:
     p = sub.add_parser("shape", help="transform suggestions per column, with before/after normality",
                        description=DESCRIPTION, epilog=caution)
     p.add_argument("data", metavar="DATA", help="table (CSV or Parquet), usually the training table")
@@ -46,6 +45,7 @@ def register(sub, add_common, add_table_opts, caution) -> None:
     p.add_argument("--no-hist", action="store_true", help="do not draw the before/after histograms")
     add_table_opts(p)
     add_common(p)
+    return {"shape": run}
 
 
 def _fmt(x, significant: int | None = None) -> str:
@@ -69,15 +69,15 @@ def _short_transform(result) -> str:
 
 
 def run(args) -> int:
-    from .. import api
+    from ..analysis.shaping import shape
+    from ..store.tables import load_table
     from .render import console
 
-    table = api.load_table(args.data, id_col=args.id_col, label_col=args.label_col)
-    report = api.shape(table, columns=args.columns, statistic=args.statistic, sample_size=args.sample)
-    for w in report.warnings:
-        print(f"afterlook: warning: {w}", file=sys.stderr)
+    table = load_table(args.data, id_col=args.id_col, label_col=args.label_col)
+    report = shape(table, columns=args.columns, statistic=args.statistic, sample_size=args.sample)
+    warn(report.warnings)
     if args.json:
-        sys.stdout.write(json.dumps(report.to_dict(), indent=2, allow_nan=False) + "\n")
+        emit_json(report.to_dict())
         return EXIT_OK
 
     from rich import box

@@ -35,7 +35,7 @@ shaped_difference      standardized difference of the shaped        a shaping
    number of *other* labelled anomalies the candidate separates at the
    false-alarm rate ``alarm_rate`` (beyond the ``1 - alarm_rate`` quantile
    of ``|v - med|`` over normal rows).
-3. *Exact re-fit* of the top few (done by :func:`afterlook.api.suggest`,
+3. *Exact re-fit* of the top few (done by :func:`afterlook.analysis.discovery.suggest`,
    which owns files and models): false alarms added when the candidate joins
    the model and the threshold is re-picked.
 
@@ -92,6 +92,32 @@ class Settings:
     alarm_rate: float = 0.01
     chance_level: float = CHANCE_LEVEL
 
+    def check(self) -> "Settings":
+        """Raise :class:`AfterlookError` naming the first setting out of its range."""
+        def whole(name: str, low: int) -> None:
+            v = getattr(self, name)
+            if isinstance(v, bool) or not isinstance(v, (int, np.integer)) or v < low:
+                raise AfterlookError(f"setting {name} must be a whole number of at least {low}, got {v!r}")
+
+        def fraction(name: str, closed: bool) -> None:
+            v = getattr(self, name)
+            ok = isinstance(v, (int, float, np.floating)) and not isinstance(v, bool) and math.isfinite(v)
+            if ok:
+                ok = 0 <= v <= 1 if closed else 0 < v < 1
+            if not ok:
+                where = "between 0 and 1" if closed else "strictly between 0 and 1"
+                raise AfterlookError(f"setting {name} must lie {where}, got {v!r}")
+
+        whole("sample_size", 100)
+        if self.random_state is not None:  # None: a fresh seed, as numpy's default_rng takes it
+            whole("random_state", 0)
+        whole("second_pass", 1)
+        whole("correlated_reserve", 0)
+        fraction("min_correlation", closed=True)
+        fraction("alarm_rate", closed=False)
+        fraction("chance_level", closed=False)
+        return self
+
 
 @dataclass
 class Candidate:
@@ -115,7 +141,6 @@ class Candidate:
     targets_exposed: int = 0
     false_alarms_added: int | None = None
     catches_targets: int | None = None
-    metrics_after: dict | None = None
 
     @property
     def name(self) -> str:

@@ -9,12 +9,20 @@ else escaping the core is a bug in afterlook, not bad input.
 
 from __future__ import annotations
 
-# Exit codes live in one place (afterlook.cli.exit_codes re-exports them):
-# 0 all good, 1 a check ran and failed (e.g. a casebook regression),
-# 2 the input was bad and nothing was computed.
+# Exit codes, in one place (the CLI and AfterlookError read them here):
+#   0    the command did its job;
+#   1    a check ran and failed (``casebook check`` found a regression): the
+#        input was fine, the answer is "no";
+#   2    bad input: a file, option, expression or id the user can fix;
+#        nothing was computed or written;
+#   3    an internal error of afterlook (a bug): reported in one line,
+#        traceback with AFTERLOOK_DEBUG=1;
+#   130  interrupted by Ctrl-C (128 + SIGINT, the shell's convention).
 EXIT_OK = 0
 EXIT_CHECK_FAILED = 1
 EXIT_BAD_INPUT = 2
+EXIT_INTERNAL = 3
+EXIT_INTERRUPTED = 130
 
 
 class AfterlookError(Exception):

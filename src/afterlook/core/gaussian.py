@@ -276,7 +276,7 @@ class GaussianModel:
             cov = shrink_towards_diagonal(cov, self.shrinkage)
             self.shrinkage_ = self.shrinkage
         self.covariance_ = cov
-        self.chol_ = self._cholesky(cov)
+        self.chol_ = self.cholesky_factor(cov)
         return self
 
     def _set_variances(self, var: np.ndarray) -> "GaussianModel":
@@ -308,10 +308,11 @@ class GaussianModel:
             cov = shrink_towards_diagonal(cov, self.shrinkage)
             self.shrinkage_ = self.shrinkage
         self.covariance_ = cov
-        self.chol_ = self._cholesky(cov)
+        self.chol_ = self.cholesky_factor(cov)
         return self
 
-    def _cholesky(self, cov: np.ndarray) -> np.ndarray:
+    def cholesky_factor(self, cov: np.ndarray) -> np.ndarray:
+        """Lower Cholesky factor of ``cov``; a singular covariance is refused with its collinear columns named."""
         # Fast path: factor first. diag(L)^2 / diag(S) is exactly each column's
         # unexplained share 1 - R^2 given the columns before it, so the same
         # collinearity test costs nothing; the slow naming pass runs only on failure.
@@ -409,7 +410,7 @@ class GaussianModel:
                 if cov.shape != (d, d):
                     raise ValueError("covariance shape")
                 model.covariance_ = cov
-                model.chol_ = model._cholesky(cov)
+                model.chol_ = model.cholesky_factor(cov)
             if len(model.names) != d:
                 raise ValueError("feature count")
             model.shrinkage_ = float(data.get("shrinkage_used", 0.0))
@@ -419,3 +420,90 @@ class GaussianModel:
         except (KeyError, TypeError, ValueError) as exc:
             raise AfterlookError(f"model parameters are incomplete or malformed ({exc})") from None
         return model
+
+
+# --------------------------------------------------------------------------
+# One added column: the refit of a fitted Gaussian with one more column
+# --------------------------------------------------------------------------
+
+
+@dataclass(frozen=True)
+class AddedColumn:
+    """The conditional Gaussian of an added column ``y`` given the fitted columns ``x``.
+
+    For the maximum-likelihood Gaussian of ``(x, y)`` fitted on the same rows
+    as the model of ``x``, the joint log-density factorises exactly::
+
+        log p(x, y) = log p(x) + log N(y; m + (x - mu)^T beta, s2)
+
+    with ``beta = S_xx^-1 s_xy`` (the least-squares regression of ``y`` on
+    ``x``) and ``s2 = var(y) - s_xy^T beta`` (the Schur complement), so
+    the other columns' parameters never need refitting. The independent
+    model has ``beta = 0`` and ``s2 = var(y)``.
+    """
+
+    mean: float  # m, the column's mean
+    variance: float  # s2, its conditional variance
+    beta: np.ndarray | None  # (d,) regression on the fitted columns; None for the independent model
+    x_mean: np.ndarray  # (d,) mu, the fitted columns' means
+
+    def conditional_log_density(self, X: np.ndarray, y: np.ndarray) -> np.ndarray:
+        """``log N(y_i; E[y | x_i], var(y | x_i))`` for rows ``X`` (n, d) and values ``y`` (n,)."""
+        mean = self.mean if self.beta is None else self.mean + (X - self.x_mean) @ self.beta
+        with np.errstate(invalid="ignore"):
+            return -0.5 * (LOG_2PI + np.log(self.variance) + (y - mean) ** 2 / self.variance)
+
+
+def added_column(model: "GaussianModel", X: np.ndarray, y: np.ndarray, *,
+                 precision: np.ndarray | None = None) -> AddedColumn | None:
+    """The conditional Gaussian of a column ``y`` added to ``model``, fitted on the rows ``X``.
+
+    ``model`` must be the classical (not robust, not shrunk) maximum-
+    likelihood fit on ``X``; ``precision`` may pass ``model.precision()``
+    when it is reused for many columns. Returns None when ``y`` is constant
+    or (full model) collinear with the fitted columns: a full re-fit would
+    refuse the singular covariance.
+    """
+    n = X.shape[0]
+    my = float(y.mean())
+    yc = y - my
+    vy = float(yc @ yc / n)
+    if not vy > 0:
+        return None
+    if model.kind == "independent":
+        return AddedColumn(my, vy, None, model.mean_)
+    Xc = X - X.mean(axis=0)
+    cxy = Xc.T @ yc / n
+    P = model.precision() if precision is None else precision
+    beta = P @ cxy
+    s2 = vy - float(cxy @ beta)
+    if not s2 / vy >= COLLINEAR_TOL:
+        return None
+    return AddedColumn(my, s2, beta, model.mean_)
+
+
+def with_added_column(model: "GaussianModel", X: np.ndarray, y: np.ndarray,
+                      name: str = "added") -> "GaussianModel | None":
+    """The full model with fixed shrinkage refitted on ``[X, y]``, or None when singular.
+
+    Fixed shrinkage pulls towards ``trace(S) / d``, which changes with the
+    new column, so the factorisation of :func:`added_column` does not hold:
+    the shrunk covariance is rebuilt from the raw scatter instead.
+    """
+    n = X.shape[0]
+    Xc = X - X.mean(axis=0)
+    my = float(y.mean())
+    yc = y - my
+    raw_cov = (Xc.T @ Xc) / n
+    cxy = Xc.T @ yc / n
+    cov = np.block([[raw_cov, cxy[:, None]], [cxy[None, :], np.array([[float(yc @ yc / n)]])]])
+    cov = shrink_towards_diagonal(cov, model.shrinkage_)
+    new = GaussianModel(kind="full", shrinkage=model.shrinkage, names=list(model.names) + [name])
+    new.mean_ = np.append(model.mean_, my)
+    new.shrinkage_ = model.shrinkage_
+    try:
+        new.chol_ = new.cholesky_factor(cov)
+    except AfterlookError:
+        return None
+    new.covariance_ = cov
+    return new

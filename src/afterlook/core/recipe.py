@@ -241,7 +241,11 @@ class Recipe:
         return Recipe(self.base, self.derived, fitted)
 
     def apply(self, columns: Mapping[str, np.ndarray]) -> FeatureMatrix:
-        env = self.raw_features(columns)
+        """Model features of ``columns``: derived features, then the per-feature transforms."""
+        return self.transform_features(self.raw_features(columns))
+
+    def transform_features(self, env: Mapping[str, np.ndarray]) -> FeatureMatrix:
+        """The per-feature transforms applied to :meth:`raw_features`' output."""
         names = self.features
         n = len(next(iter(env.values()))) if env else 0
         X = np.empty((n, len(names)))

@@ -18,7 +18,7 @@ def create_app(model_path, cases_path, *, train_path=None, casebook=None, id_col
     anything is drawn, so the CLI can print one line and exit 2.
     ``casebook`` defaults to ``casebook.json`` next to the cases file.
     """
-    from ..workbench_data import open_session
+    from ..analysis.workbench import open_session
     from .app import WorkbenchApp
 
     session = open_session(model_path, cases_path, train_path=train_path, casebook=casebook, id_col=id_col,

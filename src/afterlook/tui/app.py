@@ -8,7 +8,7 @@ re-fit, histogram counts, casebook reads and writes) runs in
 ``@work(thread=True, exclusive=True)`` workers, one group per kind, so a new
 request cancels the stale one; a cancelled worker's result is dropped.
 
-Every number comes from :mod:`afterlook.workbench_data` or the API; the
+Every number comes from :mod:`afterlook.analysis.workbench` or the API; the
 widgets only format it.
 """
 
@@ -23,7 +23,7 @@ from textual.theme import Theme
 from textual.widgets import Input, TabbedContent
 from textual.worker import get_current_worker
 
-from .. import workbench_data as wd
+from ..analysis import workbench as wd
 from ..core.errors import AfterlookError
 from . import messages as msg
 from .screens.help import HelpScreen
@@ -66,7 +66,7 @@ class WorkbenchApp(App[int]):
     ENABLE_COMMAND_PALETTE = False
     BINDINGS = [Binding("ctrl+q", "quit", "quit", show=False, priority=True)]
 
-    def __init__(self, session: wd.Session, *, auto_candidates: bool = True,
+    def __init__(self, session: wd.WorkbenchSession, *, auto_candidates: bool = True,
                  candidate_delay: float = CANDIDATE_DELAY, candidates_top: int = 10) -> None:
         super().__init__()
         self.session = session
@@ -97,7 +97,6 @@ class WorkbenchApp(App[int]):
         self.trial = None
         self.trial_view: wd.TrialView | None = None
         self.trial_case: str | None = None
-        self.trial_label = ""
         self.trial_running: str | None = None
         # casebook
         self.book_ids: set[str] = set()
@@ -423,7 +422,7 @@ class WorkbenchApp(App[int]):
             return  # a newer try was asked for
         self.trial_running = None
         self.trial, self.trial_view = message.result, message.view
-        self.trial_case, self.trial_label = message.case_id, message.label
+        self.trial_case = message.case_id
         if self.try_panel is not None:
             self.try_panel.show(message.view)
         self.case_list.mark(book=self.book_ids, flips=self._flips())

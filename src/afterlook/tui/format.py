@@ -1,6 +1,6 @@
 """Number formatting for the workbench: text only, no arithmetic on statistics.
 
-Every number passed in comes from :mod:`afterlook.workbench_data` or the API;
+Every number passed in comes from :mod:`afterlook.analysis.workbench` or the API;
 these helpers only decide how many digits to show and what to write when a
 value is missing (``n/a``), so a NaN never reaches the screen as ``nan``.
 """

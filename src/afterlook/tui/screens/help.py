@@ -19,7 +19,7 @@ WORDS = (
                    "normal case sits above it"),
     ("false alarm", "a case labelled normal that is flagged"),
     ("[book]", "the case already has an entry in the casebook"),
-    ("after try", "how the last try changed the case: now flagged, or now unflagged"),
+    ("after try", "how the last try changed the case: now flagged, or no longer flagged"),
     ("z bar", "- to the left: below the normal mean; + to the right: above; ◂ ▸: beyond 4 sd"),
     ("reads", "z in words: typical, a little low/high, low/high, very low/high"),
     ("share", "the feature's part of the case's log-density cost, in %"),

@@ -7,7 +7,7 @@ from textual.app import ComposeResult
 from textual.containers import Horizontal, Vertical
 from textual.widgets import DataTable, ProgressBar, Static
 
-from ...workbench_data import candidate_verdict
+from ...analysis.wording import candidate_verdict
 from .. import format as fmt
 from ..messages import CandidateChosen, CandidateHighlighted, PanelMounted
 
@@ -76,7 +76,7 @@ class CandidatesPanel(Vertical):
         self.idle(case_id, f"no candidates for {case_id}: {message}")
 
     def show(self, case_id: str, result) -> None:
-        """Draw a :class:`~afterlook.discovery.SuggestResult`."""
+        """Draw a :class:`~afterlook.analysis.discovery.SuggestResult`."""
         self.result, self.case_id = result, case_id
         self._progress_visible(False)
         head = Text()

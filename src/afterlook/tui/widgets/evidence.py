@@ -1,8 +1,8 @@
 """Evidence for the selected case: per feature a signed z bar, percentile, share of log-density.
 
-Every number comes from :func:`afterlook.workbench_data.case_evidence` (the
+Every number comes from :func:`afterlook.analysis.workbench.case_evidence` (the
 same values ``afterlook explain`` prints); the bar length from
-:func:`afterlook.workbench_data.bar_cells`. The layout narrows with the panel.
+:func:`afterlook.analysis.wording.bar_cells`. The layout narrows with the panel.
 """
 
 from __future__ import annotations
@@ -14,7 +14,7 @@ from textual.app import ComposeResult
 from textual.containers import Vertical
 from textual.widgets import DataTable, Static
 
-from ...workbench_data import bar_cells
+from ...analysis.wording import BAR_FULL_SCALE, bar_cells
 from .. import format as fmt
 from ..messages import FeatureHighlighted
 
@@ -75,7 +75,7 @@ class EvidencePanel(Vertical):
             self.show(self.view)
 
     def show(self, view) -> None:
-        """Draw an :class:`~afterlook.workbench_data.EvidenceView`."""
+        """Draw an :class:`~afterlook.analysis.workbench.EvidenceView`."""
         self.view = view
         narrow = self._drawn_narrow = self.narrow
         ex = view.explain
@@ -127,8 +127,8 @@ class EvidencePanel(Vertical):
             if keep in self.feature_names:
                 table.move_cursor(row=self.feature_names.index(keep), animate=False)
         legend = Text(style=self._style("evidence--dim"))
-        legend.append("z: sd from the normal mean (bar full at 4; - below, + above); pct: % of normal rows at "
-                      "or below; share: % of the case's log-density cost")
+        legend.append(f"z: sd from the normal mean (bar full at {BAR_FULL_SCALE:g}; - below, + above); pct: % of "
+                      "normal rows at or below; share: % of the case's log-density cost")
         if any(r.transform for r in view.rows):
             legend.append("; * transformed by the recipe: value is the reading, z, pct and share are on the "
                           "transformed scale")

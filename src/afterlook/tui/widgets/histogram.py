@@ -1,7 +1,7 @@
 """Histogram of a feature or candidate: normal population as bars, the case marked, other anomalies below.
 
 Counts come from :func:`afterlook.core.histograms.histogram_counts` (through
-:func:`afterlook.workbench_data.histogram_view`) and bar heights from
+:func:`afterlook.analysis.workbench.histogram_view`) and bar heights from
 :func:`afterlook.core.histograms.bar_heights`; this widget only lays out glyphs.
 """
 

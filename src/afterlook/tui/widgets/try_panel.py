@@ -75,7 +75,7 @@ class TryPanel(VerticalScroll):
             Text(f"could not try {label}: {message}", style=self._style("try--error")))
 
     def show(self, view) -> None:
-        """Draw a :class:`~afterlook.workbench_data.TrialView`."""
+        """Draw a :class:`~afterlook.analysis.workbench.TrialView`."""
         self.view = view
         head = Text()
         head.append("tried ", style="bold")

@@ -24,7 +24,7 @@ import re
 from collections import Counter
 from typing import Iterable
 
-from .store.casebook import STATUSES, Casebook
+from ..store.casebook_file import STATUSES, Casebook
 
 __all__ = ["render_markdown", "render_html", "render_entry_markdown", "histogram_svg", "caution_text", "FORMATS"]
 
@@ -41,7 +41,7 @@ _STATUS_WORDS = {
 
 def caution_text() -> str:
     """The caution sentence of the CLI's help footer (one source for both)."""
-    from .cautions import CAUTION
+    from ..cautions import CAUTION
 
     return CAUTION
 

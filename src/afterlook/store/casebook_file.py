@@ -6,7 +6,7 @@ trailing newline so that a diff of two versions reads well.
 
 This layer knows files and the entry's bookkeeping keys (``case``,
 ``status``, ``history``, ``created``); the evidence inside an entry is built
-by :mod:`afterlook.casebook` and is stored as it comes.
+by :mod:`afterlook.analysis.review` and is stored as it comes.
 
 Decisions worth knowing about
 -----------------------------

@@ -1,15 +1,15 @@
 """What the workbench shows, computed at the API level.
 
 The Textual app (:mod:`afterlook.tui`) formats numbers and never computes
-them: every value it draws comes from a function here or from
-:mod:`afterlook.api` / :mod:`afterlook.discovery`, and each function here is
-tested (``tests/tui/test_workbench_data.py``). Nothing here imports Textual
-or Rich.
+them: every value it draws comes from a function here, from the other
+:mod:`afterlook.analysis` modules or from :mod:`afterlook.analysis.wording`,
+and each function here is tested (``tests/tui/test_workbench_data.py``).
+Nothing here imports Textual or Rich.
 
-A :class:`Session` is loaded once (model, cases, the normal population,
-the cases scored by the model) and then shared read-only by the app and its
-worker threads; the few caches it keeps are filled idempotently, so a
-race between two threads costs a duplicate computation, never a wrong value.
+A :class:`WorkbenchSession` is an :class:`~afterlook.analysis.session.Session`
+loaded once for the whole run (model, cases, the normal population, the
+cases scored by the model) and shared read-only by the app and its worker
+threads.
 """
 
 from __future__ import annotations
@@ -17,37 +17,35 @@ from __future__ import annotations
 import math
 import os
 import re
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from pathlib import Path
 from typing import Callable, Sequence
 
 import numpy as np
 
-from .api import (
-    ExplainResult,
-    MissesResult,
-    ScoredCases,
-    case_context,
-    numeric_columns_of,
-    load_model,
-    load_table,
-    misses,
-    scored_cases,
+from ..core import expressions
+from ..core.errors import AfterlookError
+from ..core.histograms import HistogramCounts, histogram_counts
+from ..core.recipe import apply_transform, parse_assignment
+from ..core.thresholds import Confusion
+from ..store.tables import load_table
+from .discovery import SuggestResult, suggest
+from .evidence import ExplainResult, MissesResult, explain_case, misses
+from .model import load_model
+from .session import Session, case_context
+from .trial import TrialView, TryResult, trial_view, try_features  # noqa: F401 - the app's names
+from .wording import (  # noqa: F401 - the app's names
+    BAR_FULL_SCALE,
+    bar_cells,
+    candidate_verdict,
+    flip_words,
+    reading,
+    relation_words,
+    standing,
 )
-from .core import expressions
-from .core.errors import AfterlookError
-from .core.explain import evidence
-from .core.histograms import HistogramCounts, histogram_counts
-from .core.recipe import apply_transform, parse_assignment
-from .core.thresholds import Confusion
-from .discovery import SuggestResult, TrainingRows, TryResult, resolve_training, suggest
-from .model import Model
-from .store.tables import Table
 
 #: Default casebook file name, next to the cases file.
 CASEBOOK_NAME = "casebook.json"
-#: |z| that fills one half of a signed bar.
-BAR_FULL_SCALE = 4.0
 #: Name given to a typed expression without ``NAME =``.
 TYPED_NAME = "typed_feature"
 
@@ -63,71 +61,23 @@ KIND_FALSE_ALARM = "false alarm"
 # --------------------------------------------------------------------------
 
 
-@dataclass
-class Session:
-    """Everything loaded for one workbench run (read-only once built)."""
+class WorkbenchSession(Session):
+    """A session with the files the workbench was opened on and the misses it lists."""
 
-    model: Model
-    model_path: str
-    cases: Table
-    cases_path: str
-    train: Table | None  # the table the user gave with --train, if any
-    training: TrainingRows  # the normal population actually used for re-fits
-    scored: ScoredCases
-    missed: MissesResult
-    casebook_path: str
-    _normal_features: np.ndarray | None = field(default=None, repr=False)
-    _column_cache: dict = field(default_factory=dict, repr=False)
-    _raw_cache: dict = field(default_factory=dict, repr=False)
-    _shaped: dict = field(default_factory=dict, repr=False)
+    def __init__(self, model, cases, train, *, model_path: str, cases_path: str, casebook_path: str):
+        super().__init__(model, cases, train)
+        self.model_path = model_path
+        self.cases_path = cases_path
+        self.casebook_path = casebook_path
+        self._missed: MissesResult | None = None
+        self._shaped: dict = {}
 
     @property
-    def ids(self) -> np.ndarray:
-        return self.scored.table.ids
-
-    @property
-    def labels(self) -> np.ndarray:
-        return self.cases.labels
-
-    def row(self, case_id: str) -> int:
-        """Row position of a case id (clear error for an unknown id)."""
-        return self.cases.row_index(str(case_id))
-
-    @property
-    def known_columns(self) -> list[str]:
-        """Names an expression may use: the table's columns and the model's features."""
-        return list(dict.fromkeys([str(c) for c in self.cases.frame.columns] + self.model.features))
-
-    # -- the normal population and the cases, as columns, for histograms --
-    def _normal_rows(self) -> np.ndarray:
-        t = self.training.table
-        return np.ones(len(t.frame), bool) if t.labels is None else ~t.labels
-
-    def normal_features(self) -> np.ndarray:
-        """Model features (after the recipe's transforms) of the normal training rows."""
-        if self._normal_features is None:
-            self._normal_features = self.model.recipe.apply(self._columns("normal", [])).values
-        return self._normal_features
-
-    def _columns(self, which: str, extra: Sequence[str]) -> dict:
-        cache = self._column_cache.setdefault(which, {})
-        table = self.training.table if which == "normal" else self.cases
-        want = [c for c in [*self.model.recipe.required_columns(), *extra] if c not in cache]
-        if want:
-            frame = table.frame.loc[self._normal_rows()] if which == "normal" else table.frame
-            cache.update(numeric_columns_of(frame, want))
-        return cache
-
-    def scope(self, which: str, extra: Sequence[str] = ()) -> dict:
-        """Raw columns and untransformed model features by name; ``which`` is "normal" or "cases".
-
-        "normal": the normal training rows; "cases": every case, in table order.
-        """
-        raw = self._raw_cache.get(which)
-        if raw is None:
-            raw = self._raw_cache[which] = self.model.recipe.raw_features(self._columns(which, []))
-        cols = self._columns(which, [c for c in extra if c not in raw])
-        return {**cols, **raw}
+    def missed(self) -> MissesResult:
+        """The misses of the model on the cases (computed once)."""
+        if self._missed is None:
+            self._missed = misses(self)
+        return self._missed
 
 
 def default_casebook(cases_path) -> str:
@@ -136,7 +86,7 @@ def default_casebook(cases_path) -> str:
 
 
 def open_session(model_path, cases_path, *, train_path=None, casebook=None, id_col: str | None = None,
-                 label_col: str | None = None) -> Session:
+                 label_col: str | None = None) -> WorkbenchSession:
     """Load the model and cases, resolve the normal population, score the cases once.
 
     Raises :class:`AfterlookError` (one line) for any bad input, before any
@@ -145,13 +95,14 @@ def open_session(model_path, cases_path, *, train_path=None, casebook=None, id_c
     model = load_model(model_path)
     cases = load_table(cases_path, id_col=id_col, label_col=label_col, require_labels=True)
     train = load_table(train_path, id_col=id_col, label_col=label_col) if train_path else None
-    training = resolve_training(model, cases, train)
-    scored = scored_cases(model, cases)
-    missed = misses(model, cases)
     book = str(casebook) if casebook else default_casebook(cases_path)
+    session = WorkbenchSession(model, cases, train, model_path=str(model_path), cases_path=str(cases_path),
+                               casebook_path=book)
+    session.training  # noqa: B018 - resolved now, so a bad --train fails before any screen
+    session.missed  # noqa: B018
     if os.path.isdir(book):
         raise AfterlookError(f"casebook {book} is a folder; give a file path (--casebook FILE)")
-    return Session(model, str(model_path), cases, str(cases_path), train, training, scored, missed, book)
+    return session
 
 
 # --------------------------------------------------------------------------
@@ -183,7 +134,7 @@ class StatusSummary:
         return dict(self.__dict__)
 
 
-def status_summary(session: Session) -> StatusSummary:
+def status_summary(session: WorkbenchSession) -> StatusSummary:
     m: Confusion = session.missed.metrics
     model = session.model
     return StatusSummary(
@@ -219,7 +170,7 @@ class CaseRow:
     context: dict
 
 
-def near_catch_gap(session: Session) -> float:
+def near_catch_gap(session: WorkbenchSession) -> float:
     """How close below the threshold a caught anomaly must sit to count as a near catch.
 
     The gap between the threshold and the median log-density of the cases
@@ -236,10 +187,10 @@ def near_catch_gap(session: Session) -> float:
     return max(0.0, float(np.median(ld[normal])) - float(session.model.threshold))
 
 
-def case_rows(session: Session, *, near: bool = False, false_alarms: bool = False, text: str = "") -> list[CaseRow]:
+def case_rows(session: WorkbenchSession, *, near: bool = False, false_alarms: bool = False, text: str = "") -> list[CaseRow]:
     """Rows of the case list.
 
-    Misses first, worst (largest) margin first, exactly as :func:`afterlook.api.misses`;
+    Misses first, worst (largest) margin first, exactly as :func:`afterlook.analysis.evidence.misses`;
     then, when asked, near catches (closest to the threshold first) and
     false alarms (lowest log-density first). ``text`` keeps the rows whose
     id, kind or any context value contains it (case-insensitive).
@@ -264,7 +215,7 @@ def case_rows(session: Session, *, near: bool = False, false_alarms: bool = Fals
     return rows
 
 
-def _row(session: Session, i: int, kind: str) -> CaseRow:
+def _row(session: WorkbenchSession, i: int, kind: str) -> CaseRow:
     sc = session.scored
     return CaseRow(str(sc.table.ids[i]), kind, float(sc.log_density[i]), float(sc.margin[i]), case_context(sc.table, i))
 
@@ -273,7 +224,7 @@ def _haystack(row: CaseRow) -> str:
     return " ".join([row.case, row.kind, *[str(v) for v in row.context.values() if v]]).lower()
 
 
-def case_counts(session: Session) -> dict:
+def case_counts(session: WorkbenchSession) -> dict:
     """How many rows each toggle of the case list would add."""
     sc = session.scored
     y = session.labels
@@ -314,55 +265,8 @@ class EvidenceView:
     full_model: bool
 
 
-def reading(z: float | None) -> str:
-    """A z in words: typical (|z| < 1), a little low/high (< 2), low/high (< 3), very low/high."""
-    if z is None or not math.isfinite(z):
-        return "n/a"
-    size = abs(z)
-    if size < 1:
-        return "typical"
-    side = "low" if z < 0 else "high"
-    if size < 2:
-        return f"a little {side}"
-    if size < 3:
-        return side
-    return f"very {side}"
-
-
-def relation_words(z: float | None, conditional_z: float | None) -> str:
-    """Conditional z in words (full model): 'relation broken' when |cond z| >= 3 while |z| < 2."""
-    if conditional_z is None or not math.isfinite(conditional_z):
-        return ""
-    if abs(conditional_z) >= 3:
-        if z is not None and math.isfinite(z) and abs(z) < 2:
-            return "relation broken"
-        return "off for the others"
-    return ""
-
-
-def bar_cells(z: float | None, half: int, full_scale: float = BAR_FULL_SCALE) -> tuple[int, bool]:
-    """Length in cells of one side of a signed z bar, and whether |z| is beyond the scale.
-
-    ``cells = min(half, round(|z| / full_scale * half))``; NaN gives (0, False).
-    """
-    if z is None or not math.isfinite(z) or half < 1:
-        return 0, False
-    return min(half, int(round(abs(z) / full_scale * half))), abs(z) > full_scale
-
-
-def standing(label: bool | None, flagged: bool, log_density: float) -> str:
-    """Where a case stands, in words."""
-    if not math.isfinite(log_density):
-        return "not scored (a feature is NaN or infinite)"
-    if label is None:
-        return "flagged" if flagged else "not flagged"
-    if label:
-        return "caught: labelled anomaly, flagged" if flagged else "miss: labelled anomaly, not flagged"
-    return "false alarm: labelled normal, flagged" if flagged else "normal: labelled normal, not flagged"
-
-
-def case_evidence(session: Session, case_id: str) -> EvidenceView:
-    """Per-feature evidence for a case; the numbers equal :func:`afterlook.api.explain`'s.
+def case_evidence(session: WorkbenchSession, case_id: str) -> EvidenceView:
+    """Per-feature evidence for a case; the numbers are :func:`afterlook.analysis.evidence.explain`'s.
 
     Uses the session's scoring instead of re-scoring every case. ``raw_value``
     is the reading before the recipe's transform (equal to ``value`` for an
@@ -371,13 +275,11 @@ def case_evidence(session: Session, case_id: str) -> EvidenceView:
     log-density below the peak this feature accounts for (cross terms of
     the full model can make a share negative or above 100).
     """
-    sc = session.scored
     model = session.model
     i = session.row(case_id)
-    ev = evidence(model.density, sc.features[i], model.quantiles)
-    label = None if sc.labels is None else bool(sc.labels[i])
-    result = ExplainResult(str(sc.table.ids[i]), float(sc.log_density[i]), model.threshold, ev,
-                           bool(sc.flagged[i]), label, case_context(sc.table, i), model.describe_kind())
+    result = explain_case(session, case_id)
+    ev = result.features
+    label = result.label
     contributions = np.array([f.contribution for f in ev], dtype=np.float64)
     total = float(np.nansum(contributions))
     raw = session.scope("cases")
@@ -398,18 +300,10 @@ def case_evidence(session: Session, case_id: str) -> EvidenceView:
 # --------------------------------------------------------------------------
 
 
-def find_candidates(session: Session, case_id: str, *, top: int = 10,
+def find_candidates(session: WorkbenchSession, case_id: str, *, top: int = 10,
                     progress: Callable[[str, float], None] | None = None) -> SuggestResult:
-    """Candidates for one case: :func:`afterlook.discovery.suggest` as the CLI calls it."""
-    return suggest(session.model, session.cases, train=session.train, case_ids=[str(case_id)], top=top,
-                   progress=progress)
-
-
-def candidate_verdict(c) -> str:
-    """A candidate's verdict in words: beyond chance or not (the CLI's wording)."""
-    if c.beyond_chance:
-        return "finding" if c.false_alarms_added is not None else "finding (not re-fitted)"
-    return "could be chance"
+    """Candidates for one case: :func:`afterlook.analysis.discovery.suggest` on the session."""
+    return suggest(session, None, case_ids=[str(case_id)], top=top, progress=progress)
 
 
 # --------------------------------------------------------------------------
@@ -417,7 +311,7 @@ def candidate_verdict(c) -> str:
 # --------------------------------------------------------------------------
 
 
-def check_expression(session: Session, text: str, taken: Sequence[str] = ()) -> tuple[str, str]:
+def check_expression(session: WorkbenchSession, text: str, taken: Sequence[str] = ()) -> tuple[str, str]:
     """Validate ``NAME = EXPR`` or a bare ``EXPR`` as typed; return (name, expression).
 
     Raises :class:`AfterlookError` with a one-line message (syntax, unknown
@@ -449,14 +343,8 @@ def _free_name(existing: Sequence[str]) -> str:
     return name
 
 
-def try_candidate(session: Session, derive: dict[str, str], focus: Sequence[str] = ()) -> TryResult:
-    """:func:`afterlook.discovery.try_features` with the session's normal population and scores.
-
-    Same re-fit, threshold policy and result; only the look-up of the
-    training rows and the scoring of the unchanged model are not repeated.
-    """
-    from .discovery import try_features
-
+def try_candidate(session: WorkbenchSession, derive: dict[str, str], focus: Sequence[str] = ()) -> TryResult:
+    """:func:`afterlook.analysis.trial.try_features` on the session; unknown focus ids are left out."""
     known = []
     for cid in focus:  # the selection may be filtered away: never an error here
         try:
@@ -464,90 +352,7 @@ def try_candidate(session: Session, derive: dict[str, str], focus: Sequence[str]
         except AfterlookError:
             continue
         known.append(cid)
-    return try_features(session.model, session.cases, derive, focus=known, training=session.training,
-                        before=session.scored)
-
-
-@dataclass(frozen=True)
-class MetricChange:
-    name: str
-    before: float
-    after: float
-    change: float
-    integer: bool
-
-
-@dataclass(frozen=True)
-class CaseChange:
-    case: str
-    label: str
-    log_density_before: float | None
-    log_density_after: float | None
-    flagged_before: bool
-    flagged_after: bool
-    words: str
-
-
-@dataclass(frozen=True)
-class TrialView:
-    """A try result laid out for the before/after comparison."""
-
-    derive: list[tuple[str, str]]
-    training_source: str
-    metrics: list[MetricChange]
-    misses_caught: int
-    false_alarms_added: int
-    case: CaseChange | None  # the case under review
-    threshold_before: float
-    threshold_after: float
-    margin_before: float | None
-    margin_after: float | None
-    now_flagged: list[CaseChange]
-    no_longer_flagged: list[CaseChange]
-    warnings: list[str]
-
-    @staticmethod
-    def counts(rows: list[CaseChange]) -> tuple[int, int, int]:
-        """(cases, labelled anomaly, labelled normal) among ``rows``."""
-        n_anomaly = sum(1 for r in rows if r.label == "anomaly")
-        return len(rows), n_anomaly, len(rows) - n_anomaly
-
-
-def flip_words(before: bool, after: bool) -> str:
-    if after and not before:
-        return "now flagged"
-    if before and not after:
-        return "now unflagged"
-    return "still flagged" if after else "still not flagged"
-
-
-def trial_view(result: TryResult, case_id: str | None = None) -> TrialView:
-    """Before/after metrics with their change, the case's log-density against each threshold, flips."""
-    d = result.to_dict()
-    b, a = d["before"], d["after"]
-    metrics = []
-    for key, name, integer in (("threshold", "threshold", False), ("tp", "caught (tp)", True),
-                               ("fp", "false alarms (fp)", True), ("fn", "misses (fn)", True),
-                               ("tn", "normal, unflagged (tn)", True), ("precision", "precision", False),
-                               ("recall", "recall", False), ("f1", "F1", False)):
-        metrics.append(MetricChange(name, b[key], a[key], a[key] - b[key], integer))
-    changes = [CaseChange(r["case"], r["label"], r["before"]["log_density"], r["after"]["log_density"],
-                          r["before"]["flagged"], r["after"]["flagged"],
-                          flip_words(r["before"]["flagged"], r["after"]["flagged"])) for r in d["cases"]]
-    case = next((c for c in changes if c.case == str(case_id)), None) if case_id is not None else None
-    mb = ma = None
-    if case is not None:
-        mb = None if case.log_density_before is None else case.log_density_before - result.threshold_before
-        ma = None if case.log_density_after is None else case.log_density_after - result.threshold_after
-    return TrialView(
-        derive=list(result.derive), training_source=result.training_source, metrics=metrics,
-        misses_caught=d["misses_caught"], false_alarms_added=d["false_alarms_added"], case=case,
-        threshold_before=result.threshold_before, threshold_after=result.threshold_after,
-        margin_before=mb, margin_after=ma,
-        now_flagged=[c for c in changes if c.flagged_after and not c.flagged_before],
-        no_longer_flagged=[c for c in changes if c.flagged_before and not c.flagged_after],
-        warnings=list(result.warnings),
-    )
+    return try_features(session, None, derive, focus=known)
 
 
 # --------------------------------------------------------------------------
@@ -581,16 +386,16 @@ class HistogramView:
     normal_source: str
 
 
-def _shape_search(session: Session, key: str, values: np.ndarray):
-    from .core.shaping import search_transform
+def _shape_search(session: WorkbenchSession, key: str, values: np.ndarray):
+    from ..core.shaping import search_transform
 
     if key not in session._shaped:
-        # The same defaults as afterlook.api.shape (D'Agostino K^2, 5000-row seeded sample).
+        # The same defaults as afterlook.analysis.shaping.shape (D'Agostino K^2, 5000-row seeded sample).
         session._shaped[key] = search_transform(values, name=key)
     return session._shaped[key]
 
 
-def _raw_values(session: Session, source: HistogramSource) -> tuple[np.ndarray, np.ndarray]:
+def _raw_values(session: WorkbenchSession, source: HistogramSource) -> tuple[np.ndarray, np.ndarray]:
     """Untransformed values of a feature or candidate: (normal rows, every case)."""
     if source.kind == "feature":
         return session.scope("normal")[source.name], session.scope("cases")[source.name]
@@ -600,7 +405,7 @@ def _raw_values(session: Session, source: HistogramSource) -> tuple[np.ndarray, 
     return normal, cases
 
 
-def histogram_view(session: Session, source: HistogramSource, case_id: str, *, shaped: bool = False,
+def histogram_view(session: WorkbenchSession, source: HistogramSource, case_id: str, *, shaped: bool = False,
                    bins: int = 40) -> HistogramView:
     """Counts for the histogram of a feature or candidate (see :mod:`afterlook.core.histograms`).
 
@@ -647,7 +452,7 @@ def histogram_view(session: Session, source: HistogramSource, case_id: str, *, s
                          session.training.source)
 
 
-def histogram_sources(session: Session, candidates: SuggestResult | None = None) -> list[HistogramSource]:
+def histogram_sources(session: WorkbenchSession, candidates: SuggestResult | None = None) -> list[HistogramSource]:
     """Model features, then the candidates of the case under review."""
     out = [HistogramSource("feature", n) for n in session.model.features]
     if candidates is not None:
@@ -664,22 +469,23 @@ def casebook_case_ids(path) -> set[str]:
     """Case ids already in the casebook (empty when the file does not exist yet)."""
     if not os.path.exists(path):
         return set()
-    from .store.casebook import Casebook
+    from ..store.casebook_file import Casebook
 
     return {str(k) for k in Casebook.open(path).entries}
 
 
 def casebook_statuses() -> list[str]:
-    from .store.casebook import STATUSES
+    """The statuses a casebook entry may have, in the order the save screen lists them."""
+    from ..store.casebook_file import STATUSES
 
     return list(STATUSES)
 
 
-def save_case(session: Session, case_id: str, status: str, *, note: str = "",
+def save_case(session: WorkbenchSession, case_id: str, status: str, *, note: str = "",
               derive: tuple[str, str] | None = None) -> dict:
     """Record a reviewed case in the session's casebook (atomic write by the casebook store)."""
-    from .casebook import add_to_casebook
+    from .review import add_to_casebook
 
-    return add_to_casebook(session.casebook_path, session.model, session.cases, str(case_id), status,
+    return add_to_casebook(session.casebook_path, session, None, str(case_id), status,
                            derive=None if derive is None else {derive[0]: derive[1]}, note=note,
-                           train=session.train, model_path=session.model_path)
+                           model_path=session.model_path)

@@ -1,7 +1,7 @@
 """Casebook at the API level: review a case into an entry, add it to a book, check a book against a model.
 
 An entry is built from the same functions as ``explain`` and ``try``
-(:func:`afterlook.api.explain`, :func:`afterlook.discovery.try_features`), so
+(:func:`afterlook.analysis.evidence.explain`, :func:`afterlook.analysis.trial.try_features`), so
 every number in a casebook is the number those commands print.
 
 Entry keys (a JSON-ready dict; more may be added)::
@@ -38,19 +38,22 @@ from __future__ import annotations
 
 import getpass
 import os
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, fields
 from datetime import datetime, timezone
 from typing import Callable
 
 import numpy as np
 import pandas as pd
 
-from .api import as_table, case_context, explain, numeric_columns_of, scored_cases, table_name
-from .core.errors import AfterlookError
-from .core.thresholds import flag
-from .model import Model, load_model
-from .store.atomic import check_writable
-from .store.casebook import STATUSES, Casebook, CasebookConflict, check_status, clean_number
+from ..core.errors import AfterlookError
+from ..core.numbers import finite_or_none as clean_number
+from ..core.thresholds import flag
+from ..store.atomic import check_writable
+from ..store.casebook_file import STATUSES, Casebook, CasebookConflict, check_status
+from .evidence import explain_case
+from .model import Model
+from .session import Session, as_model, case_context, derive_pairs, numeric_columns_of, prepare, table_name
+from .trial import try_features
 
 __all__ = [
     "STATUSES",
@@ -89,11 +92,10 @@ def _os_user() -> str:
 
 
 def _model_and_path(model, model_path):
+    """The model, and the path to record for it (as given, else where it was loaded from)."""
     if isinstance(model, (str, os.PathLike)):
-        path = os.fspath(model)
-        return load_model(path), (model_path if model_path is not None else path)
-    if not isinstance(model, Model):
-        raise AfterlookError(f"expected an afterlook Model or a model file path, got {type(model).__name__}")
+        return as_model(model), (model_path if model_path is not None else os.fspath(model))
+    model = as_model(model)
     return model, (model_path if model_path is not None else model.source_path)
 
 
@@ -102,64 +104,128 @@ def _model_and_path(model, model_path):
 # --------------------------------------------------------------------------
 
 
+@dataclass
+class ReviewEntry:
+    """One reviewed case, as the casebook stores it (see the module docstring for each part)."""
+
+    case: str
+    label: str | None
+    status: str
+    note: str
+    reviewer: str
+    created: str
+    updated: str
+    model: dict
+    model_after: dict | None
+    derived_feature: dict | None
+    derived_features: list[dict]
+    snapshot: dict
+    before: dict
+    after: dict | None
+    metrics: dict
+    evidence: list[dict]
+    evidence_after: list[dict] | None
+    deciding_feature: dict
+    warnings: list[str]
+    history: list[dict] = field(default_factory=list)
+
+    def to_dict(self) -> dict:
+        """The JSON-ready entry, keys in the order above."""
+        return {f.name: getattr(self, f.name) for f in fields(self)}
+
+
 def review_entry(model, cases, case_id, status, *, derive=None, note: str = "", reviewer: str | None = None,
                  train=None, model_path=None, clock: Clock | None = None) -> dict:
     """The casebook entry for one reviewed case (see the module docstring for its keys).
 
     Parameters
     ----------
-    model : Model or model file path
+    model : Model, model file path, or a prepared
+        :class:`~afterlook.analysis.session.Session` (then ``cases`` and
+        ``train`` are its own and may be None)
     cases : path, DataFrame or Table holding the case
     case_id : the case's id
     status : one of :data:`STATUSES`
     derive : {name: expression}, or a list of "NAME=EXPR" / (name, expression)
         The derived feature(s) chosen; the model is re-fitted with them
-        (:func:`afterlook.discovery.try_features`) for the "after" numbers.
+        (:func:`afterlook.analysis.trial.try_features`) for the "after" numbers.
     note, reviewer : free text; reviewer defaults to the OS user ("unknown" if none)
     train : the normal population for the re-fit and the histogram
         (default: the model's recorded training file, see
-        :func:`afterlook.discovery.resolve_training`)
+        :func:`afterlook.analysis.session.resolve_training`)
     model_path : stored as given (default: where the model was loaded from)
     clock : callable returning the current time (tests and reproducible files)
     """
-    from .discovery import derive_pairs, resolve_training, try_features
-
     check_status(status)
     if not isinstance(note, str):
         raise AfterlookError("note must be text")
-    model, model_path = _model_and_path(model, model_path)
-    table = as_table(cases)
-    i = table.row_index(str(case_id))
-    cid = str(table.ids[i])
-    pairs = derive_pairs(derive)
-    stamp = _stamp(clock)
-    warnings: list[str] = []
+    if isinstance(model, Session):
+        session = model
+        model_path = model_path if model_path is not None else session.model.source_path
+    else:
+        model, model_path = _model_and_path(model, model_path)
+        session = prepare(model, cases, train)
+    return _review(session, case_id, status, derive_pairs(derive), note=note, reviewer=reviewer,
+                   model_path=model_path, stamp=_stamp(clock)).to_dict()
 
-    before = explain(model, table, cid)
-    before_scored = scored_cases(model, table)
+
+def _review(session: Session, case_id, status: str, pairs, *, note: str, reviewer: str | None, model_path,
+            stamp: str) -> ReviewEntry:
+    model, table = session.model, session.cases
+    i = session.row(case_id)
+    cid = str(table.ids[i])
+    warnings: list[str] = []
+    before = explain_case(session, cid)
+    tried = after = None
+    if pairs:
+        tried = try_features(session, None, pairs, focus=[cid])
+        warnings += tried.warnings
+        after = explain_case(Session(tried.model, table, training=session.training), cid)
+    population = _population(session, bool(pairs), warnings)
+    deciding = _deciding_feature(model, pairs, before, after, tried, population)
     metrics_before = None
     if table.labels is not None:
-        metrics_before = {"threshold": model.threshold, **before_scored.confusion().to_dict()}
+        metrics_before = {"threshold": model.threshold, **session.scored.confusion().to_dict()}
+    return ReviewEntry(
+        case=cid,
+        label=None if table.labels is None else ("anomaly" if table.labels[i] else "normal"),
+        status=status, note=note, reviewer=reviewer if reviewer else _os_user(), created=stamp, updated=stamp,
+        model={"path": None if model_path is None else os.fspath(model_path), **_model_summary(model)},
+        model_after=None if tried is None else _model_summary(tried.model),
+        derived_feature={"name": pairs[0][0], "expression": pairs[0][1]} if pairs else None,
+        derived_features=[{"name": n, "expression": e} for n, e in pairs],
+        snapshot=_snapshot(tried.model if tried is not None else model, table, i),
+        before=_score_summary(before),
+        after=None if after is None else _score_summary(after),
+        metrics={"before": metrics_before,
+                 "after": None if tried is None else {"threshold": tried.threshold_after, **tried.after.to_dict()}},
+        evidence=[f.to_dict() for f in before.features],
+        evidence_after=None if after is None else [f.to_dict() for f in after.features],
+        deciding_feature=deciding,
+        warnings=list(dict.fromkeys(warnings)),
+    )
 
-    after = tried = None
-    if pairs:
-        tried = try_features(model, table, pairs, train=train, focus=[cid])
-        warnings += tried.warnings
-        after = explain(tried.model, table, cid)
-    recipe_model = tried.model if tried is not None else model
 
-    # The normal population, for the deciding feature's histogram.
+def _model_summary(model: Model) -> dict:
+    return {"fingerprint": model.fingerprint(), "kind": model.describe_kind(), "features": list(model.features)}
+
+
+def _population(session: Session, derived: bool, warnings: list[str]):
+    """The normal population for the deciding feature's histogram, or None (then the quantile grid)."""
     try:
-        training = resolve_training(model, table, train)
-        population = training.table
-        if not pairs:
-            warnings += training.warnings
+        training = session.training
     except AfterlookError as exc:
-        if pairs:  # pragma: no cover - try_features above would have raised the same
+        if derived:  # pragma: no cover - try_features would have raised the same
             raise
-        population = None
         warnings.append(f"histogram drawn from the model's quantile grid: {exc.message}")
+        return None
+    if not derived:
+        warnings += training.warnings
+    return training.table
 
+
+def _deciding_feature(model: Model, pairs, before, after, tried, population) -> dict:
+    """The derived feature when one was chosen, else the feature with the most negative contribution."""
     if pairs:
         name = pairs[0][0]
         ev = _find(after.features, name)
@@ -173,42 +239,7 @@ def review_entry(model, cases, case_id, status, *, derive=None, note: str = "", 
     deciding.update({"value": clean_number(ev.value), "z": clean_number(ev.z),
                      "percentile": clean_number(ev.percentile)})
     deciding["histogram"] = _histogram(source_model, ev.name, population)
-
-    entry = {
-        "case": cid,
-        "label": None if table.labels is None else ("anomaly" if table.labels[i] else "normal"),
-        "status": status,
-        "note": note,
-        "reviewer": reviewer if reviewer else _os_user(),
-        "created": stamp,
-        "updated": stamp,
-        "model": {
-            "path": None if model_path is None else os.fspath(model_path),
-            "fingerprint": model.fingerprint(),
-            "kind": model.describe_kind(),
-            "features": list(model.features),
-        },
-        "model_after": None if tried is None else {
-            "fingerprint": tried.model.fingerprint(),
-            "kind": tried.model.describe_kind(),
-            "features": list(tried.model.features),
-        },
-        "derived_feature": {"name": pairs[0][0], "expression": pairs[0][1]} if pairs else None,
-        "derived_features": [{"name": n, "expression": e} for n, e in pairs],
-        "snapshot": _snapshot(recipe_model, table, i),
-        "before": _score_summary(before),
-        "after": None if after is None else _score_summary(after),
-        "metrics": {
-            "before": metrics_before,
-            "after": None if tried is None else {"threshold": tried.threshold_after, **tried.after.to_dict()},
-        },
-        "evidence": [f.to_dict() for f in before.features],
-        "evidence_after": None if after is None else [f.to_dict() for f in after.features],
-        "deciding_feature": deciding,
-        "warnings": list(dict.fromkeys(warnings)),
-        "history": [],
-    }
-    return entry
+    return deciding
 
 
 def _find(features, name):
@@ -317,15 +348,15 @@ def check_casebook(book, model, cases) -> CheckResult:
     Parameters
     ----------
     book : Casebook or casebook path (must exist)
-    model : Model or model file path
+    model : Model or model file path (or a prepared session, then ``cases`` is None)
     cases : path, DataFrame or Table; cases missing from it are scored from
         the entry's stored snapshot (see the module docstring)
     """
     if not isinstance(book, Casebook):
         book = Casebook.open(book, create=False)
-    model, _ = _model_and_path(model, None)
-    table = as_table(cases)
-    scored = scored_cases(model, table)
+    session = model if isinstance(model, Session) else prepare(as_model(model), cases)
+    model, table = session.model, session.cases
+    scored = session.scored
     first_row: dict[str, int] = {}
     for k, cid in enumerate(table.ids):
         first_row.setdefault(str(cid), k)

@@ -16,13 +16,13 @@ from typing import Mapping
 import numpy as np
 import pandas as pd
 
-from ._version import __version__
-from .core.errors import AfterlookError
-from .core.explain import QUANTILE_POINTS, quantile_grid
-from .core.gaussian import GaussianModel
-from .core.recipe import FeatureMatrix, Recipe
-from .core.thresholds import ThresholdPolicy, flag, parse_policy
-from .store import model_file
+from .._version import __version__
+from ..core.errors import AfterlookError
+from ..core.explain import QUANTILE_POINTS, quantile_grid
+from ..core.gaussian import GaussianModel
+from ..core.recipe import FeatureMatrix, Recipe
+from ..core.thresholds import ThresholdPolicy, flag, parse_policy
+from ..store import model_file
 
 
 @dataclass

@@ -1,0 +1,131 @@
+"""Evidence: the misses of a model on labelled cases, and why one case scored as it did."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from ..core.errors import AfterlookError
+from ..core.explain import FeatureEvidence, evidence
+from ..core.thresholds import Confusion
+from .session import Session, case_context, prepare, table_name
+
+__all__ = ["Miss", "MissesResult", "misses", "ExplainResult", "explain", "explain_case"]
+
+
+@dataclass
+class Miss:
+    case: str
+    log_density: float
+    margin: float
+    context: dict = field(default_factory=dict)
+
+    def to_dict(self) -> dict:
+        return {"case": self.case, "log_density": self.log_density, "margin": self.margin, "context": self.context}
+
+
+@dataclass
+class MissesResult:
+    """Misses (labelled anomalies left unflagged), worst margin first."""
+
+    threshold: float
+    n_cases: int
+    n_anomalies: int
+    misses: list[Miss]
+    metrics: Confusion
+    unscored: list[str]
+    model_kind: str = ""
+    warnings: list[str] = field(default_factory=list)
+
+    def to_dict(self) -> dict:
+        return {
+            "threshold": self.threshold,
+            "n_cases": self.n_cases,
+            "n_anomalies": self.n_anomalies,
+            "n_misses": len(self.misses),
+            "misses": [m.to_dict() for m in self.misses],
+            "metrics": self.metrics.to_dict(),
+            "unscored_anomalies": list(self.unscored),
+        }
+
+
+def misses(model, cases=None) -> MissesResult:
+    """Labelled anomalies the model left unflagged, largest margin first.
+
+    ``margin = log_density - threshold`` (> 0 for a miss): how far above the
+    threshold the case sat. Anomalies whose features are NaN (e.g. a derived
+    feature divided by zero) cannot be scored; they are listed separately
+    in ``unscored_anomalies`` rather than silently counted either way.
+    """
+    session = prepare(model, cases)
+    model = session.model
+    sc = session.scored
+    table = sc.table
+    if table.labels is None:
+        raise AfterlookError(f"{table_name(table)} has no label column; misses need labelled cases (--label-col)")
+    y = table.labels
+    finite = np.isfinite(sc.log_density)
+    is_miss = y & ~sc.flagged & finite
+    idx = np.flatnonzero(is_miss)
+    idx = idx[np.argsort(-sc.margin[idx], kind="mergesort")]
+    rows = [Miss(str(table.ids[i]), float(sc.log_density[i]), float(sc.margin[i]), case_context(table, i)) for i in idx]
+    unscored = [str(table.ids[i]) for i in np.flatnonzero(y & ~finite)]
+    warnings = list(table.warnings)
+    if (~finite).any():
+        warnings.append(f"{int((~finite).sum())} case(s) have NaN or infinite features and were not scored")
+    return MissesResult(model.threshold, int(len(y)), int(y.sum()), rows, sc.confusion(), unscored,
+                        model.describe_kind(), warnings)
+
+
+@dataclass
+class ExplainResult:
+    """Per-feature evidence for one case."""
+
+    case: str
+    log_density: float
+    threshold: float
+    features: list[FeatureEvidence]
+    flagged: bool
+    label: bool | None
+    context: dict
+    model_kind: str
+
+    @property
+    def margin(self) -> float:
+        return self.log_density - self.threshold
+
+    def to_dict(self) -> dict:
+        ld = self.log_density if np.isfinite(self.log_density) else None
+        return {
+            "case": self.case,
+            "log_density": ld,
+            "threshold": self.threshold,
+            "margin": None if ld is None else self.margin,
+            "flagged": bool(self.flagged),
+            "label": None if self.label is None else ("anomaly" if self.label else "normal"),
+            "model_kind": self.model_kind,
+            "context": self.context,
+            "features": [f.to_dict() for f in self.features],
+        }
+
+
+def explain(model, cases, case_id=None) -> ExplainResult:
+    """Why one case scored as it did: per-feature z, percentile, contribution, conditional z.
+
+    Called as ``explain(model, cases, case_id)`` or ``explain(session, case_id)``.
+    """
+    if isinstance(model, Session) and case_id is None:
+        return explain_case(model, cases)
+    return explain_case(prepare(model, cases), case_id)
+
+
+def explain_case(session: Session, case_id) -> ExplainResult:
+    """:func:`explain` on a prepared session (the cases are not scored again)."""
+    model = session.model
+    sc = session.scored
+    i = session.row(case_id)
+    ev = evidence(model.density, sc.features[i], model.quantiles)
+    label = None if sc.labels is None else bool(sc.labels[i])
+    return ExplainResult(str(sc.table.ids[i]), float(sc.log_density[i]), model.threshold, ev,
+                         bool(sc.flagged[i]), label, case_context(sc.table, i), model.describe_kind())

@@ -1,0 +1,260 @@
+"""Fitting: a model from the normal rows of a training table, in memory or streamed.
+
+:func:`fit` reads the whole table; :func:`fit_streamed` reads a file larger
+than memory in chunks (or on a Dask cluster) and gives the same Gaussian.
+:func:`refit` re-fits a model's kind and options with another recipe, as
+``try`` and ``suggest`` do.
+"""
+
+from __future__ import annotations
+
+from typing import Iterable, Mapping
+
+import numpy as np
+import pandas as pd
+
+from ..core.errors import AfterlookError
+from ..core.gaussian import GaussianModel
+from ..core.recipe import Recipe, parse_transform
+from ..core.thresholds import ThresholdPolicy, choose_threshold, parse_policy
+from ..store.tables import Table, sha256_file
+from .model import Model, training_summary
+from .session import TrainingRows, as_table, derive_pairs, numeric_columns_of, table_name
+
+__all__ = ["fit", "fit_streamed", "refit", "checked_base_columns", "DEFAULT_RATE"]
+
+DEFAULT_RATE = 0.01
+
+
+def fit(
+    train,
+    *,
+    cases=None,
+    kind: str = "full",
+    robust: bool = False,
+    shrinkage=None,
+    derive: Mapping[str, str] | Iterable[tuple[str, str]] | None = None,
+    transform: Mapping[str, str] | Iterable[tuple[str, str]] | None = None,
+    threshold: str | ThresholdPolicy | None = None,
+    columns: list[str] | None = None,
+    recipe: Recipe | None = None,
+    quantiles: bool = True,
+) -> Model:
+    """Fit a model on the normal rows of ``train``.
+
+    Parameters
+    ----------
+    train : path, DataFrame or Table
+        Rows labelled normal are used when the table has a label column,
+        otherwise every row.
+    cases : path, DataFrame or Table, optional
+        Labelled cases on which the threshold is picked.
+    kind : "independent" or "full"
+    robust : bool
+        Minimum covariance determinant fit (resists anomalies hidden in train).
+    shrinkage : None, "ledoit-wolf" or float
+    derive : {name: expression}
+    transform : {feature: expression | "boxcox" | "yeojohnson" | "boxcox(0.5)"}
+    threshold : "f1", "rate:R", "value:V"; default f1 with labelled cases, else rate:0.01
+    columns : base columns; default every numeric column of ``train``
+    recipe : a complete recipe, instead of columns/derive/transform (used for re-fits)
+    quantiles : store the per-feature quantile grid used for percentiles (skipped
+        by the candidate search's throw-away re-fits, where it is the slowest step)
+    """
+    warnings: list[str] = []
+    table = as_table(train)
+    frame = table.frame
+    normal = np.ones(len(frame), dtype=bool) if table.labels is None else ~table.labels
+    n_labelled_anomaly = int((~normal).sum())
+    if n_labelled_anomaly:
+        warnings.append(f"fit uses the {int(normal.sum())} rows labelled normal; {n_labelled_anomaly} labelled anomaly left out")
+    if not normal.any():
+        raise AfterlookError("nothing normal to fit on: every training row is labelled anomaly")
+    normal_frame = frame.loc[normal]
+
+    if recipe is None:
+        recipe = _build_recipe(table, normal_frame, columns, derive, transform, warnings)
+    columns_map = numeric_columns_of(normal_frame, recipe.required_columns())
+    # Lambdas are fitted on the rows whose raw inputs are all finite (the
+    # rows a streamed fit sees too), so both engines give the same recipe.
+    raw_ok = np.all(np.column_stack([np.isfinite(v) for v in columns_map.values()]), axis=1)
+    recipe = recipe.fit({k: v[raw_ok] for k, v in columns_map.items()})
+    fm = recipe.apply(columns_map)
+    finite = fm.finite_rows
+    dropped = int((~finite).sum())
+    if dropped:
+        worst = max(fm.nan_by_feature, key=fm.nan_by_feature.get)
+        warnings.append(
+            f"dropped {dropped} training row(s) with NaN or infinite features "
+            f"(most in '{worst}': {fm.nan_by_feature[worst]})"
+        )
+    X = fm.values[finite]
+    if X.shape[0] < 2:
+        raise AfterlookError(f"nothing normal to fit on: {X.shape[0]} usable normal row(s); need at least 2")
+    density = GaussianModel(kind=kind, shrinkage=shrinkage, robust=robust).fit(X, fm.names)
+    if density.support_fraction_ is not None:
+        warnings.append(f"robust fit kept {density.support_fraction_:.1%} of the training rows as its core")
+
+    policy, value, basis = _pick_threshold(density, recipe, threshold, cases, X, warnings,
+                                           f"training rows ({X.shape[0]})")
+
+    stats, grid = training_summary(X, fm.names, quantiles=quantiles)
+    training = {
+        "path": table.path,
+        "sha256": sha256_file(table.path) if table.path else None,
+        "rows": int(len(frame)),
+        "rows_used": int(X.shape[0]),
+        "rows_dropped_nonfinite": dropped,
+        "rows_labelled_anomaly": n_labelled_anomaly,
+        "columns": stats,
+    }
+    return Model(recipe=recipe, density=density, threshold=value, policy=policy, threshold_basis=basis,
+                 training=training, quantiles=grid, warnings=warnings + list(table.warnings))
+
+
+def _pick_threshold(density, recipe: Recipe, threshold, cases, normal_rows: np.ndarray, warnings: list[str],
+                    normal_basis: str, rate_note: str = ""):
+    """Threshold by policy: labelled cases when given, else the normal rows.
+
+    Returns ``(policy, value, basis)``; the default policy is f1 with
+    labelled anomalies, else a 1% false-alarm budget on the training rows.
+    """
+    policy = _policy(threshold)
+    case_table = as_table(cases) if cases is not None else None
+    case_ld = case_y = None
+    if case_table is not None and case_table.labels is not None:
+        case_ld = density.log_density(recipe.apply(numeric_columns_of(case_table.frame, recipe.required_columns())).values)
+        case_y = case_table.labels
+    if policy is None:
+        if case_y is not None and case_y.any():
+            policy = ThresholdPolicy("f1")
+        else:
+            policy = ThresholdPolicy("rate", DEFAULT_RATE)
+            warnings.append(f"no labelled cases with anomalies: threshold set to flag {DEFAULT_RATE:.0%} of the "
+                            f"training rows{rate_note} (give --cases or --threshold)")
+    if policy.kind == "f1" and (case_y is None or not case_y.any()):
+        raise AfterlookError("--threshold f1 needs labelled cases with at least one anomaly (--cases FILE)")
+    normal_ld = density.log_density(normal_rows) if policy.kind == "rate" else None
+    value = choose_threshold(policy, case_log_density=case_ld, case_is_anomaly=case_y, normal_log_density=normal_ld)
+    if policy.kind == "value":
+        basis = "given"
+    elif case_y is not None and (policy.kind == "f1" or (~case_y).any()):
+        basis = f"{table_name(case_table)} ({len(case_y)} cases, {int(case_y.sum())} labelled anomaly)"
+    else:
+        basis = normal_basis
+    return policy, value, basis
+
+
+def _policy(threshold) -> ThresholdPolicy | None:
+    if threshold is None or isinstance(threshold, ThresholdPolicy):
+        return threshold
+    return parse_policy(threshold)
+
+
+def checked_base_columns(table: Table, columns) -> list[str]:
+    """The base columns asked for, each present in the table and numeric."""
+    base = list(columns)
+    unknown = [c for c in base if c not in table.frame.columns]
+    if unknown:
+        raise AfterlookError(f"training table has no column '{unknown[0]}'")
+    not_numeric = [c for c in base if c not in table.numeric_columns]
+    if not_numeric:
+        raise AfterlookError(f"column '{not_numeric[0]}' is not numeric and cannot be modelled")
+    return base
+
+
+def _build_recipe(table: Table, normal_frame: pd.DataFrame, columns, derive, transform, warnings) -> Recipe:
+    if columns:
+        base = checked_base_columns(table, columns)
+    else:
+        base = list(table.numeric_columns)
+        values = numeric_columns_of(normal_frame, base)
+        constant = [c for c in base if np.nanmin(values[c]) == np.nanmax(values[c])] if len(normal_frame) else []
+        if constant:
+            warnings.append(f"left out {len(constant)} constant column(s): {', '.join(constant)}")
+            base = [c for c in base if c not in constant]
+    derived = derive_pairs(derive)
+    if not base and not derived:
+        raise AfterlookError("no numeric columns to model")
+    transforms = {name: parse_transform(name, text) for name, text in derive_pairs(transform, "--transform")}
+    return Recipe(base, derived, transforms)
+
+
+def refit(model: Model, recipe: Recipe, train: TrainingRows, cases: Table, *, quantiles: bool = True) -> Model:
+    """Re-fit the model's kind and options with another recipe, threshold by the same policy."""
+    return fit(train.table, cases=cases, kind=model.density.kind, robust=model.density.robust,
+               shrinkage=model.density.shrinkage, threshold=model.policy, recipe=recipe, quantiles=quantiles)
+
+
+def fit_streamed(
+    train_path,
+    *,
+    engine: str = "chunked",
+    scheduler: str | None = None,
+    chunk_rows: int = 262_144,
+    cases=None,
+    kind: str = "full",
+    shrinkage=None,
+    derive=None,
+    transform=None,
+    threshold: str | ThresholdPolicy | None = None,
+    columns: list[str] | None = None,
+    id_col: str | None = None,
+    label_col: str | None = None,
+    random_state: int = 0,
+) -> Model:
+    """Fit from a training file without loading it whole.
+
+    The Gaussian's parameters equal those of :func:`fit` on the same rows
+    (they come from mergeable counts, means and scatter matrices); the
+    quantile grid for percentiles, fitted lambdas and a rate threshold on
+    training rows come from a seeded uniform sample of at most 100,000 rows.
+    Every row is used: the file must not have a label column.
+    """
+    from ..engines import ENGINES
+    from ..engines.local import SAMPLE_ROWS, check_streamable, fit_local
+    from ..store.tables import load_head
+
+    if engine not in ENGINES or engine == "memory":
+        raise AfterlookError(f"unknown engine '{engine}' for a streamed fit (choose: chunked, dask)")
+    warnings: list[str] = []
+    head = load_head(train_path, id_col=id_col, label_col=label_col)
+    check_streamable(head.label_col, head.path)
+    base = checked_base_columns(head, columns) if columns else list(head.numeric_columns)
+    recipe = Recipe(base, derive_pairs(derive), {n: parse_transform(n, t) for n, t in derive_pairs(transform, "--transform")})
+    if engine == "dask":
+        from ..engines.dask_engine import fit_dask
+
+        recipe, streamed = fit_dask(train_path, recipe, scheduler=scheduler, random_state=random_state)
+    else:
+        recipe, streamed = fit_local(train_path, recipe, chunk_rows=chunk_rows, random_state=random_state)
+    if streamed.rows_dropped:
+        worst = max(streamed.nan_by_feature, key=streamed.nan_by_feature.get)
+        warnings.append(f"dropped {streamed.rows_dropped} training row(s) with NaN or infinite features "
+                        f"(most in '{worst}': {streamed.nan_by_feature[worst]})")
+    density = GaussianModel(kind=kind, shrinkage=shrinkage).fit_stats(streamed.stats, recipe.features)
+
+    policy, value, basis = _pick_threshold(density, recipe, threshold, cases, streamed.sample, warnings,
+                                           f"a sample of {streamed.sample.shape[0]} training rows",
+                                           " (estimated on a sample of the training rows)")
+
+    sd = np.sqrt(np.diag(streamed.stats.covariance()))
+    stats = {name: {"mean": float(streamed.stats.mean[j]), "std": float(sd[j]),
+                    "min": float(streamed.minimum[j]), "max": float(streamed.maximum[j])}
+             for j, name in enumerate(recipe.features)}
+    from ..core.explain import QUANTILE_POINTS, quantile_grid
+
+    training = {
+        "path": head.path,
+        "sha256": sha256_file(head.path),
+        "rows": int(streamed.rows_total),
+        "rows_used": int(streamed.stats.n),
+        "rows_dropped_nonfinite": int(streamed.rows_dropped),
+        "rows_labelled_anomaly": 0,
+        "columns": stats,
+        "engine": engine,
+        "quantiles_from": f"seeded sample of {streamed.sample.shape[0]} rows (at most {SAMPLE_ROWS})",
+    }
+    return Model(recipe=recipe, density=density, threshold=value, policy=policy, threshold_basis=basis,
+                 training=training, quantiles=quantile_grid(streamed.sample, QUANTILE_POINTS),
+                 warnings=warnings + list(head.warnings))

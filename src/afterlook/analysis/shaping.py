@@ -1,0 +1,54 @@
+"""Shaping: a transform per skewed column (the numerics are in :mod:`afterlook.core.shaping`)."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from ..core.errors import AfterlookError
+from .session import as_table
+
+__all__ = ["shape", "ShapeReport"]
+
+
+@dataclass
+class ShapeReport:
+    """Transform suggestions per column; ``to_dict()`` is ``afterlook shape --json``."""
+
+    features: list  # list[core.shaping.ShapeResult]
+    statistic: str
+    rows_used: int
+    warnings: list[str] = field(default_factory=list)
+
+    def to_dict(self) -> dict:
+        return {"features": [f.to_dict() for f in self.features]}
+
+
+def shape(df, columns=None, *, statistic: str = "dagostino", sample_size: int = 5000,
+          random_state=0) -> ShapeReport:
+    """Search a transform per numeric column (see :mod:`afterlook.core.shaping`).
+
+    ``df`` is a DataFrame, Table or path; rows labelled anomaly are left
+    out, as ``fit`` does. ``columns`` defaults to every numeric column.
+    """
+    from ..core.shaping import shape_columns
+
+    table = as_table(df)
+    if isinstance(columns, str):
+        columns = [columns]
+    names = list(table.numeric_columns) if columns is None else list(dict.fromkeys(str(c) for c in columns))
+    if not names:
+        raise AfterlookError("no columns to shape")
+    for name in names:
+        if name not in table.numeric_columns:
+            table.numeric(name)  # raises for an unknown or non-numeric column, with a hint
+            role = {table.id_col: "the id column", table.label_col: "the label column"}.get(name, "not a numeric column")
+            raise AfterlookError(f"column '{name}' is {role}; only numeric feature columns can be shaped")
+    rows = np.ones(len(table), dtype=bool) if table.labels is None else ~table.labels
+    if not rows.any():
+        raise AfterlookError("nothing to shape: every row is labelled anomaly")
+    values = table.numeric(names)[rows]
+    results = shape_columns({n: values[:, j] for j, n in enumerate(names)}, names, statistic=statistic,
+                            sample_size=sample_size, random_state=random_state)
+    return ShapeReport(results, results[0].statistic, int(rows.sum()), list(table.warnings))
