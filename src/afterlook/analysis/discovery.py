@@ -160,7 +160,7 @@ def _refit_head(session: Session, head: list, idx: list[int], progress) -> list[
     fast = AddedFeatureRefit.prepare(session)
     for k, c in enumerate(head):
         _report(progress, f"re-fitting {k + 1}/{len(head)}", 0.4 + 0.6 * k / max(len(head), 1))
-        outcome = fast.evaluate(c.expression) if fast is not None else None
+        outcome = fast.evaluate(c.parsed or c.expression) if fast is not None else None
         if outcome is None:  # not expressible as an added column: full re-fit
             recipe = model.recipe.with_derived([(_candidate_name(model.recipe.features), c.expression)])
             try:
@@ -218,10 +218,10 @@ class AddedFeatureRefit:
         raw_train = {k: v[keep] for k, v in session.scope("normal").items()}
         return cls(model, X, raw_train, session.scored.features, session.scope("cases"), session.labels, base)
 
-    def evaluate(self, expression: str):
-        """``(threshold, flagged, confusion)`` after adding ``expression``, or None."""
+    def evaluate(self, expression):
+        """``(threshold, flagged, confusion)`` after adding ``expression`` (text or parsed), or None."""
         try:
-            expr = expressions.parse(expression)
+            expr = expression if isinstance(expression, expressions.Expression) else expressions.parse(expression)
             y = expr.evaluate(self.raw_train)
             y_cases = expr.evaluate(self.case_raw)
         except AfterlookError:

@@ -141,6 +141,8 @@ class Candidate:
     targets_exposed: int = 0
     false_alarms_added: int | None = None
     catches_targets: int | None = None
+    # the parsed expression, kept from the exact pass so the re-fit does not parse it again
+    parsed: expressions.Expression | None = field(default=None, repr=False, compare=False)
 
     @property
     def name(self) -> str:
@@ -529,7 +531,7 @@ def second_pass(
     chosen += reserve[: settings.correlated_reserve]
     out = []
     for c in chosen:
-        expr = expressions.parse(c.expression)
+        expr = c.parsed = expressions.parse(c.expression)
         v = expr.evaluate(sample)
         v = v[np.isfinite(v)]
         if v.size < 30 or v.std() == 0:

@@ -46,6 +46,14 @@ class Transform:
     expression: str | None = None
     lmbda: float | None = None
 
+    def parsed(self) -> "expressions.Expression":
+        """The expression transform, parsed on first use and kept (the text never changes)."""
+        expr = self.__dict__.get("_parsed")
+        if expr is None:
+            expr = expressions.parse(self.expression)
+            object.__setattr__(self, "_parsed", expr)  # a cache on a frozen instance; not a field
+        return expr
+
     def describe(self, feature: str) -> str:
         if self.kind == "expression":
             return self.expression
@@ -92,7 +100,9 @@ def parse_transform(feature: str, text: str) -> Transform:
         raise AfterlookError(
             f"transform '{feature}={text}' may only use '{feature}' itself, not '{other}' (use a derived feature for that)"
         )
-    return Transform("expression", expression=expr.text)
+    t = Transform("expression", expression=expr.text)
+    object.__setattr__(t, "_parsed", expr)  # already parsed: Transform.parsed() reuses it
+    return t
 
 
 def apply_transform(t: Transform, feature: str, values: np.ndarray) -> np.ndarray:
@@ -101,7 +111,7 @@ def apply_transform(t: Transform, feature: str, values: np.ndarray) -> np.ndarra
     # transform map it to a finite number (lambda < 0 would give -1/lambda).
     values = np.where(np.isfinite(values), values, np.nan)
     if t.kind == "expression":
-        return expressions.parse(t.expression).evaluate({feature: values})
+        return t.parsed().evaluate({feature: values})
     if t.lmbda is None:
         raise AfterlookError(f"transform of '{feature}' is not fitted")
     from scipy import special, stats  # here, not at the top: scipy.stats costs ~0.5 s to import
@@ -162,6 +172,9 @@ class Recipe:
     transforms: dict[str, Transform] = field(default_factory=dict)
 
     def __post_init__(self) -> None:
+        # Each derived expression is parsed here, once; apply, raw_features and
+        # required_columns reuse the parsed form.
+        self._parsed: dict[str, expressions.Expression] = {}
         self.base = list(self.base)
         self.derived = [(str(n), str(e)) for n, e in self.derived]
         seen = set()
@@ -176,7 +189,7 @@ class Recipe:
             if name in seen:
                 raise AfterlookError(f"derived feature '{name}' clashes with an existing feature name")
             seen.add(name)
-            expressions.parse(text)  # syntax and whitelist now; columns are checked on apply
+            self._parsed[name] = expressions.parse(text)  # syntax and whitelist now; columns on apply
             known.append(name)
         for name in self.transforms:
             if name not in seen:
@@ -194,8 +207,8 @@ class Recipe:
         """Raw table columns the recipe reads."""
         need = list(self.base)
         defined = set(self.base)
-        for name, text in self.derived:
-            for col in expressions.parse(text).columns:
+        for name, _text in self.derived:
+            for col in self._parsed[name].columns:
                 if col not in defined and col not in need:
                     need.append(col)
             defined.add(name)
@@ -215,7 +228,7 @@ class Recipe:
         scope = ChainMap({}, columns)
         scope.n_rows = len(next(iter(env.values()))) if env else getattr(columns, "n_rows", None)
         for name, text in self.derived:
-            expr = expressions.parse(text)
+            expr = self._parsed[name]
             missing = [c for c in expr.columns if c not in scope]
             if missing:
                 raise AfterlookError(

@@ -49,7 +49,7 @@ Selection rule
    the K^2 p-value at least :data:`NEAR_GAUSSIAN_P`.
 3. Near-ties prefer simpler transforms: among candidates whose statistic is
    within ``max(TIE_REL * best, TIE_FLOOR_FRACTION * critical value)`` of
-   the best, the lowest :attr:`Candidate.complexity` wins (the identity;
+   the best, the lowest :attr:`TransformTried.complexity` wins (the identity;
    then ``log(x)``, ``log(x + 1)`` for counts or a listed power; then
    another shifted log; then a fitted Box-Cox / Yeo-Johnson), then the
    lowest statistic.
@@ -123,7 +123,7 @@ _CRITICAL_5PCT = {"dagostino": float(stats.chi2.ppf(0.95, 2)), "anderson": 0.752
 
 
 @dataclass(frozen=True)
-class Candidate:
+class TransformTried:
     """One transform tried: its text, complexity rank and statistic on the sample."""
 
     description: str
@@ -430,7 +430,7 @@ def search_transform(
     identity_stat = score(sample)
     if identity_stat is None:  # pragma: no cover - a varying finite sample always scores
         return _left_alone(name, statistic, x_all, n_nonfinite, "no normality statistic")
-    candidates = [Candidate("none", None, 0, identity_stat)]
+    candidates = [TransformTried("none", None, 0, identity_stat)]
     after_by_text: dict[str, np.ndarray] = {"none": sample}
 
     specs: list[tuple[str, int]] = _expression_candidates(name, x_min, spread, is_count)
@@ -455,7 +455,7 @@ def search_transform(
         s = score(after)
         if s is None:
             continue
-        candidates.append(Candidate(text, t, complexity, s))
+        candidates.append(TransformTried(text, t, complexity, s))
         after_by_text[text] = after
 
     best = min(candidates, key=lambda c: c.statistic)

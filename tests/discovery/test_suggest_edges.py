@@ -1,0 +1,71 @@
+"""``suggest`` at the API edge: settings checked there, and each expression parsed once per call.
+
+The references are the documented ranges of :class:`afterlook.core.candidates.Settings`
+(the CLI's own option checks say the same) and a count of calls to the
+expression parser, recorded with ``unittest.mock``.
+"""
+
+from __future__ import annotations
+
+from collections import Counter
+from unittest import mock
+
+import pytest
+
+import afterlook
+from afterlook.analysis.discovery import suggest
+from afterlook.core import expressions
+from afterlook.core.candidates import Settings
+from afterlook.core.errors import AfterlookError
+
+
+@pytest.mark.parametrize("bad", [
+    {"alarm_rate": 2.0}, {"alarm_rate": 0.0}, {"alarm_rate": float("nan")}, {"min_correlation": -0.1},
+    {"chance_level": 1.0}, {"sample_size": 10}, {"sample_size": 500.5}, {"second_pass": 0},
+    {"correlated_reserve": -1}, {"random_state": -3},
+])
+def test_bad_settings_are_refused_with_one_line_naming_the_setting(fleet_factory, bad):
+    fitted = fleet_factory("ratio")
+    name = next(iter(bad))
+    with pytest.raises(AfterlookError) as err:
+        suggest(fitted.model, fitted.cases, settings=Settings(**bad))
+    assert name in err.value.message and "\n" not in err.value.message
+
+
+def test_public_suggest_refuses_a_bad_alarm_rate_without_a_raw_value_error(fleet_factory):
+    fitted = fleet_factory("ratio")
+    with pytest.raises(AfterlookError, match="alarm_rate"):
+        afterlook.suggest(fitted.model, fitted.cases, settings=Settings(alarm_rate=2.0))
+
+
+def test_settings_that_are_not_settings_are_refused(fleet_factory):
+    fitted = fleet_factory("ratio")
+    with pytest.raises(AfterlookError, match="Settings"):
+        suggest(fitted.model, fitted.cases, settings={"alarm_rate": 0.01})
+
+
+def test_one_suggest_call_parses_the_model_recipe_once(fleet_factory):
+    # The model's own derived features and transforms are parsed when the
+    # recipe is built; a suggest call (columns, raw features, scores, the
+    # added-column re-fits) must not parse them again, however many stages use them.
+    fitted = fleet_factory("ratio")
+    model = afterlook.fit(fitted.fleet.train, cases=fitted.cases, kind="independent",
+                          derive={"a_twice_plus_b": "2 * a + b", "root_c_plus_d": "sqrt(abs(c)) + d"}, transform={"e": "log(e + 100)"})
+    from afterlook.analysis.session import as_table
+
+    cases = as_table(fitted.cases)
+    target = str(cases.ids[cases.labels][0])
+    counts: Counter = Counter()
+    real = expressions.parse
+
+    def counting(text, *args, **kwargs):
+        counts[str(text).strip()] += 1
+        return real(text, *args, **kwargs)
+
+    with mock.patch.object(expressions, "parse", counting):
+        result = suggest(model, cases, train=fitted.fleet.train, case_ids=[target], top=3, shaping=False)
+    assert result.candidates
+    for text in ("2 * a + b", "sqrt(abs(c)) + d", "log(e + 100)"):
+        assert counts[text] == 0, (text, counts[text])
+    for c in result.candidates:  # a candidate: parsed in the exact pass, reused by its re-fit
+        assert counts[c.expression] == 1, (c.expression, counts[c.expression])
