@@ -77,6 +77,7 @@ def main() -> None:
     if args.quick:
         args.rows = min(args.rows, 20_000)
     from afterlook.core import candidates as cand
+    from afterlook.core.numbers import sample_rows
 
     train, miss = make_fleet(args.rows, args.columns)
     names = list(train.columns)
@@ -90,7 +91,7 @@ def main() -> None:
     best = np.inf
     for _ in range(3):
         t0 = time.perf_counter()
-        rows = cand.sample_rows(len(train), settings.sample_size, settings.random_state)
+        rows = sample_rows(len(train), settings.sample_size, settings.random_state)
         A = train.to_numpy(dtype=float)[rows]
         sample = {n: A[:, k] for k, n in enumerate(names)}
         found, tried, _ = cand.generate_and_screen(names, sample, t_row, None, settings, select=True)

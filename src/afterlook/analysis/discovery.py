@@ -15,6 +15,8 @@ import numpy as np
 from ..core import candidates as cand
 from ..core import expressions
 from ..core.errors import AfterlookError
+from ..core.numbers import sample_rows
+from ..core.recipe import free_name
 from ..core.gaussian import GaussianModel, added_column, with_added_column
 from ..core.thresholds import choose_threshold, confusion, flag
 from .fitting import refit
@@ -90,7 +92,7 @@ def suggest(model, cases, train=None, case_ids=None, top: int = 10, *,
 
     names = model.recipe.features
     A = _finite_rows(session.raw_features("normal"), names)
-    A = A[cand.sample_rows(A.shape[0], settings.sample_size, settings.random_state)]
+    A = A[sample_rows(A.shape[0], settings.sample_size, settings.random_state)]
     sample = {n: A[:, k] for k, n in enumerate(names)}
     raw_cases = session.raw_features("cases")
     C = np.column_stack([raw_cases[n] for n in names])
@@ -162,7 +164,7 @@ def _refit_head(session: Session, head: list, idx: list[int], progress) -> list[
         _report(progress, f"re-fitting {k + 1}/{len(head)}", 0.4 + 0.6 * k / max(len(head), 1))
         outcome = fast.evaluate(c.parsed or c.expression) if fast is not None else None
         if outcome is None:  # not expressible as an added column: full re-fit
-            recipe = model.recipe.with_derived([(_candidate_name(model.recipe.features), c.expression)])
+            recipe = model.recipe.with_derived([(free_name("candidate", model.recipe.features), c.expression)])
             try:
                 new = refit(model, recipe, session.training, table, quantiles=False)
             except AfterlookError as exc:
@@ -248,13 +250,6 @@ class AddedFeatureRefit:
         flagged = flag(ld, threshold)
         return threshold, flagged, confusion(flagged, self.labels)
 
-
-def _candidate_name(existing: list[str]) -> str:
-    name, k = "candidate", 1
-    while name in existing:
-        k += 1
-        name = f"candidate_{k}"
-    return name
 
 
 def _shaping_expressions(model: Model, sample: dict) -> dict[str, str]:

@@ -23,6 +23,7 @@ from ..core.gaussian import GaussianModel
 from ..core.recipe import FeatureMatrix, Recipe
 from ..core.thresholds import ThresholdPolicy, flag, parse_policy
 from ..store import model_file
+from ..store.columns import numeric_column
 
 
 @dataclass
@@ -191,13 +192,7 @@ class _FrameColumns(Mapping):
     def __getitem__(self, key):
         if key not in self.frame.columns:
             raise KeyError(key)
-        col = self.frame[key]
-        if isinstance(col, pd.DataFrame):
-            raise AfterlookError(f"column '{key}' appears more than once in the table")
-        try:
-            return pd.to_numeric(col, errors="raise").to_numpy(dtype=np.float64, na_value=np.nan)
-        except (ValueError, TypeError):
-            raise AfterlookError(f"column '{key}' is not numeric") from None
+        return numeric_column(self.frame, key)
 
     def __contains__(self, key):
         return key in self.frame.columns

@@ -46,7 +46,8 @@ import numpy as np
 import pandas as pd
 
 from ..core.errors import AfterlookError
-from ..core.numbers import finite_or_none as clean_number
+from ..core.histograms import range_counts
+from ..core.numbers import finite_or_none
 from ..core.thresholds import flag
 from ..store.atomic import check_writable
 from ..store.casebook_file import STATUSES, Casebook, CasebookConflict, check_status
@@ -236,8 +237,8 @@ def _deciding_feature(model: Model, pairs, before, after, tried, population) -> 
         deciding = {"name": ev.name, "expression": dict(model.recipe.derived).get(ev.name),
                     "why": "most negative contribution to the log-density"}
         source_model = model
-    deciding.update({"value": clean_number(ev.value), "z": clean_number(ev.z),
-                     "percentile": clean_number(ev.percentile)})
+    deciding.update({"value": finite_or_none(ev.value), "z": finite_or_none(ev.z),
+                     "percentile": finite_or_none(ev.percentile)})
     deciding["histogram"] = _histogram(source_model, ev.name, population)
     return deciding
 
@@ -257,11 +258,11 @@ def _most_negative(features):
 
 
 def _score_summary(result) -> dict:
-    ld = clean_number(result.log_density)
+    ld = finite_or_none(result.log_density)
     return {
         "log_density": ld,
-        "threshold": clean_number(result.threshold),
-        "margin": None if ld is None else clean_number(result.log_density - result.threshold),
+        "threshold": finite_or_none(result.threshold),
+        "margin": None if ld is None else finite_or_none(result.log_density - result.threshold),
         "flagged": bool(result.flagged),
     }
 
@@ -270,10 +271,10 @@ def _snapshot(model: Model, table, i: int) -> dict:
     frame = table.frame
     columns = {}
     for col in table.numeric_columns:
-        columns[str(col)] = clean_number(pd.to_numeric(frame[col].iloc[i], errors="coerce"))
+        columns[str(col)] = finite_or_none(pd.to_numeric(frame[col].iloc[i], errors="coerce"))
     row = frame.iloc[[i]]
     raw = model.recipe.raw_features(numeric_columns_of(row, model.recipe.required_columns()))
-    features = {name: clean_number(raw[name][0]) for name in model.features}
+    features = {name: finite_or_none(raw[name][0]) for name in model.features}
     return {"columns": columns, "features": features, "context": case_context(table, i)}
 
 
@@ -289,15 +290,14 @@ def _histogram(model: Model, feature: str, population) -> dict:
     else:
         values = model.quantiles[:, j]
         where = f"the model's quantile grid ({model.quantiles.shape[0]} points)"
-    values = values[np.isfinite(values)]
-    if values.size == 0:
+    counts, edges, n = range_counts(values, HISTOGRAM_BINS)
+    if n == 0:
         return {"edges": [], "counts": [], "bins": 0, "rows": 0, "population": where}
-    counts, edges = np.histogram(values, bins=HISTOGRAM_BINS)
     return {
         "edges": [float(e) for e in edges],
         "counts": [int(c) for c in counts],
         "bins": HISTOGRAM_BINS,
-        "rows": int(values.size),
+        "rows": n,
         "population": where,
     }
 
@@ -381,9 +381,9 @@ def check_casebook(book, model, cases) -> CheckResult:
             "case": cid,
             "status": entry.get("status"),
             "source": source,
-            "log_density": clean_number(ld),
+            "log_density": finite_or_none(ld),
             "threshold": model.threshold,
-            "margin": clean_number(ld - model.threshold),
+            "margin": finite_or_none(ld - model.threshold),
             "flagged": flagged,
             "expected_flagged": expected,
             "regressed": is_regressed,

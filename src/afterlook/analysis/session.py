@@ -27,6 +27,7 @@ import pandas as pd
 from ..core.errors import AfterlookError
 from ..core.recipe import parse_assignment
 from ..core.thresholds import Confusion, confusion, flag
+from ..store.columns import numeric_columns_of
 from ..store.tables import Table, load_table, sha256_file, table_from_frame
 from .model import Model, load_model
 
@@ -54,26 +55,6 @@ def as_model(model) -> Model:
     if not isinstance(model, Model):
         raise AfterlookError(f"expected an afterlook Model or a model file path, got {type(model).__name__}")
     return model
-
-
-def numeric_columns_of(frame: pd.DataFrame, names: Sequence[str]) -> dict[str, np.ndarray]:
-    """Columns ``names`` of ``frame`` as float64 arrays (missing values NaN).
-
-    Raises :class:`AfterlookError` naming the column when one is absent,
-    appears twice, or holds values that are not numbers.
-    """
-    out = {}
-    for name in names:
-        if name not in frame.columns:
-            raise AfterlookError(f"the table has no column '{name}', which the model uses")
-        col = frame[name]
-        if isinstance(col, pd.DataFrame):
-            raise AfterlookError(f"column '{name}' appears more than once in the table")
-        try:
-            out[name] = pd.to_numeric(col, errors="raise").to_numpy(dtype=np.float64, na_value=np.nan)
-        except (ValueError, TypeError):
-            raise AfterlookError(f"column '{name}' must be numeric for the model") from None
-    return out
 
 
 def table_name(table: Table | None) -> str:

@@ -26,7 +26,7 @@ import numpy as np
 from ..core import expressions
 from ..core.errors import AfterlookError
 from ..core.histograms import HistogramCounts, histogram_counts
-from ..core.recipe import apply_transform, parse_assignment
+from ..core.recipe import apply_transform, free_name, parse_assignment
 from ..core.thresholds import Confusion
 from ..store.tables import load_table
 from .discovery import SuggestResult, suggest
@@ -325,7 +325,7 @@ def check_expression(session: WorkbenchSession, text: str, taken: Sequence[str] 
     if sep and _NAME.match(name.strip()) and not expr.startswith("="):
         name, expr = parse_assignment(text, "expression")
     else:
-        name, expr = _free_name([*session.model.features, *taken]), text
+        name, expr = free_name(TYPED_NAME, [*session.model.features, *taken]), text
     parsed = expressions.parse(expr, known_columns=session.known_columns)
     numeric = set(session.cases.numeric_columns) | set(session.model.features)
     for col in parsed.columns:
@@ -335,12 +335,6 @@ def check_expression(session: WorkbenchSession, text: str, taken: Sequence[str] 
     return name, expr
 
 
-def _free_name(existing: Sequence[str]) -> str:
-    name, k = TYPED_NAME, 1
-    while name in existing:
-        k += 1
-        name = f"{TYPED_NAME}_{k}"
-    return name
 
 
 def try_candidate(session: WorkbenchSession, derive: dict[str, str], focus: Sequence[str] = ()) -> TryResult:

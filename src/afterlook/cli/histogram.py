@@ -1,6 +1,7 @@
 """Small ASCII histograms for the terminal, before and after a transform, side by side.
 
-Counts come from :func:`numpy.histogram`; Rich lays the two panels out.
+Counts come from :func:`afterlook.core.histograms.range_counts`, heights from
+:func:`afterlook.core.histograms.bar_heights` in half cells; Rich lays the two panels out.
 Only ASCII is drawn (``#`` a full cell, ``.`` half a cell) so the picture
 survives any terminal, a log file or a pasted issue. Two panels of
 :data:`PANEL_WIDTH` plus the gap fit in 80 columns.
@@ -10,13 +11,13 @@ from __future__ import annotations
 
 import math
 
-import numpy as np
 from rich.table import Table
 from rich.text import Text
 
+from ..core.histograms import bar_heights, range_counts
+
 PANEL_WIDTH = 36  # characters per panel; 2 * 36 + GAP <= 80
 GAP = 4
-BINS = PANEL_WIDTH - 2  # one character per bin, inside a one-character margin each side
 HEIGHT = 8  # rows of bars
 
 
@@ -34,18 +35,15 @@ def _fit(text: str, width: int) -> str:
 
 def histogram_panel(values, title: str, *, width: int = PANEL_WIDTH, height: int = HEIGHT) -> Text:
     """One histogram as ASCII text: title, ``height`` rows of bars, axis, min/max labels."""
-    x = np.asarray(values, dtype=np.float64)
-    x = x[np.isfinite(x)]
-    bins = max(4, width - 2)
+    bins = max(4, width - 2)  # one character per bin, inside a one-character margin each side
     out = Text(_fit(title, width), style="bold")
     out.append("\n")
-    if x.size == 0:
+    counts, edges, n = range_counts(values, bins)
+    if n == 0:
         out.append("(no finite values)".ljust(width), style="dim")
         return out
-    counts, edges = np.histogram(x, bins=bins)
-    top = counts.max()
     # Heights in half cells, so a bin that is a sliver of the tallest still shows.
-    halves = np.where(counts > 0, np.maximum(1, np.rint(counts / top * 2 * height)), 0).astype(int)
+    halves = bar_heights(counts, height, steps=2)
     for row in range(height, 0, -1):
         line = []
         for h in halves:

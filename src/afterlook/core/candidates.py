@@ -70,6 +70,7 @@ import numpy as np
 
 from . import expressions
 from .errors import AfterlookError
+from .numbers import finite_or_none
 
 KINDS = ("ratio", "log_ratio", "standardized_difference", "product", "square_ratio", "shaped_difference")
 MAD_TO_SD = 1.4826  # consistency constant of the MAD for a normal distribution
@@ -193,13 +194,13 @@ class Candidate:
             "expression": self.expression,
             "kind": self.kind,
             "inputs": list(self.inputs),
-            "pair_correlation": _num(self.r),
-            "case_z": _num(self.case_z),
-            "case_z_by_case": {k: _num(v) for k, v in self.case_z_by_case.items()},
-            "first_pass_z": _num(self.first_pass_z),
-            "tail": _num(self.tail),
+            "pair_correlation": finite_or_none(self.r),
+            "case_z": finite_or_none(self.case_z),
+            "case_z_by_case": {k: finite_or_none(v) for k, v in self.case_z_by_case.items()},
+            "first_pass_z": finite_or_none(self.first_pass_z),
+            "tail": finite_or_none(self.tail),
             "tail_method": self.tail_method,
-            "adjusted_tail": _num(self.adjusted_tail),
+            "adjusted_tail": finite_or_none(self.adjusted_tail),
             "beyond_chance": bool(self.beyond_chance),
             "targets_exposed": int(self.targets_exposed),
             "other_anomalies_separated": int(self.other_anomalies_separated),
@@ -214,10 +215,6 @@ class Candidate:
 def _ident(text: str) -> str:
     out = "".join(ch if ch.isalnum() or ch == "_" else "_" for ch in text).strip("_")
     return out if out and not out[0].isdigit() else f"c_{out}"
-
-
-def _num(x):
-    return float(x) if x is not None and np.isfinite(x) else None
 
 
 # --------------------------------------------------------------------------
@@ -563,11 +560,3 @@ def second_pass(
         out.append(c)
     out.sort(key=lambda c: c.rank_key(settings.min_correlation))
     return out
-
-
-def sample_rows(n: int, size: int, random_state: int) -> np.ndarray:
-    """Seeded row indices of a sample without replacement (all rows when n <= size)."""
-    if n <= size:
-        return np.arange(n)
-    rng = np.random.default_rng(random_state)
-    return np.sort(rng.choice(n, size=size, replace=False))

@@ -28,6 +28,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from .gaussian import GaussianModel
+from .numbers import finite_or_none
 
 QUANTILE_POINTS = 1001
 
@@ -74,11 +75,11 @@ class FeatureEvidence:
     def to_dict(self) -> dict:
         return {
             "name": self.name,
-            "value": _clean(self.value),
-            "z": _clean(self.z),
-            "percentile": _clean(self.percentile),
-            "contribution": _clean(self.contribution),
-            "conditional_z": None if self.conditional_z is None else _clean(self.conditional_z),
+            "value": finite_or_none(self.value),
+            "z": finite_or_none(self.z),
+            "percentile": finite_or_none(self.percentile),
+            "contribution": finite_or_none(self.contribution),
+            "conditional_z": None if self.conditional_z is None else finite_or_none(self.conditional_z),
         }
 
 
@@ -113,6 +114,4 @@ def evidence(model: GaussianModel, x: np.ndarray, grid: np.ndarray | None = None
     return out
 
 
-def _clean(v: float) -> float | None:
-    """JSON has no NaN: non-finite numbers become null."""
-    return float(v) if v is not None and np.isfinite(v) else None
+

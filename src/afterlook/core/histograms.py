@@ -39,7 +39,8 @@ DEFAULT_TAIL = 0.001
 #: Eighth-block glyphs give eight steps per character cell.
 STEPS_PER_CELL = 8
 
-__all__ = ["DEFAULT_TAIL", "STEPS_PER_CELL", "HistogramCounts", "shared_edges", "histogram_counts", "bar_heights"]
+__all__ = ["DEFAULT_TAIL", "STEPS_PER_CELL", "HistogramCounts", "shared_edges", "histogram_counts", "range_counts",
+           "bar_heights"]
 
 
 @dataclass(frozen=True)
@@ -169,6 +170,21 @@ def histogram_counts(normal, case_value: float, others=(), *, bins: int = 40,
         case_bin = -1
     return HistogramCounts(edges, normal_counts, n_below, n_above, normal_nonfinite, case_value, case_bin,
                            other_counts, o_below, o_above, others_nonfinite)
+
+
+def range_counts(values, bins: int) -> tuple[np.ndarray, np.ndarray, int]:
+    """Counts of the finite ``values`` on ``bins`` equal bins from their minimum to their maximum.
+
+    The plain binning (:func:`numpy.histogram` over the full range) of a
+    single population: the ``shape`` panels and a casebook entry's stored
+    histogram. Returns ``(counts, edges, n_finite)``; empty arrays when no
+    value is finite.
+    """
+    x, _ = _finite(values)
+    if x.size == 0:
+        return np.zeros(0, dtype=np.int64), np.zeros(0), 0
+    counts, edges = np.histogram(x, bins=int(bins))
+    return counts, edges, int(x.size)
 
 
 def bar_heights(counts, rows: int, steps: int = STEPS_PER_CELL) -> np.ndarray:

@@ -294,6 +294,15 @@ class Recipe:
             raise AfterlookError(f"model recipe is malformed ({exc})") from None
 
 
+def free_name(stem: str, existing) -> str:
+    """``stem``, or ``stem_2``, ``stem_3`` ... : the first that is not in ``existing``."""
+    name, k = stem, 1
+    while name in existing:
+        k += 1
+        name = f"{stem}_{k}"
+    return name
+
+
 def parse_assignment(text: str, what: str = "--derive") -> tuple[str, str]:
     """Split ``NAME=EXPR`` (the first '=' separates)."""
     name, sep, expr = str(text).partition("=")

@@ -79,6 +79,7 @@ import numpy as np
 from scipy import stats
 
 from .errors import AfterlookError
+from .numbers import finite_or_none, sample_rows
 from .expressions import quote_name
 from .recipe import Transform, apply_transform, parse_transform
 
@@ -199,16 +200,12 @@ class ShapeResult:
         return {
             "name": self.name,
             "transform": self.transform_text,
-            "skew_before": _json_float(self.skew_before),
-            "skew_after": _json_float(self.skew_after),
-            "normality_before": _json_float(self.normality_before),
-            "normality_after": _json_float(self.normality_after),
+            "skew_before": finite_or_none(self.skew_before),
+            "skew_after": finite_or_none(self.skew_after),
+            "normality_before": finite_or_none(self.normality_before),
+            "normality_after": finite_or_none(self.normality_after),
             "statistic": self.statistic,
         }
-
-
-def _json_float(x: float) -> float | None:
-    return float(x) if x is not None and math.isfinite(x) else None
 
 
 # --------------------------------------------------------------------------
@@ -340,11 +337,7 @@ def _expression_candidates(name: str, x_min: float, spread: float, is_count: boo
 
 
 def _sample(x: np.ndarray, sample_size: int, random_state) -> np.ndarray:
-    if x.size <= sample_size:
-        return x.copy()
-    rng = np.random.default_rng(random_state)
-    idx = np.sort(rng.choice(x.size, size=sample_size, replace=False))
-    return x[idx]
+    return x[sample_rows(x.size, sample_size, random_state)]
 
 
 def _left_alone(name: str, statistic: str, x: np.ndarray, n_nonfinite: int, note: str) -> ShapeResult:

@@ -47,7 +47,6 @@ import contextlib
 import copy
 import hashlib
 import json
-import math
 import os
 from datetime import datetime, timezone
 from pathlib import Path
@@ -328,9 +327,4 @@ def _folder_lock(folder: Path) -> Iterator[None]:
         os.close(fd)  # closing the descriptor releases the lock
 
 
-def clean_number(x) -> float | None:
-    """A float for JSON, or None for NaN/inf/None (JSON has no NaN)."""
-    if x is None:
-        return None
-    x = float(x)
-    return x if math.isfinite(x) else None
+
