@@ -670,7 +670,14 @@ def test_write_permission_denied_simulated(tmp_path, monkeypatch):
     def refuse(*args, **kwargs):
         raise PermissionError(13, "Permission denied")
 
-    monkeypatch.setattr(tables.tempfile, "mkstemp", refuse)
+    import afterlook.store.atomic as atomic
+
+    real_open = os.open
+
+    def refuse_temp(path, *args, **kwargs):  # only the temp file's creation is refused
+        return refuse() if str(path).endswith(".tmp") else real_open(path, *args, **kwargs)
+
+    monkeypatch.setattr(atomic.os, "open", refuse_temp)
     p = str(tmp_path / "out.csv")
     raises(lambda: write_table(pd.DataFrame({"x": [1]}), p), p, "permission denied")
 

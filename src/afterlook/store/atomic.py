@@ -13,6 +13,7 @@ import os
 import secrets
 import stat
 from pathlib import Path
+from typing import BinaryIO, Iterator
 
 from ..core.errors import AfterlookError
 
@@ -42,14 +43,23 @@ def write_bytes_atomic(path: str | os.PathLike, data: bytes) -> None:
 
 
 def _write_atomic(p: Path, data: bytes, *, mode_of: Path | None = None) -> None:
-    """Temp file in the same folder, fsync, ``os.replace``, fsync the folder.
+    """Write exact bytes atomically (the casebook's SHA-256 is its conflict check); see :func:`atomic_file`."""
+    with atomic_file(p, mode_of=mode_of) as fh:
+        fh.write(data)
 
-    Exact bytes (the casebook's SHA-256 is its conflict check), the folder
-    fsync and the file's permissions kept: the temp file is created
-    with mode 0666 minus the umask, like any new file, and takes the mode of
-    ``mode_of`` (default: the file it replaces) when that exists, so a book
-    shared with a team stays readable by it.
+
+@contextlib.contextmanager
+def atomic_file(p: Path, *, mode_of: Path | None = None) -> Iterator[BinaryIO]:
+    """A binary file handle whose contents replace ``p`` atomically when the block ends.
+
+    Temp file in the same folder, fsync, ``os.replace``, fsync the folder.
+    The temp file is created with mode 0666 minus the umask, like any new
+    file, and takes the mode of ``mode_of`` (default: the file it replaces)
+    when that exists, so a file shared with a team stays readable by it. An
+    exception inside the block removes the temp file and leaves ``p`` alone
+    (an OSError becomes an :class:`AfterlookError`; anything else propagates).
     """
+    p = Path(p)
     folder = p.parent if str(p.parent) else Path(".")
     tmp = None
     try:
@@ -64,10 +74,10 @@ def _write_atomic(p: Path, data: bytes, *, mode_of: Path | None = None) -> None:
         if fd is None:  # pragma: no cover - 100 random names all taken
             raise OSError(17, "could not create a temp file")
     except OSError as exc:
-        raise AfterlookError(f"cannot write {p}: {exc.strerror or exc}") from None
+        raise AfterlookError(f"cannot write {p}: {_reason(exc)}") from None
     try:
         with os.fdopen(fd, "wb") as fh:
-            fh.write(data)
+            yield fh
             fh.flush()
             os.fsync(fh.fileno())
         source = mode_of if mode_of is not None else p
@@ -76,11 +86,17 @@ def _write_atomic(p: Path, data: bytes, *, mode_of: Path | None = None) -> None:
         except FileNotFoundError:
             pass  # a new file: 0666 minus the umask, as created
         os.replace(tmp, p)
-    except OSError as exc:
+    except BaseException as exc:
         with contextlib.suppress(OSError):
             os.unlink(tmp)
-        raise AfterlookError(f"cannot write {p}: {exc.strerror or exc}; the previous file is unchanged") from None
+        if isinstance(exc, OSError):
+            raise AfterlookError(f"cannot write {p}: {_reason(exc)}; the previous file is unchanged") from None
+        raise
     _fsync_folder(folder)
+
+
+def _reason(exc: OSError) -> str:
+    return "permission denied" if isinstance(exc, PermissionError) else str(exc.strerror or exc)
 
 
 def _fsync_folder(folder: Path) -> None:

@@ -41,7 +41,6 @@ import difflib
 import hashlib
 import os
 import re
-import tempfile
 from collections.abc import Iterable, Iterator, Mapping
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -56,6 +55,7 @@ import pyarrow.csv as pacsv
 import pyarrow.parquet as pq
 
 from afterlook.core.errors import AfterlookError
+from afterlook.store.atomic import atomic_file
 
 __all__ = [
     "LABEL_VALUES",
@@ -695,22 +695,12 @@ def sha256_file(path: str | os.PathLike[str]) -> str:
 # --------------------------------------------------------------------------
 
 
-def _umask() -> int:
-    try:
-        with open("/proc/self/status", encoding="ascii") as fh:
-            for line in fh:
-                if line.startswith("Umask:"):
-                    return int(line.split()[1], 8)
-    except (OSError, ValueError, IndexError):
-        pass
-    return 0o022
-
-
 def write_table(frame: pd.DataFrame, path: str | os.PathLike[str]) -> None:
     """Write *frame* (without its index) as CSV, TSV or Parquet, by extension.
 
-    The file is written to a temporary file in the same folder, flushed to
-    disk and renamed over the target, so readers never see half a file.
+    Written through :func:`afterlook.store.atomic.atomic_file` (temp file in
+    the same folder, fsync, rename, fsync the folder), so readers never see
+    half a file.
     """
     try:
         name = _display(path)
@@ -744,14 +734,7 @@ def write_table(frame: pd.DataFrame, path: str | os.PathLike[str]) -> None:
         arrow = None  # CSV: fall back to pandas, which writes anything as text
 
     try:
-        existing_mode = os.stat(name).st_mode & 0o777 if os.path.exists(name) else None
-        fd, tmp = tempfile.mkstemp(dir=folder, prefix=f".{os.path.basename(name)}.", suffix=".tmp")
-    except PermissionError:
-        raise _fail(f"cannot write {name}: permission denied", _WRITE_TITLE) from None
-    except OSError as exc:
-        raise _fail(f"cannot write {name}: {exc.strerror or exc}", _WRITE_TITLE) from None
-    try:
-        with os.fdopen(fd, "wb") as fh:
+        with atomic_file(Path(name)) as fh:
             if kind == "parquet":
                 pq.write_table(arrow, fh)
             elif arrow is not None:
@@ -760,22 +743,10 @@ def write_table(frame: pd.DataFrame, path: str | os.PathLike[str]) -> None:
                 )
             else:
                 frame.to_csv(fh, index=False, sep=delimiter)
-            fh.flush()
-            os.fsync(fh.fileno())
-        os.chmod(tmp, existing_mode if existing_mode is not None else 0o666 & ~_umask())
-        os.replace(tmp, name)
-    except BaseException as exc:
-        try:
-            os.unlink(tmp)
-        except OSError:
-            pass
-        if isinstance(exc, PermissionError):
-            raise _fail(f"cannot write {name}: permission denied", _WRITE_TITLE) from None
-        if isinstance(exc, OSError):
-            raise _fail(f"cannot write {name}: {exc.strerror or exc}", _WRITE_TITLE) from None
-        if isinstance(exc, (pa.ArrowException, TypeError, ValueError)):
-            raise _fail(f"cannot write {name}: {_arrow_message(exc)}", _WRITE_TITLE) from None
-        raise
+    except AfterlookError as exc:
+        raise _fail(exc.message, _WRITE_TITLE) from None
+    except (pa.ArrowException, TypeError, ValueError) as exc:
+        raise _fail(f"cannot write {name}: {_arrow_message(exc)}", _WRITE_TITLE) from None
 
 
 def _first_unconvertible(frame: pd.DataFrame) -> str | None:
