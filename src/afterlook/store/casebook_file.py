@@ -54,6 +54,7 @@ from typing import Iterator
 
 from ..core.errors import AfterlookError
 from .atomic import _write_atomic, write_bytes_atomic  # noqa: F401 (re-exported)
+from .documents import check_document
 
 __all__ = [
     "FORMAT",
@@ -254,16 +255,8 @@ def parse_document(raw: bytes, p: Path) -> tuple[dict[str, dict], dict]:
             f"it was left as it is (a previous version may be in {backup_path(p).name})") from None
     except ValueError as exc:
         raise AfterlookError(f"casebook {p} is not valid JSON ({exc}); it was left as it is") from None
-    if not isinstance(doc, dict) or doc.get("format") != FORMAT:
-        raise AfterlookError(f"{p} is not an afterlook casebook (expected \"format\": \"{FORMAT}\")")
-    version = doc.get("version")
-    if not isinstance(version, int) or isinstance(version, bool):
-        raise AfterlookError(f"casebook {p} has no integer \"version\"")
-    if version > VERSION:
-        raise AfterlookError(
-            f"casebook {p} has version {version}; this afterlook reads version {VERSION} (upgrade afterlook)")
-    if version < 1:
-        raise AfterlookError(f"casebook {p} has unknown version {version}")
+    check_document(doc, format_name=FORMAT, version=VERSION, kind="casebook", path=p,
+                   expected="an afterlook casebook")
     items = doc.get("entries")
     if not isinstance(items, list):
         raise AfterlookError(f"casebook {p} has no \"entries\" list")

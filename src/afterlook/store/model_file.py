@@ -1,8 +1,10 @@
 """The model file: JSON with a format name and a schema version.
 
 ``{"format": "afterlook-model", "version": 1, ...}``. A file that is not
-JSON, names another format, lacks required keys or carries a newer major
-version is refused with one clear line; nothing is guessed.
+JSON, names another format, carries a newer major version or does not
+match ``schemas/afterlook-model.schema.json`` (the documented format) is
+refused with one clear line (:func:`afterlook.store.documents.check_document`);
+nothing is guessed.
 """
 
 from __future__ import annotations
@@ -13,10 +15,10 @@ from pathlib import Path
 
 from ..core.errors import AfterlookError
 from .atomic import write_bytes_atomic
+from .documents import check_document
 
 FORMAT = "afterlook-model"
 VERSION = 1
-REQUIRED_KEYS = ("recipe", "model", "threshold", "training")
 
 
 def read_model_document(path: str | os.PathLike) -> dict:
@@ -34,20 +36,8 @@ def read_model_document(path: str | os.PathLike) -> dict:
         doc = json.loads(raw.decode("utf-8"))
     except (UnicodeDecodeError, json.JSONDecodeError):
         raise AfterlookError(f"model file {p} is not JSON (is it a table or another file?)") from None
-    if not isinstance(doc, dict) or doc.get("format") != FORMAT:
-        raise AfterlookError(f"{p} is not an afterlook model file (expected \"format\": \"{FORMAT}\")")
-    version = doc.get("version")
-    if not isinstance(version, int) or isinstance(version, bool):
-        raise AfterlookError(f"model file {p} has no integer \"version\"")
-    if version > VERSION:
-        raise AfterlookError(
-            f"model file {p} has version {version}; this afterlook reads version {VERSION} (upgrade afterlook)"
-        )
-    if version < 1:
-        raise AfterlookError(f"model file {p} has unknown version {version}")
-    missing = [k for k in REQUIRED_KEYS if k not in doc]
-    if missing:
-        raise AfterlookError(f"model file {p} is missing key(s): {', '.join(missing)}")
+    check_document(doc, format_name=FORMAT, version=VERSION, kind="model file", path=p,
+                   expected="an afterlook model file")
     return doc
 
 
@@ -61,4 +51,5 @@ def write_json_atomic(doc: dict, path: str | os.PathLike, *, sort_keys: bool = F
 
 
 def write_model_document(doc: dict, path: str | os.PathLike) -> None:
+    """Write a model document atomically (insertion order, as :meth:`Model.to_dict` builds it)."""
     write_json_atomic(doc, path)
