@@ -155,10 +155,6 @@ class FeatureMatrix:
     def finite_rows(self) -> np.ndarray:
         return np.all(np.isfinite(self.values), axis=1)
 
-    @property
-    def n_nonfinite_rows(self) -> int:
-        return int((~self.finite_rows).sum())
-
     def column(self, name: str) -> np.ndarray:
         return self.values[:, self.names.index(name)]
 

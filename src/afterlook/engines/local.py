@@ -16,7 +16,7 @@ column; the robust fit and Ledoit-Wolf shrinkage need all rows in memory.
 from __future__ import annotations
 
 from dataclasses import dataclass, field
-from typing import Callable, Iterable, Iterator
+from typing import Callable, Iterable
 
 import numpy as np
 
@@ -139,11 +139,6 @@ def fit_local(path, recipe: Recipe, *, chunk_rows: int = 262_144, sample_size: i
     convert = raw_chunks_to_features(recipe, raw)
     result = stream(iter_numeric_chunks(path, raw, chunk_rows), convert, recipe.features, sample_size, random_state)
     return recipe, result
-
-
-def chunks_of(X: np.ndarray, rows: int) -> Iterator[np.ndarray]:
-    for start in range(0, X.shape[0], rows):
-        yield X[start:start + rows]
 
 
 def check_streamable(label_col: str | None, path) -> None:

@@ -181,12 +181,6 @@ class Casebook:
         self.entries[case] = new
         return new
 
-    def remove(self, case_id) -> dict:
-        """Take a case out of the book (returns its entry)."""
-        entry = self.get(case_id)
-        del self.entries[str(case_id)]
-        return entry
-
     # -- writing ---------------------------------------------------------
     def to_document(self) -> dict:
         doc = dict(self.extra)

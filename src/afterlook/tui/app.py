@@ -521,9 +521,6 @@ class WorkbenchApp(App[int]):
         except AfterlookError as exc:
             self.post_message(msg.WorkFailed("casebook", f"{exc.message}; entries are not marked"))
             return
-        except ImportError:
-            self.post_message(msg.WorkFailed("casebook", "the casebook store is not installed in this build"))
-            return
         except Exception as exc:
             self.post_message(msg.WorkFailed("casebook", _internal(exc)))
             return
@@ -542,11 +539,7 @@ class WorkbenchApp(App[int]):
         if self.saving:
             self.notify("still saving the previous entry", title="casebook", severity="warning")
             return
-        try:
-            statuses = wd.casebook_statuses()
-        except ImportError:
-            self.notify("the casebook store is not installed in this build", title="casebook", severity="error")
-            return
+        statuses = wd.casebook_statuses()
         derive = None
         status = "open"
         if self.trial is not None and self.trial_case == case and len(self.trial.derive) == 1:
