@@ -232,7 +232,7 @@ def make_calls(op: str, rows: int, path: str | None) -> tuple[dict, dict]:
     elif op == "chunks":
         import pandas as pd
 
-        from afterlook.store.tables import iter_numeric_chunks
+        from afterlook.store.table_stream import iter_numeric_chunks
 
         cols = column_names()
         calls = {

@@ -22,10 +22,10 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
 from afterlook.core.errors import AfterlookError
-from afterlook.store import tables
+from afterlook.store import table_write, tables
+from afterlook.store.table_stream import iter_numeric_chunks
 from afterlook.store.tables import (
     LABEL_VALUES,
-    iter_numeric_chunks,
     load_table,
     sha256_file,
     write_table,
@@ -690,7 +690,7 @@ def test_write_failure_leaves_old_file_and_no_temp(tmp_path, monkeypatch):
     def disk_full(*args, **kwargs):
         raise OSError(28, "No space left on device")
 
-    monkeypatch.setattr(tables.pq, "write_table", disk_full)
+    monkeypatch.setattr(table_write.pq, "write_table", disk_full)
     raises(lambda: write_table(pd.DataFrame({"x": [2.0]}), p), p, "No space left")
     assert open(p, "rb").read() == before
     assert sorted(os.listdir(tmp_path)) == ["out.parquet"]

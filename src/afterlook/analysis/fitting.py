@@ -213,7 +213,7 @@ def fit_streamed(
     """
     from ..engines import ENGINES
     from ..engines.local import SAMPLE_ROWS, check_streamable, fit_local
-    from ..store.tables import load_head
+    from ..store.table_stream import load_head
 
     if engine not in ENGINES or engine == "memory":
         raise AfterlookError(f"unknown engine '{engine}' for a streamed fit (choose: chunked, dask)")

@@ -70,13 +70,20 @@ import numpy as np
 
 from . import expressions
 from .errors import AfterlookError
+from .candidate_pairs import difference_and_product_groups, moments, ratio_groups, shaped_groups
 from .numbers import finite_or_none
+from .tails import (  # noqa: F401 - part of this module's interface
+    MAD_TO_SD,
+    MIN_EXCESSES,
+    MIN_TAIL_COUNT,
+    TAIL_FRACTION,
+    gpd_pwm,
+    gpd_tail,
+    robust_z,
+    tail_probability,
+)
 
 KINDS = ("ratio", "log_ratio", "standardized_difference", "product", "square_ratio", "shaped_difference")
-MAD_TO_SD = 1.4826  # consistency constant of the MAD for a normal distribution
-MIN_TAIL_COUNT = 1  # any normal row as extreme as the target: no extrapolation
-TAIL_FRACTION = 0.05  # share of rows in the generalized Pareto tail fit
-MIN_EXCESSES = 50  # at least this many excesses in the tail fit
 CHANCE_LEVEL = 0.05
 TAIL_TIERS = (1e-6, 1e-3, CHANCE_LEVEL)  # ranking tiers of the adjusted tail
 
@@ -218,112 +225,8 @@ def _ident(text: str) -> str:
 
 
 # --------------------------------------------------------------------------
-# Generalized Pareto tail (probability-weighted moments)
-# --------------------------------------------------------------------------
-
-
-def gpd_pwm(excess: np.ndarray) -> tuple[float, float]:
-    """Shape ``xi`` and scale ``sigma`` of a generalized Pareto fit to excesses.
-
-    Probability-weighted moments (Hosking and Wallis 1987): with the sorted
-    excesses ``y_(1) <= ... <= y_(n)`` and plotting positions
-    ``p_j = (j - 0.35) / n``, ``a0 = mean(y)``, ``a1 = mean((1 - p_j) y_(j))``,
-    their shape ``k = a0 / (a0 - 2 a1) - 2`` and scale
-    ``alpha = 2 a0 a1 / (a0 - 2 a1)``; here ``xi = -k`` (scipy's ``c``).
-    """
-    y = np.sort(np.asarray(excess, dtype=np.float64))
-    n = y.size
-    if n < 5 or not np.any(y > 0):
-        return 0.0, float(max(y.mean() if n else 1.0, 1e-12))
-    p = (np.arange(1, n + 1) - 0.35) / n
-    a0 = y.mean()
-    a1 = np.mean((1.0 - p) * y)
-    denom = a0 - 2.0 * a1
-    if denom <= 0:
-        return 0.0, float(a0)
-    k = a0 / denom - 2.0
-    alpha = 2.0 * a0 * a1 / denom
-    return float(-k), float(alpha)
-
-
-def gpd_tail(abs_dev: np.ndarray, target_dev: float, fraction: float = TAIL_FRACTION) -> float:
-    """P(|V - med| >= target_dev) extrapolated with a generalized Pareto tail.
-
-    The shape is clamped at ``>= 0`` (an exponential tail at the thinnest),
-    so light tails are never extrapolated as bounded.
-    """
-    d = np.sort(np.asarray(abs_dev, dtype=np.float64))
-    n = d.size
-    n_tail = max(MIN_EXCESSES, int(math.ceil(fraction * n)))
-    n_tail = min(n_tail, n - 1)
-    u = d[n - n_tail - 1]
-    excess = d[n - n_tail:] - u
-    xi, sigma = gpd_pwm(excess)
-    if sigma <= 0:
-        return 1.0 / (n + 1)
-    x = max(target_dev - u, 0.0)
-    if xi < 1e-9:
-        xi, sigma = 0.0, float(excess.mean()) if excess.mean() > 0 else sigma
-        sf = math.exp(-x / sigma)
-    else:
-        sf = (1.0 + xi * x / sigma) ** (-1.0 / xi)
-    return float((n_tail / n) * sf)
-
-
-def tail_probability(values: np.ndarray, target: float) -> tuple[float, str, int]:
-    """Two-sided tail of ``target`` among normal ``values`` (see module docstring).
-
-    Returns ``(tail, method, count)`` with ``count`` the normal rows at least
-    as extreme.
-    """
-    med = np.median(values)
-    dev = np.abs(values - med)
-    t = abs(target - med)
-    count = int(np.sum(dev >= t))
-    n = values.size
-    if count >= MIN_TAIL_COUNT:
-        return (count + 1) / (n + 1), "empirical", count
-    return gpd_tail(dev, t), "pareto tail", count
-
-
-def robust_z(values: np.ndarray, target: np.ndarray | float) -> np.ndarray:
-    """``(t - median) / (1.4826 MAD)``; falls back to the sd when the MAD is 0."""
-    med = np.median(values)
-    mad = MAD_TO_SD * np.median(np.abs(values - med))
-    if not mad > 0:
-        mad = values.std()
-    if not mad > 0:
-        return np.full(np.shape(target), np.nan)
-    return (np.asarray(target) - med) / mad
-
-
-# --------------------------------------------------------------------------
 # Candidate generation and the moment pass
 # --------------------------------------------------------------------------
-
-
-@dataclass
-class _Group:
-    kind: str
-    i: np.ndarray
-    j: np.ndarray
-    mean: np.ndarray
-    var: np.ndarray
-    target: np.ndarray  # (n_targets, n_in_group)
-    texts: object  # list of str, or a callable k -> str (built only when needed)
-
-    def text(self, k: int) -> str:
-        return self.texts(k) if callable(self.texts) else self.texts[k]
-
-
-def _fmt(x: float) -> str:
-    return f"{x:.6g}"
-
-
-def _std_expr(name: str, mean: float, sd: float) -> str:
-    q = expressions.quote_name(name)
-    sign = "-" if mean >= 0 else "+"
-    return f"({q} {sign} {_fmt(abs(mean))}) / {_fmt(sd)}"
 
 
 def generate_and_screen(
@@ -350,123 +253,18 @@ def generate_and_screen(
     -------
     (candidates, n_tried, correlation matrix)
     """
-    A = np.column_stack([np.asarray(sample[n], dtype=np.float64) for n in names])
-    T = np.atleast_2d(np.asarray(targets, dtype=np.float64))
-    n, d = A.shape
-    if n < 30:
-        raise AfterlookError(f"the candidate search needs at least 30 normal rows, got {n}")
-    mu = A.mean(axis=0)
-    Ac = A - mu
-    C = Ac.T @ Ac / n
-    del Ac
-    sd = np.sqrt(np.clip(np.diag(C), 0, None))
-    ok = sd > 0
-    with np.errstate(invalid="ignore", divide="ignore"):
-        R = C / np.outer(sd, sd)
-    R[~np.isfinite(R)] = 0.0
-    positive = np.all(A > 0, axis=0) & np.all(T > 0, axis=0) & ok
-    iu, ju = np.triu_indices(d, k=1)
-    keep = ok[iu] & ok[ju]
-    iu, ju = iu[keep], ju[keep]
-    groups: list[_Group] = []
-    q = [expressions.quote_name(x) for x in names]
-
-    def add(kind, i, j, mean, var, target, texts):
-        if len(i):
-            groups.append(_Group(kind, i, j, mean, var, target, texts))
-
-    # standardized difference / sum: mean 0, var 2 - 2|r|
-    r = R[iu, ju]
-    sgn = np.where(r >= 0, -1.0, 1.0)
-    Z_t = (T - mu) / np.where(ok, sd, 1.0)
-    add("standardized_difference", iu, ju, np.zeros(len(iu)), 2.0 - 2.0 * np.abs(r),
-        Z_t[:, iu] + sgn * Z_t[:, ju],
-        lambda k, iu=iu, ju=ju, sgn=sgn: (
-            f"{_std_expr(names[iu[k]], mu[iu[k]], sd[iu[k]])} {'-' if sgn[k] < 0 else '+'} "
-            f"{_std_expr(names[ju[k]], mu[ju[k]], sd[ju[k]])}"))
-
-    # product: E[ab], E[a^2 b^2] from two Gram matrices (columns scaled for range)
-    scale = np.where(ok, np.sqrt(np.mean(A**2, axis=0)), 1.0)
-    As = A / scale
-    G1 = As.T @ As / n
-    A2 = As**2
-    G2 = A2.T @ A2 / n
-    s2 = scale[iu] * scale[ju]
-    add("product", iu, ju, G1[iu, ju] * s2, (G2[iu, ju] - G1[iu, ju] ** 2) * s2**2,
-        T[:, iu] * T[:, ju], lambda k, iu=iu, ju=ju: f"{q[iu[k]]} * {q[ju[k]]}")
-
-    # ratios and log ratio need both columns positive; a square ratio only
-    # needs a positive divisor (the numerator is squared).
-    P = np.flatnonzero(positive)
-    if len(P):
-        inv = 1.0 / As[:, P]
-        pos_index = {c: k for k, c in enumerate(P)}
-        A2s = As**2
-        S1 = A2s.T @ inv / n  # E[a^2 / b] (scaled), every numerator, positive divisors
-        S2 = (A2s**2).T @ (inv**2) / n  # E[a^4 / b^2]
-        for a_, b_ in ((iu, ju), (ju, iu)):
-            keep_sq = positive[b_]
-            x_, y_ = a_[keep_sq], b_[keep_sq]
-            if len(x_):
-                iy = np.array([pos_index[y] for y in y_])
-                g = scale[x_] ** 2 / scale[y_]
-                add("square_ratio", x_, y_, S1[x_, iy] * g, (S2[x_, iy] - S1[x_, iy] ** 2) * g**2,
-                    T[:, x_] ** 2 / T[:, y_], lambda k, x_=x_, y_=y_: f"{q[x_[k]]} ** 2 / {q[y_[k]]}")
-    pmask = positive[iu] & positive[ju]
-    pi, pj = iu[pmask], ju[pmask]
-    if len(pi):
-        Ap = As[:, P]
-        a_idx = np.array([pos_index[x] for x in pi])
-        b_idx = np.array([pos_index[x] for x in pj])
-        M1 = Ap.T @ inv / n  # E[a / b] (scaled)
-        M2 = (Ap**2).T @ (inv**2) / n  # E[(a / b)^2]
-        sc = scale[P]
-        for a_, b_, ia, ib in ((pi, pj, a_idx, b_idx), (pj, pi, b_idx, a_idx)):
-            f = sc[ia] / sc[ib]
-            add("ratio", a_, b_, M1[ia, ib] * f, (M2[ia, ib] - M1[ia, ib] ** 2) * f**2,
-                T[:, a_] / T[:, b_], lambda k, a_=a_, b_=b_: f"{q[a_[k]]} / {q[b_[k]]}")
-        L = np.log(A[:, P])
-        Lmu = L.mean(axis=0)
-        LC = np.cov(L, rowvar=False, bias=True) if len(P) > 1 else np.zeros((1, 1))
-        LT = np.log(T[:, P])
-        add("log_ratio", pi, pj, Lmu[a_idx] - Lmu[b_idx],
-            LC[a_idx, a_idx] + LC[b_idx, b_idx] - 2 * LC[a_idx, b_idx],
-            LT[:, a_idx] - LT[:, b_idx], lambda k, pi=pi, pj=pj: f"log({q[pi[k]]} / {q[pj[k]]})")
-
-    # shaped columns: standardized difference of the transformed columns
+    m = moments(names, sample, targets)
+    groups: list = []
+    difference_and_product_groups(m, groups)
+    ratio_groups(m, groups)
     if shaped:
-        env_names = [x for x in names if x in shaped]
-        if env_names:
-            sh_cols = {}
-            sh_t = {}
-            for x in env_names:
-                expr = expressions.parse(shaped[x])
-                v = expr.evaluate({x: sample[x]})
-                tv = expr.evaluate({x: T[:, names.index(x)]})
-                if np.all(np.isfinite(v)) and np.all(np.isfinite(tv)) and v.std() > 0:
-                    sh_cols[x], sh_t[x] = v, tv
-            texts, ii, jj, means, vars_, tg = [], [], [], [], [], []
-            cols = {x: (sh_cols[x] if x in sh_cols else A[:, names.index(x)]) for x in names}
-            tcols = {x: (sh_t[x] if x in sh_t else T[:, names.index(x)]) for x in names}
-            for a, b in zip(iu, ju):
-                na, nb = names[a], names[b]
-                if na not in sh_cols and nb not in sh_cols:
-                    continue
-                va, vb = cols[na], cols[nb]
-                ma, sa, mb, sb = va.mean(), va.std(), vb.mean(), vb.std()
-                rr = float(np.mean((va - ma) * (vb - mb)) / (sa * sb))
-                s = -1.0 if rr >= 0 else 1.0
-                ea = shaped[na] if na in sh_cols else q[a]
-                eb = shaped[nb] if nb in sh_cols else q[b]
-                texts.append(f"(({ea}) - {_fmt(ma)}) / {_fmt(sa)} {'-' if s < 0 else '+'} (({eb}) - {_fmt(mb)}) / {_fmt(sb)}")
-                ii.append(a); jj.append(b); means.append(0.0); vars_.append(2.0 - 2.0 * abs(rr))
-                tg.append((tcols[na] - ma) / sa + s * (tcols[nb] - mb) / sb)
-            if ii:
-                add("shaped_difference", np.array(ii), np.array(jj), np.array(means), np.array(vars_),
-                    np.column_stack(tg), texts)
+        shaped_groups(m, sample, shaped, groups)
+    return _first_pass(m, groups, settings, select)
 
-    # Collect every candidate's first-pass z as arrays; build Candidate
-    # objects (and their text) only for the ones kept.
+
+def _first_pass(m, groups: list, settings: Settings, select: bool) -> tuple[list[Candidate], int, np.ndarray]:
+    """Every candidate's first-pass z (median over targets); Candidate objects only for the ones kept."""
+    R = m.R
     zs, gid, kid = [], [], []
     for g_index, g in enumerate(groups):
         with np.errstate(invalid="ignore", divide="ignore"):
@@ -481,15 +279,12 @@ def generate_and_screen(
     z_all, g_all, k_all = np.concatenate(zs), np.concatenate(gid), np.concatenate(kid)
     r_all = np.array([R[groups[g].i[k], groups[g].j[k]] for g, k in zip(g_all, k_all)]) if len(z_all) else np.zeros(0)
     n_tried = int(len(z_all))
-    if select:
-        keep = _select(z_all, r_all, settings)
-    else:
-        keep = np.arange(n_tried)
+    keep = _select(z_all, r_all, settings) if select else np.arange(n_tried)
     candidates = []
     for idx in keep:
         g = groups[g_all[idx]]
         k = int(k_all[idx])
-        candidates.append(Candidate(g.text(k), g.kind, (names[g.i[k]], names[g.j[k]]),
+        candidates.append(Candidate(g.text(k), g.kind, (m.names[g.i[k]], m.names[g.j[k]]),
                                     float(r_all[idx]), first_pass_z=float(z_all[idx])))
     return candidates, n_tried, R
 

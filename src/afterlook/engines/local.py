@@ -129,7 +129,7 @@ def stream(chunks: Iterable[np.ndarray], convert, names, sample_size, random_sta
 def fit_local(path, recipe: Recipe, *, chunk_rows: int = 262_144, sample_size: int = SAMPLE_ROWS,
               random_state: int = 0) -> tuple[Recipe, StreamedTraining]:
     """Two passes at most: one to fit lambdas on a sample (only when needed), one for the statistics."""
-    from ..store.tables import iter_numeric_chunks
+    from ..store.table_stream import iter_numeric_chunks
 
     raw = recipe.required_columns()
     identity = lambda chunk: chunk  # noqa: E731

@@ -1,0 +1,245 @@
+"""Reading a table without loading it whole: its head, and its numeric columns in chunks.
+
+Used by the streamed fits (:mod:`afterlook.engines`); the same format rules
+and one-line errors as :mod:`afterlook.store.tables`.
+"""
+
+from __future__ import annotations
+
+import difflib
+import os
+import re
+from collections.abc import Iterable, Iterator
+
+import numpy as np
+import pyarrow as pa
+import pyarrow.compute as pc
+import pyarrow.csv as pacsv
+import pyarrow.parquet as pq
+
+from afterlook.core.errors import AfterlookError
+from afterlook.store.table_files import (
+    _PARQUET_MAGIC,
+    _arrow_message,
+    _arrow_to_pandas,
+    _check_column_names,
+    _check_file,
+    _fail,
+    _format_of,
+    _looks_binary,
+    _quote_list,
+    _schema_names,
+    _short,
+    _tail_bytes,
+)
+from afterlook.store.tables import Table, _build_table
+
+__all__ = ["load_head", "iter_numeric_chunks"]
+
+
+# --------------------------------------------------------------------------
+# iter_numeric_chunks
+# --------------------------------------------------------------------------
+
+
+_CSV_CONVERSION = re.compile(r"In CSV column #(\d+):.*?invalid value '(.*?)'")
+
+
+def load_head(
+    path: str | os.PathLike[str],
+    rows: int = 2000,
+    *,
+    id_col: str | None = None,
+    label_col: str | None = None,
+) -> Table:
+    """The first ``rows`` rows of a table, with the rules of :func:`load_table`.
+
+    Used by the streamed fits to learn the columns (numeric, context, label)
+    of a file too large to load whole.
+    """
+    name, head, size = _check_file(path)
+    kind, delimiter, compressed = _format_of(name, head)
+    try:
+        if kind == "parquet":
+            if not head.startswith(_PARQUET_MAGIC) or size < 12 or _tail_bytes(name, 4) != _PARQUET_MAGIC:
+                raise _fail(f"cannot read {name}: the Parquet file is truncated or damaged")
+            pfile = pq.ParquetFile(name)
+            batch = next(pfile.iter_batches(batch_size=rows), None)
+            arrow = pa.Table.from_batches([batch]) if batch is not None else pfile.schema_arrow.empty_table()
+        else:
+            if not compressed and _looks_binary(head):
+                raise _fail(f"cannot read {name}: it looks like a binary file, not CSV text")
+            reader = pacsv.open_csv(name, read_options=pacsv.ReadOptions(block_size=1 << 20),
+                                    parse_options=pacsv.ParseOptions(delimiter=delimiter))
+            try:
+                batch = reader.read_next_batch()
+            except StopIteration:
+                batch = None
+            reader.close()
+            arrow = pa.Table.from_batches([batch]) if batch is not None else pa.table({})
+            arrow = arrow.slice(0, rows)
+    except AfterlookError:
+        raise
+    except (pa.ArrowException, OSError, ValueError) as exc:
+        raise _fail(f"cannot read {name}: {_arrow_message(exc)}") from None
+    if arrow.num_rows == 0:
+        raise _fail(f"{name} has a header but no rows")
+    _check_column_names(name, [str(n) for n in arrow.schema.names])
+    frame = _arrow_to_pandas(name, arrow, kind)
+    return _build_table(frame, name, id_col=id_col, label_col=label_col,
+                        require_labels=False, require_unique_ids=False)
+
+
+def iter_numeric_chunks(
+    path: str | os.PathLike[str],
+    columns: str | Iterable[str],
+    chunk_rows: int = 262_144,
+) -> Iterator[np.ndarray]:
+    """Yield float64 arrays of shape ``(<= chunk_rows, len(columns))``.
+
+    For files larger than memory: CSV is streamed with
+    ``pyarrow.csv.open_csv`` and Parquet with
+    ``pyarrow.parquet.ParquetFile.iter_batches``; every chunk but the last
+    has exactly ``chunk_rows`` rows. Missing values come back as NaN; a value
+    that is not a number is an error naming the column. The file and the
+    columns are checked before the first chunk is asked for.
+    """
+    if isinstance(columns, str):
+        columns = [columns]
+    columns = list(columns)
+    name, head, size = _check_file(path)
+    if not columns:
+        raise _fail(f"no columns asked for from {name}")
+    if len(set(columns)) != len(columns):
+        raise _fail(f"columns asked for from {name} repeat: {_quote_list(columns)}")
+    if isinstance(chunk_rows, bool) or not isinstance(chunk_rows, (int, np.integer)) or chunk_rows < 1:
+        raise _fail(f"chunk size for {name} must be a positive whole number of rows, got {_short(chunk_rows)}")
+    kind, delimiter, compressed = _format_of(name, head)
+    if kind == "parquet":
+        batches = _parquet_batches(name, head, size, columns, int(chunk_rows))
+    else:
+        batches = _csv_batches(name, head, delimiter, compressed, columns)
+    return _rechunk(name, batches, columns, int(chunk_rows))
+
+
+def _missing_columns(name: str, have: list[str], columns: list[str]) -> None:
+    _check_column_names(name, have)
+    missing = [c for c in columns if c not in have]
+    if missing:
+        hint = difflib.get_close_matches(str(missing[0]), have, n=1)
+        extra = f" (did you mean {hint[0]!r}?)" if hint else ""
+        raise _fail(f"{name} has no column {_quote_list(missing)}{extra}")
+
+
+def _csv_batches(
+    name: str, head: bytes, delimiter: str, compressed: bool, columns: list[str]
+) -> Iterator[pa.RecordBatch]:
+    if not compressed and b"\x00" in head:
+        raise _fail(f"cannot read {name}: it looks like a binary file, not CSV text")
+    parse = pacsv.ParseOptions(delimiter=delimiter)
+    read = pacsv.ReadOptions()
+    try:
+        probe = pacsv.open_csv(name, read_options=pacsv.ReadOptions(block_size=1 << 16), parse_options=parse)
+        have = _schema_names(name, probe.schema)
+        probe.close()
+    except (pa.ArrowException, OSError, ValueError) as exc:
+        if "Empty CSV file" in str(exc):
+            raise _fail(f"cannot read {name}: the file has no header line") from None
+        raise _fail(f"cannot read {name} as CSV: {_arrow_message(exc)}") from None
+    _missing_columns(name, have, columns)
+    convert = pacsv.ConvertOptions(include_columns=columns, column_types={c: pa.float64() for c in columns})
+    try:
+        reader = pacsv.open_csv(name, read_options=read, parse_options=parse, convert_options=convert)
+    except (pa.ArrowException, OSError, ValueError) as exc:
+        raise _fail(_csv_stream_message(name, exc, have)) from None
+
+    def gen() -> Iterator[pa.RecordBatch]:
+        try:
+            for batch in reader:
+                yield batch
+        except (pa.ArrowException, OSError, ValueError) as exc:
+            raise _fail(_csv_stream_message(name, exc, have)) from None
+        finally:
+            reader.close()
+
+    return gen()
+
+
+def _csv_stream_message(name: str, exc: BaseException, have: list[str]) -> str:
+    match = _CSV_CONVERSION.search(str(exc))
+    if match:
+        index = int(match.group(1))
+        col = have[index] if index < len(have) else f"#{index}"
+        return f"{name}: column {col!r} has a value that is not a number: {match.group(2)!r}"
+    return f"cannot read {name} as CSV: {_arrow_message(exc)}"
+
+
+def _parquet_batches(
+    name: str, head: bytes, size: int, columns: list[str], chunk_rows: int
+) -> Iterator[pa.RecordBatch]:
+    if not head.startswith(_PARQUET_MAGIC):
+        raise _fail(f"cannot read {name}: it is named like a Parquet file but is not one (no Parquet header)")
+    if size < 12 or _tail_bytes(name, 4) != _PARQUET_MAGIC:
+        raise _fail(f"cannot read {name}: the Parquet file is truncated or damaged (its footer is missing)")
+    try:
+        pfile = pq.ParquetFile(name)
+        schema = pfile.schema_arrow
+    except (pa.ArrowException, OSError, ValueError, TypeError, IndexError) as exc:
+        raise _fail(f"cannot read {name} as Parquet: {_arrow_message(exc)}") from None
+    have = _schema_names(name, schema)
+    _missing_columns(name, have, columns)
+    for col in columns:
+        typ = schema.field(col).type
+        if not (
+            pa.types.is_integer(typ)
+            or pa.types.is_floating(typ)
+            or pa.types.is_boolean(typ)
+            or pa.types.is_decimal(typ)
+            or pa.types.is_null(typ)
+        ):
+            raise _fail(f"{name}: column {col!r} is not numeric ({typ})")
+
+    def gen() -> Iterator[pa.RecordBatch]:
+        try:
+            yield from pfile.iter_batches(batch_size=chunk_rows, columns=columns)
+        except (pa.ArrowException, OSError, ValueError, TypeError, IndexError) as exc:
+            raise _fail(f"cannot read {name} as Parquet: {_arrow_message(exc)}") from None
+        finally:
+            pfile.close()
+
+    return gen()
+
+
+def _rechunk(
+    name: str, batches: Iterator[pa.RecordBatch], columns: list[str], chunk_rows: int
+) -> Iterator[np.ndarray]:
+    """Copy each batch's columns straight into a column-major chunk buffer
+    (one copy per value; chunks are Fortran-ordered)."""
+    d = len(columns)
+    buf = np.empty((chunk_rows, d), order="F")
+    fill = 0
+    total = 0
+    for batch in batches:
+        if batch.num_rows == 0:
+            continue
+        arrays = []
+        for col in columns:
+            a = batch.column(col)
+            arrays.append(a if a.type == pa.float64() else pc.cast(a, pa.float64()))
+        start = 0
+        while start < batch.num_rows:
+            take = min(chunk_rows - fill, batch.num_rows - start)
+            for j, a in enumerate(arrays):
+                buf[fill:fill + take, j] = a.slice(start, take).to_numpy(zero_copy_only=False)
+            fill += take
+            start += take
+            if fill == chunk_rows:
+                yield buf
+                total += fill
+                buf = np.empty((chunk_rows, d), order="F")
+                fill = 0
+    if fill:
+        yield buf[:fill]
+        total += fill
+    if total == 0:
+        raise _fail(f"{name} has a header but no rows")
