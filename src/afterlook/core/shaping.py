@@ -81,6 +81,15 @@ from scipy import stats
 from .errors import AfterlookError
 from .numbers import finite_or_none, sample_rows
 from .expressions import quote_name
+from .normality import (  # noqa: F401 - STATISTICS, STATISTIC_LABELS and normality are part of this interface
+    _CRITICAL_5PCT,
+    STATISTIC_LABELS,
+    STATISTICS,
+    _check_statistic,
+    _k2_pvalue,
+    _skew,
+    normality,
+)
 from .recipe import Transform, apply_transform, parse_transform
 
 __all__ = [
@@ -92,9 +101,6 @@ __all__ = [
     "normality",
     "shift_grid",
 ]
-
-STATISTICS = ("dagostino", "anderson")
-STATISTIC_LABELS = {"dagostino": "D'Agostino-Pearson K^2", "anderson": "Anderson-Darling A^2"}
 
 #: Powers tried as ``x ** p`` (1 is the identity and is tried as "none").
 POWERS = (-1.0, -0.5, -0.33, -0.25, -0.1, -0.05, 0.05, 0.1, 0.2, 0.25, 0.33, 0.5, 0.75)
@@ -117,10 +123,6 @@ TIE_REL = 0.05
 #: ... and in units of the statistic's 5 % critical value under normality.
 TIE_FLOOR_FRACTION = 1.0 / 3.0
 
-# 5 % critical values under normality: chi-squared(2) 95 % point for K^2;
-# for A^2 (mean and variance estimated) the large-sample value of the table in
-# scipy.stats.anderson (D'Agostino 1986), before its small-sample factor.
-_CRITICAL_5PCT = {"dagostino": float(stats.chi2.ppf(0.95, 2)), "anderson": 0.752}
 
 
 @dataclass(frozen=True)
@@ -206,46 +208,6 @@ class ShapeResult:
             "normality_after": finite_or_none(self.normality_after),
             "statistic": self.statistic,
         }
-
-
-# --------------------------------------------------------------------------
-# statistics
-# --------------------------------------------------------------------------
-
-
-def _check_statistic(statistic: str) -> str:
-    key = str(statistic).strip().lower().replace("-", "").replace("_", "")
-    aliases = {"dagostino": "dagostino", "k2": "dagostino", "normaltest": "dagostino",
-               "anderson": "anderson", "andersondarling": "anderson", "ad": "anderson"}
-    if key not in aliases:
-        raise AfterlookError(f"unknown normality statistic {statistic!r}; use one of: {', '.join(STATISTICS)}")
-    return aliases[key]
-
-
-def normality(values: np.ndarray, statistic: str = "dagostino") -> float:
-    """The normality statistic of a 1-D sample (lower = more Gaussian).
-
-    ``"dagostino"``: ``scipy.stats.normaltest(values).statistic``;
-    ``"anderson"``: ``scipy.stats.anderson(values, dist="norm").statistic``.
-    """
-    statistic = _check_statistic(statistic)
-    x = np.asarray(values, dtype=np.float64)
-    if statistic == "dagostino":
-        return float(stats.normaltest(x).statistic)
-    try:  # SciPy >= 1.17 asks for a p-value method; the statistic is the same either way
-        return float(stats.anderson(x, dist="norm", method="interpolate").statistic)
-    except TypeError:  # older SciPy: no ``method`` argument
-        with warnings.catch_warnings():
-            warnings.simplefilter("ignore")
-            return float(stats.anderson(x, dist="norm").statistic)
-
-
-def _k2_pvalue(x: np.ndarray) -> float:
-    return float(stats.normaltest(x).pvalue)
-
-
-def _skew(x: np.ndarray) -> float:
-    return float(stats.skew(x))
 
 
 # --------------------------------------------------------------------------
@@ -390,89 +352,21 @@ def search_transform(
     statistic = _check_statistic(statistic)
     if isinstance(sample_size, bool) or not isinstance(sample_size, (int, np.integer)) or sample_size < MIN_VALUES:
         raise AfterlookError(f"sample size must be a whole number of at least {MIN_VALUES}, got {sample_size!r}")
-    try:
-        raw = np.asarray(values, dtype=np.float64).ravel()
-    except (TypeError, ValueError):
-        raise AfterlookError(f"column '{name}' must be numeric to be shaped") from None
-    finite = np.isfinite(raw)
-    x_all = raw[finite]
-    n_nonfinite = int(raw.size - x_all.size)
+    x_all, n_nonfinite = _finite_values(values, name)
     if x_all.size < MIN_VALUES:
         return _left_alone(name, statistic, x_all, n_nonfinite,
                            f"only {x_all.size} finite value(s), need {MIN_VALUES}")
     if np.ptp(x_all) == 0:
         return _left_alone(name, statistic, x_all, n_nonfinite, "constant column")
-
     sample = _sample(x_all, int(sample_size), random_state)
     if np.ptp(sample) == 0:  # a nearly constant column whose sample happens to be constant
         return _left_alone(name, statistic, x_all, n_nonfinite, "constant on the sample")
-
-    x_min = float(x_all.min())
-    q75, q25 = np.percentile(x_all, [75, 25])
-    spread = float(q75 - q25) or float(np.std(x_all))
-    is_count = bool(x_min >= 0 and np.all(x_all == np.round(x_all)))
-
-    def score(after: np.ndarray) -> float | None:
-        if after.shape != sample.shape or not np.all(np.isfinite(after)) or np.ptp(after) == 0:
-            return None
-        with np.errstate(all="ignore"), warnings.catch_warnings():
-            warnings.simplefilter("ignore")  # precision-loss warnings on extreme transforms
-            s = normality(after, statistic)
-        return s if math.isfinite(s) else None
-
-    identity_stat = score(sample)
+    identity_stat = _score(sample, sample, statistic)
     if identity_stat is None:  # pragma: no cover - a varying finite sample always scores
         return _left_alone(name, statistic, x_all, n_nonfinite, "no normality statistic")
-    candidates = [TransformTried("none", None, 0, identity_stat)]
-    after_by_text: dict[str, np.ndarray] = {"none": sample}
 
-    specs: list[tuple[str, int]] = _expression_candidates(name, x_min, spread, is_count)
-    fitted = []
-    if x_min > 0:
-        fitted.append("boxcox")
-    fitted.append("yeojohnson")
-    for kind in fitted:
-        with np.errstate(all="ignore"), warnings.catch_warnings():
-            warnings.simplefilter("ignore")
-            try:
-                lam = float(stats.boxcox(sample)[1] if kind == "boxcox" else stats.yeojohnson(sample)[1])
-            except (ValueError, FloatingPointError, OverflowError):
-                continue
-        if math.isfinite(lam):
-            specs.append((f"{kind}({lam!r})", 3))
-
-    for text, complexity in specs:
-        t = parse_transform(name, text)
-        with np.errstate(all="ignore"):
-            after = apply_transform(t, name, sample)
-        s = score(after)
-        if s is None:
-            continue
-        candidates.append(TransformTried(text, t, complexity, s))
-        after_by_text[text] = after
-
-    best = min(candidates, key=lambda c: c.statistic)
-    critical = _CRITICAL_5PCT[statistic]
-    tie = max(TIE_REL * best.statistic, TIE_FLOOR_FRACTION * critical)
-    near = [c for c in candidates if c.statistic <= best.statistic + tie]
-    choice = min(near, key=lambda c: (c.complexity, c.statistic))
-
-    skew_before = _skew(sample)
-    p_before = _k2_pvalue(sample)
-    if abs(skew_before) < SYMMETRIC_SKEW and p_before >= NEAR_GAUSSIAN_P:
-        choice, reason = candidates[0], "near-Gaussian: left alone"
-    elif choice.transform is not None and (
-        identity_stat - choice.statistic < max(CLEAR_GAIN * identity_stat, critical)
-    ):
-        choice, reason = candidates[0], "no clear gain: left alone"
-    elif choice.transform is None:
-        reason = "no clear gain: left alone"
-    else:
-        side = "right-skewed" if skew_before > 0 else "left-skewed"
-        if abs(skew_before) < SYMMETRIC_SKEW:
-            side = "tails not Gaussian"
-        reason = f"{side}: transformed"
-
+    tried, after_by_text = _try_transforms(name, x_all, sample, statistic, identity_stat)
+    choice, reason = _choose(tried, sample, statistic)
     after = after_by_text[choice.description]
     skew_after = _skew(after)
     if choice.transform is not None and abs(skew_after) >= SYMMETRIC_SKEW:
@@ -481,20 +375,100 @@ def search_transform(
         name=name,
         transform=choice.transform,
         description=choice.description,
-        skew_before=skew_before,
+        skew_before=_skew(sample),
         skew_after=skew_after,
         normality_before=identity_stat,
         normality_after=choice.statistic,
         statistic=statistic,
-        pvalue_before=p_before,
+        pvalue_before=_k2_pvalue(sample),
         pvalue_after=_k2_pvalue(after),
         sample_before=sample,
         sample_after=after,
-        tried=[(c.description, c.statistic) for c in candidates],
+        tried=[(c.description, c.statistic) for c in tried],
         verdict=reason,
         n_values=int(x_all.size),
         n_nonfinite=n_nonfinite,
     )
+
+
+def _finite_values(values, name: str) -> tuple[np.ndarray, int]:
+    """The finite values of a column, and how many were not finite."""
+    try:
+        raw = np.asarray(values, dtype=np.float64).ravel()
+    except (TypeError, ValueError):
+        raise AfterlookError(f"column '{name}' must be numeric to be shaped") from None
+    x_all = raw[np.isfinite(raw)]
+    return x_all, int(raw.size - x_all.size)
+
+
+def _score(after: np.ndarray, sample: np.ndarray, statistic: str) -> float | None:
+    """The normality statistic of transformed values, or None when they are unusable."""
+    if after.shape != sample.shape or not np.all(np.isfinite(after)) or np.ptp(after) == 0:
+        return None
+    with np.errstate(all="ignore"), warnings.catch_warnings():
+        warnings.simplefilter("ignore")  # precision-loss warnings on extreme transforms
+        s = normality(after, statistic)
+    return s if math.isfinite(s) else None
+
+
+def _fitted_powers(sample: np.ndarray, x_min: float) -> list[tuple[str, int]]:
+    """Box-Cox (positive columns) and Yeo-Johnson with their maximum-likelihood lambdas on the sample."""
+    kinds = (["boxcox"] if x_min > 0 else []) + ["yeojohnson"]
+    out = []
+    for kind in kinds:
+        with np.errstate(all="ignore"), warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            try:
+                lam = float(stats.boxcox(sample)[1] if kind == "boxcox" else stats.yeojohnson(sample)[1])
+            except (ValueError, FloatingPointError, OverflowError):
+                continue
+        if math.isfinite(lam):
+            out.append((f"{kind}({lam!r})", 3))
+    return out
+
+
+def _try_transforms(name: str, x_all: np.ndarray, sample: np.ndarray, statistic: str,
+                    identity_stat: float) -> tuple[list[TransformTried], dict[str, np.ndarray]]:
+    """Every transform valid on the whole column, scored on the sample (the identity first)."""
+    x_min = float(x_all.min())
+    q75, q25 = np.percentile(x_all, [75, 25])
+    spread = float(q75 - q25) or float(np.std(x_all))
+    is_count = bool(x_min >= 0 and np.all(x_all == np.round(x_all)))
+    tried = [TransformTried("none", None, 0, identity_stat)]
+    after_by_text: dict[str, np.ndarray] = {"none": sample}
+    for text, complexity in _expression_candidates(name, x_min, spread, is_count) + _fitted_powers(sample, x_min):
+        t = parse_transform(name, text)
+        with np.errstate(all="ignore"):
+            after = apply_transform(t, name, sample)
+        s = _score(after, sample, statistic)
+        if s is None:
+            continue
+        tried.append(TransformTried(text, t, complexity, s))
+        after_by_text[text] = after
+    return tried, after_by_text
+
+
+def _choose(tried: list[TransformTried], sample: np.ndarray, statistic: str) -> tuple[TransformTried, str]:
+    """The selection rule of the module docstring: the simplest near-best, unless the gain is not clear."""
+    identity = tried[0]
+    best = min(tried, key=lambda c: c.statistic)
+    critical = _CRITICAL_5PCT[statistic]
+    tie = max(TIE_REL * best.statistic, TIE_FLOOR_FRACTION * critical)
+    near = [c for c in tried if c.statistic <= best.statistic + tie]
+    choice = min(near, key=lambda c: (c.complexity, c.statistic))
+    skew_before = _skew(sample)
+    if abs(skew_before) < SYMMETRIC_SKEW and _k2_pvalue(sample) >= NEAR_GAUSSIAN_P:
+        return identity, "near-Gaussian: left alone"
+    if choice.transform is not None and (
+        identity.statistic - choice.statistic < max(CLEAR_GAIN * identity.statistic, critical)
+    ):
+        return identity, "no clear gain: left alone"
+    if choice.transform is None:
+        return choice, "no clear gain: left alone"
+    side = "right-skewed" if skew_before > 0 else "left-skewed"
+    if abs(skew_before) < SYMMETRIC_SKEW:
+        side = "tails not Gaussian"
+    return choice, f"{side}: transformed"
 
 
 def shape_columns(
