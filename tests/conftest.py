@@ -1,6 +1,13 @@
-"""Fixtures shared by every test folder: the CLI runners and the one-JSON parser."""
+"""Fixtures shared by every test folder: the CLI runners, the one-JSON parser, the demo files.
+
+The demo (seed 7, the CLI's default) is generated and written once per test
+session; tests only read those files (a test that writes copies them first).
+"""
 
 from __future__ import annotations
+
+from dataclasses import dataclass
+from pathlib import Path
 
 import pytest
 
@@ -34,3 +41,32 @@ def one_json():
 def parse_json():
     """Same as ``one_json`` (the casebook tests' name for it)."""
     return _one_json
+
+
+DEMO_SEED = 7
+
+
+@dataclass(frozen=True)
+class DemoFiles:
+    folder: Path
+    train: Path
+    cases: Path
+    model: Path
+
+
+@pytest.fixture(scope="session")
+def demo_scenario():
+    """``afterlook.demo.generate(seed=7)``: the full-size invented fleet (frames and failure kinds)."""
+    from afterlook.demo import generate
+
+    return generate(seed=DEMO_SEED)
+
+
+@pytest.fixture(scope="session")
+def demo_written(tmp_path_factory) -> DemoFiles:
+    """``afterlook demo``'s three files (seed 7), written once per session; read only."""
+    from afterlook.cli.demo_command import write_demo
+
+    folder = tmp_path_factory.mktemp("demo_seed7")
+    train, cases, model = write_demo(folder, seed=DEMO_SEED)
+    return DemoFiles(folder, Path(train), Path(cases), Path(model))

@@ -20,7 +20,7 @@ import pandas as pd
 import pytest
 
 from afterlook import api
-from afterlook.demo import FEATURE_COLUMNS, generate
+from afterlook.demo import FEATURE_COLUMNS
 
 DERIVE = "head_per_amp=(discharge_bar - suction_bar) / motor_current_a"
 TRANSFORM = "hours_since_service=log1p(hours_since_service)"
@@ -43,9 +43,9 @@ def work(tmp_path_factory, demo_files) -> Path:
 
 
 @pytest.fixture(scope="module")
-def demo_kinds() -> dict:
+def demo_kinds(demo_scenario) -> dict:
     """Failure kind of every anomalous case of the full-size demo (seed 7, the CLI's default)."""
-    return generate(seed=7).kinds
+    return demo_scenario.kinds
 
 
 @pytest.fixture(scope="module")
