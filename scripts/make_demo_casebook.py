@@ -3,8 +3,10 @@
     .venv/bin/python scripts/make_demo_casebook.py [--out-dir casebooks] [--force]
 
 Seeded and deterministic: the same afterlook and the same libraries give the
-same bytes (``tests/casebook/test_demo_casebook.py`` regenerates the files
-and fails when the checked-in copies drift). The steps:
+same numbers, up to the last bits another machine may differ in
+(``tests/casebook/test_demo_casebook.py`` regenerates the files and fails
+when a number of the checked-in copies drifts beyond a relative 1e-9, or a
+word, count or fingerprint changes). The steps:
 
 1. write the demo (``afterlook demo``'s files, seed 7) into a temp folder;
 2. the worst miss is recorded ``explained`` with the first candidate that

@@ -1,16 +1,33 @@
-"""Fixtures shared by every test folder: the console-script runner and the one-JSON parser."""
+"""Fixtures shared by every test folder: the CLI runners, the one-JSON parser, the demo files.
+
+The demo (seed 7, the CLI's default) is generated and written once per test
+session; tests only read those files (a test that writes copies them first).
+"""
 
 from __future__ import annotations
+
+from dataclasses import dataclass
+from pathlib import Path
 
 import pytest
 
 from afterlook_cli_runner import one_json as _one_json
-from afterlook_cli_runner import run_cli_script
+from afterlook_cli_runner import run_cli_in_process, run_cli_script
 
 
 @pytest.fixture(scope="session")
 def run_cli():
-    """``run_cli(*args, cwd=None, env=None, timeout=300) -> (code, stdout, stderr)``."""
+    """``run_cli(*args, cwd=None, env=None, timeout=300) -> (code, stdout, stderr)``, in process.
+
+    Calls the CLI's own entry function with captured streams; use
+    ``run_script`` where the real console script must be started.
+    """
+    return run_cli_in_process
+
+
+@pytest.fixture(scope="session")
+def run_script():
+    """The real ``afterlook`` console script in a subprocess (smoke tests only: ~2 s each)."""
     return run_cli_script
 
 
@@ -24,3 +41,32 @@ def one_json():
 def parse_json():
     """Same as ``one_json`` (the casebook tests' name for it)."""
     return _one_json
+
+
+DEMO_SEED = 7
+
+
+@dataclass(frozen=True)
+class DemoFiles:
+    folder: Path
+    train: Path
+    cases: Path
+    model: Path
+
+
+@pytest.fixture(scope="session")
+def demo_scenario():
+    """``afterlook.demo.generate(seed=7)``: the full-size invented fleet (frames and failure kinds)."""
+    from afterlook.demo import generate
+
+    return generate(seed=DEMO_SEED)
+
+
+@pytest.fixture(scope="session")
+def demo_written(tmp_path_factory) -> DemoFiles:
+    """``afterlook demo``'s three files (seed 7), written once per session; read only."""
+    from afterlook.demo.writer import write_demo
+
+    folder = tmp_path_factory.mktemp("demo_seed7")
+    train, cases, model = write_demo(folder, seed=DEMO_SEED)
+    return DemoFiles(folder, Path(train), Path(cases), Path(model))

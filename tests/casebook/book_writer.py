@@ -2,6 +2,11 @@
 
     python book_writer.py BOOK
 
+Before every ``os.fsync`` and around every ``os.replace`` (the points where a
+save changes what is on disk) the writer prints ``at NAME`` and waits for a
+line on stdin, so the test decides exactly where each kill lands, whatever the
+machine's speed.
+
 Step ``k`` upserts :func:`step_entry` ``(k)``; the book after step ``k`` is
 therefore a function of ``k`` alone (:func:`expected_document`). The writer
 starts from the step found in the book on disk, so every run also opens the
@@ -15,6 +20,7 @@ file, and 50+ starts stay quick.
 
 from __future__ import annotations
 
+import os
 import sys
 import types
 from pathlib import Path
@@ -55,8 +61,33 @@ def last_step(book) -> int:
     return max((int(e.get("step", 0)) for e in book.entries.values()), default=0)
 
 
+def _checkpoint(name: str) -> None:
+    """Tell the test where the save is, then wait for its go-ahead (or its kill)."""
+    print(f"at {name}", flush=True)
+    if not sys.stdin.readline():  # the test closed our stdin: stop quietly
+        raise SystemExit(0)
+
+
+def install_checkpoints() -> None:
+    """Wrap the two calls through which a save changes the disk (the atomic writer uses both via ``os``)."""
+    real_fsync, real_replace = os.fsync, os.replace
+
+    def fsync(fd):
+        _checkpoint("fsync")
+        real_fsync(fd)
+
+    def replace(src, dst, **kwargs):
+        name = Path(dst).name
+        _checkpoint(f"replace {name}")
+        real_replace(src, dst, **kwargs)
+        _checkpoint(f"replaced {name}")
+
+    os.fsync, os.replace = fsync, replace
+
+
 def main(path: str) -> None:
     store = load_store()
+    install_checkpoints()
     book = store.Casebook.open(path)
     k = last_step(book)
     print(f"ready {k}", flush=True)

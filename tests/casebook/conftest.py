@@ -12,7 +12,6 @@ from pathlib import Path
 
 import pytest
 
-DEMO_SEED = 7
 
 
 def assert_one_line_error(code: int, stderr: str, expected_code: int = 2) -> str:
@@ -37,20 +36,17 @@ class Demo:
 
 
 @pytest.fixture(scope="session")
-def demo(tmp_path_factory) -> Demo:
+def demo(demo_written, demo_scenario) -> Demo:
     import afterlook
-    from afterlook.demo.writer import write_demo
-    from afterlook.demo import generate
     from afterlook.analysis.discovery import suggest
 
-    folder = tmp_path_factory.mktemp("casebook_demo")
-    train, cases, model_path = write_demo(folder, seed=DEMO_SEED)
+    folder, train, cases, model_path = demo_written.folder, demo_written.train, demo_written.cases, demo_written.model
     model = afterlook.load_model(model_path)
     table = afterlook.load_table(cases, require_labels=True)
     worst = afterlook.misses(model, table).misses[0].case
     found = suggest(model, table, train=afterlook.load_table(train), case_ids=[worst], top=5)
     best = next(c for c in found.candidates if c.beyond_chance)
-    return Demo(folder, train, cases, model_path, worst, best.name, best.expression, generate(seed=DEMO_SEED).kinds)
+    return Demo(folder, train, cases, model_path, worst, best.name, best.expression, demo_scenario.kinds)
 
 
 @pytest.fixture(scope="session")

@@ -194,6 +194,25 @@ def test_check_regresses_explained_cases_the_model_leaves_unflagged(demo, explai
     assert {d["case"]: d["regressed"] for d in old.details} == {demo.worst: True, bearing["case"]: False}
 
 
+def test_check_reads_entries_recorded_with_the_earlier_exact_fingerprint(demo, explained):
+    """Entries written before fingerprints were rounded carry the exact-JSON digest; check still matches them."""
+    import copy
+
+    from afterlook.core.fingerprint import exact_fingerprint
+    from afterlook.analysis.trial import try_features
+
+    model = afterlook.load_model(demo.model)
+    new = try_features(model, demo.cases, {demo.name: demo.expression}, train=demo.train).model
+    old_entry = copy.deepcopy(explained)
+    for key, m in (("model", model), ("model_after", new)):
+        old_entry[key]["fingerprint"] = exact_fingerprint(m.recipe.to_dict(), m.density.to_dict(), m.threshold)
+        assert old_entry[key]["fingerprint"] != m.fingerprint()
+    book = Casebook("unused.json")
+    book.upsert(old_entry)
+    assert {d["case"]: d["model_recorded"] for d in check_casebook(book, new, demo.cases).details} == {demo.worst: "after"}
+    assert {d["case"]: d["model_recorded"] for d in check_casebook(book, model, demo.cases).details} == {demo.worst: "before"}
+
+
 def test_check_scores_the_stored_snapshot_of_a_case_missing_from_the_table(demo, explained, bearing):
     from afterlook.analysis.trial import try_features
 

@@ -1,9 +1,10 @@
-"""Bad input through the real console script: exit code 2, one clear line, no traceback.
+"""Bad input through the CLI: exit code 2, one clear line, no traceback.
 
-Each scenario is one ``afterlook`` invocation. They are independent, so the
-module runs them all up front in a small thread pool (each subprocess pays
-about a second of imports) and every scenario is then checked in its own
-test, which keeps failures readable and the module fast.
+Each scenario is one ``afterlook`` invocation through the CLI's entry function
+(in process, captured streams). The module runs them all up front and every
+scenario is then checked in its own test, which keeps failures readable. A few
+scenarios also run through the real console script, so the subprocess view
+(exit code, one line on stderr, nothing on stdout) is checked as a shell sees it.
 """
 
 from __future__ import annotations
@@ -11,7 +12,6 @@ from __future__ import annotations
 import json
 import os
 import shutil
-from concurrent.futures import ThreadPoolExecutor
 from pathlib import Path
 
 import numpy as np
@@ -161,10 +161,20 @@ def results(bad_dir, demo_files, run_cli):
     dup_id = str(demo_files.cases_frame.loc[4, "id"])
     jobs = {name: argv for name, (argv, _) in BAD.items()}
     jobs.update({name: [dup_id if a == "@DUP_ID" else a for a in argv] for name, argv in GOOD.items()})
-    workers = min(8, (os.cpu_count() or 2) + 1)
-    with ThreadPoolExecutor(max_workers=workers) as pool:
-        futures = {name: pool.submit(run_cli, *argv, cwd=bad_dir) for name, argv in jobs.items()}
-        return {name: f.result() for name, f in futures.items()}
+    # one after another: the in-process runner changes the working folder and the streams
+    return {name: run_cli(*argv, cwd=bad_dir) for name, argv in jobs.items()}
+
+
+#: scenarios that also run through the real console script (smoke: ~2 s each)
+SCRIPT_SMOKE = ("missing_file", "model_not_json", "derive_import", "unknown_subcommand", "bad_limit")
+
+
+@pytest.mark.parametrize("name", SCRIPT_SMOKE)
+def test_the_console_script_gives_the_same_refusal(name, bad_dir, run_script, results):
+    argv, words = BAD[name]
+    script = run_script(*argv, cwd=bad_dir)
+    assert_bad_input(script, *words)
+    assert script == results[name]
 
 
 # --------------------------------------------------------------------------

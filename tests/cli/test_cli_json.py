@@ -1,7 +1,9 @@
-"""`--json` documents of the real console script, checked against the Python API.
+"""`--json` documents of the CLI, checked against the Python API.
 
-Like the bad-input module, the invocations are independent and run up front
-in a small thread pool; each test then checks one of them.
+Like the bad-input module, the invocations run up front through the CLI's
+entry function (in process, one after another: the runner changes the working
+folder and the streams); each test then checks one of them. ``python -m
+afterlook --help`` runs as a real subprocess.
 """
 
 from __future__ import annotations
@@ -9,10 +11,8 @@ from __future__ import annotations
 import hashlib
 import json
 import math
-import os
 import re
 import shutil
-from concurrent.futures import ThreadPoolExecutor
 from pathlib import Path
 
 import numpy as np
@@ -21,7 +21,7 @@ import pytest
 
 import afterlook
 from afterlook.analysis.session import scored_cases
-from afterlook.demo import FEATURE_COLUMNS, generate
+from afterlook.demo import FEATURE_COLUMNS
 
 DERIVE = "head_per_amp=(discharge_bar - suction_bar) / motor_current_a"
 TRANSFORM = "hours_since_service=log1p(hours_since_service)"
@@ -44,9 +44,9 @@ def work(tmp_path_factory, demo_files) -> Path:
 
 
 @pytest.fixture(scope="module")
-def demo_kinds() -> dict:
+def demo_kinds(demo_scenario) -> dict:
     """Failure kind of every anomalous case of the full-size demo (seed 7, the CLI's default)."""
-    return generate(seed=7).kinds
+    return demo_scenario.kinds
 
 
 @pytest.fixture(scope="module")
@@ -75,10 +75,7 @@ def runs(work, case_id, run_cli, run_module):
         "module_help": (run_module, ["--help"]),
         "fit_help": (run_cli, ["fit", "--help"]),
     }
-    workers = min(8, (os.cpu_count() or 2) + 1)
-    with ThreadPoolExecutor(max_workers=workers) as pool:
-        futures = {name: pool.submit(fn, *argv, cwd=work) for name, (fn, argv) in jobs.items()}
-        return {name: f.result() for name, f in futures.items()}
+    return {name: fn(*argv, cwd=work) for name, (fn, argv) in jobs.items()}
 
 
 def _ok_json(result, one_json):

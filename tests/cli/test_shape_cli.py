@@ -28,11 +28,9 @@ FEATURE_KEYS = {
 
 
 @pytest.fixture(scope="module")
-def demo_train(tmp_path_factory):
-    from afterlook.demo import generate
-
+def demo_train(tmp_path_factory, demo_scenario):
     folder = tmp_path_factory.mktemp("shape_demo")
-    frame = generate(seed=7).train
+    frame = demo_scenario.train
     path = folder / "train.csv"
     frame.to_csv(path, index=False)
     return path, frame

@@ -12,7 +12,6 @@ from pathlib import Path
 
 import pytest
 
-DEMO_SEED = 7
 
 
 @dataclass(frozen=True)
@@ -24,12 +23,8 @@ class Demo:
 
 
 @pytest.fixture(scope="session")
-def demo(tmp_path_factory) -> Demo:
-    from afterlook.demo.writer import write_demo
-
-    folder = tmp_path_factory.mktemp("workbench_demo")
-    train, cases, model = write_demo(folder, seed=DEMO_SEED)
-    return Demo(folder, Path(train), Path(cases), Path(model))
+def demo(demo_written) -> Demo:
+    return Demo(demo_written.folder, demo_written.train, demo_written.cases, demo_written.model)
 
 
 @pytest.fixture

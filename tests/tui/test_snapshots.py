@@ -75,18 +75,17 @@ def test_candidates_view(snap_compare, demo, tmp_path):
     assert snap_compare(make_app(demo, tmp_path), terminal_size=WIDE, run_before=run_before)
 
 
-def test_try_result_view(snap_compare, demo, tmp_path):
+def test_try_result_view(snap_compare, demo, tmp_path, wait_until):
     async def run_before(pilot):
         await pilot.pause()
         await pilot.press("t", *"amps_per_power = motor_current_a / hydraulic_power", "enter")
         await settle(pilot)
         assert pilot.app.trial_view is not None  # the picture must show a finished try
         # The panel scrolls the comparison into view once it is laid out; under
-        # load that can land a few frames later, so wait for it (bounded).
-        for _ in range(100):
-            if pilot.app.try_panel.scroll_offset.y > 0:
-                break
-            await pilot.pause(0.05)
+        # load that can land a few frames later. Wait for it (bounded), and fail
+        # with that reason rather than with an unexplained picture mismatch.
+        await wait_until(pilot, lambda: pilot.app.try_panel.scroll_offset.y > 0,
+                         what="the try panel scrolled to show the before/after comparison")
 
     assert snap_compare(make_app(demo, tmp_path), terminal_size=WIDE, run_before=run_before)
 

@@ -7,8 +7,6 @@ scoring call the pure functions in :mod:`afterlook.core`; only ``save`` and
 
 from __future__ import annotations
 
-import hashlib
-import json
 from dataclasses import dataclass, field
 from datetime import datetime, timezone
 from typing import Mapping
@@ -17,6 +15,7 @@ import numpy as np
 import pandas as pd
 
 from .._version import __version__
+from ..core import fingerprint as fingerprints
 from ..core.errors import AfterlookError
 from ..core.explain import QUANTILE_POINTS, quantile_grid
 from ..core.gaussian import GaussianModel
@@ -87,10 +86,21 @@ class Model:
         return out
 
     def fingerprint(self) -> str:
-        """SHA-256 of the recipe, parameters and threshold (first 16 hex digits)."""
-        doc = {"recipe": self.recipe.to_dict(), "model": self.density.to_dict(), "threshold": self.threshold}
-        text = json.dumps(doc, sort_keys=True, separators=(",", ":"))
-        return hashlib.sha256(text.encode()).hexdigest()[:16]
+        """16 hex digits that identify this fit on any machine (see :mod:`afterlook.core.fingerprint`).
+
+        Recipe text and kinds, the density's options, and the parameters and
+        threshold rounded to 8 significant digits: the same fit elsewhere gets
+        the same fingerprint, a refit on other data does not.
+        """
+        return fingerprints.fingerprint(self.recipe.to_dict(), self.density.to_dict(), self.threshold)
+
+    def has_fingerprint(self, recorded: str | None) -> bool:
+        """Whether ``recorded`` names this model: the current scheme, or the exact
+        scheme that casebook entries written by earlier releases carry."""
+        if not recorded:
+            return False
+        return recorded in (self.fingerprint(), fingerprints.exact_fingerprint(
+            self.recipe.to_dict(), self.density.to_dict(), self.threshold))
 
     # -- file ------------------------------------------------------------
     def to_dict(self) -> dict:

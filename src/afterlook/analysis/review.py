@@ -360,7 +360,6 @@ def check_casebook(book, model, cases) -> CheckResult:
     first_row: dict[str, int] = {}
     for k, cid in enumerate(table.ids):
         first_row.setdefault(str(cid), k)
-    fingerprint = model.fingerprint()
 
     details, regressed = [], []
     for cid in sorted(book.entries):
@@ -387,8 +386,8 @@ def check_casebook(book, model, cases) -> CheckResult:
             "flagged": flagged,
             "expected_flagged": expected,
             "regressed": is_regressed,
-            "model_recorded": ("after" if recorded[1] == fingerprint
-                               else "before" if recorded[0] == fingerprint else None),
+            "model_recorded": ("after" if model.has_fingerprint(recorded[1])
+                               else "before" if model.has_fingerprint(recorded[0]) else None),
         })
     return CheckResult(len(book.entries), regressed, details)
 

@@ -1,0 +1,90 @@
+"""One BLAS thread against the default, for afterlook's tall-skinny products, idle and loaded.
+
+    .venv/bin/python benchmarks/bench_blas_threads.py [--quick] [--rows 200000] [--cols 40]
+
+Each measurement runs in a *fresh process* (every CLI command is one, and the
+slow calls were worst there): it builds the matrix, then times the first
+``X.T @ X`` and the median and worst of the next 20, under
+``OPENBLAS_NUM_THREADS``/``OMP_NUM_THREADS`` = 1 and = the core count. The
+"loaded" rows keep every core busy with a spinning process meanwhile (a
+shared machine or CI runner). The reference is the library default (one
+thread per core); afterlook runs its own work with one thread
+(``afterlook.core.blas``).
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import multiprocessing
+import os
+import subprocess
+import sys
+import time
+
+CHILD = r"""
+import json, sys, time
+import numpy as np
+rows, cols = int(sys.argv[1]), int(sys.argv[2])
+X = np.random.default_rng(0).normal(size=(rows, cols))
+t = time.perf_counter(); X.T @ X; first = time.perf_counter() - t
+times = []
+for _ in range(20):
+    t = time.perf_counter(); X.T @ X; times.append(time.perf_counter() - t)
+times.sort()
+print(json.dumps({"first": first, "median": times[len(times) // 2], "worst": times[-1]}))
+"""
+
+
+def _spin(stop_at: float) -> None:
+    while time.time() < stop_at:
+        pass
+
+
+def measure(threads: int, rows: int, cols: int) -> dict:
+    env = dict(os.environ, OPENBLAS_NUM_THREADS=str(threads), OMP_NUM_THREADS=str(threads),
+               MKL_NUM_THREADS=str(threads))
+    out = subprocess.run([sys.executable, "-c", CHILD, str(rows), str(cols)], env=env, capture_output=True,
+                         text=True, check=True, timeout=600)
+    return json.loads(out.stdout)
+
+
+def main(argv=None) -> int:
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("--rows", type=int, default=200_000)
+    ap.add_argument("--cols", type=int, default=40)
+    ap.add_argument("--runs", type=int, default=3, help="fresh processes per setting")
+    ap.add_argument("--quick", action="store_true", help="50,000 rows, one process per setting")
+    args = ap.parse_args(argv)
+    if args.quick:
+        args.rows, args.runs = 50_000, 1
+    cores = os.cpu_count() or 2
+    print(f"X.T @ X, {args.rows:,} x {args.cols}, {cores} cores, {args.runs} fresh process(es) per setting")
+    print(f"{'load':7} {'threads':>7} {'first s':>9} {'median s':>9} {'worst s':>9}")
+    results = {}
+    for load in ("idle", "loaded"):
+        spinners = []
+        if load == "loaded":
+            stop = time.time() + 3600
+            spinners = [multiprocessing.Process(target=_spin, args=(stop,), daemon=True) for _ in range(cores)]
+            for p in spinners:
+                p.start()
+        try:
+            for threads in (1, cores):
+                runs = [measure(threads, args.rows, args.cols) for _ in range(args.runs)]
+                agg = {k: max(r[k] for r in runs) if k != "median" else sorted(r[k] for r in runs)[len(runs) // 2]
+                       for k in ("first", "median", "worst")}
+                results[(load, threads)] = agg
+                print(f"{load:7} {threads:>7} {agg['first']:>9.4f} {agg['median']:>9.4f} {agg['worst']:>9.4f}")
+        finally:
+            for p in spinners:
+                p.terminate()
+    for load in ("idle", "loaded"):
+        one, many = results[(load, 1)], results[(load, cores)]
+        print(f"{load}: default ({cores} threads) / one thread: median {many['median'] / one['median']:.1f}x, "
+              f"worst {many['worst'] / one['worst']:.1f}x, first call {many['first'] / one['first']:.1f}x")
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())
