@@ -206,6 +206,12 @@ def fit_fleet(fleet: Fleet) -> FittedFleet:
 
 
 @pytest.fixture(scope="session")
+def fleet_builder():
+    """``fleet_builder(kind, seed=0, **make_fleet_options) -> FittedFleet`` (not cached)."""
+    return lambda kind, seed=0, **options: fit_fleet(make_fleet(kind, seed, **options))
+
+
+@pytest.fixture(scope="session")
 def fleet_factory():
     """``fleet_factory(kind, seed=0, shift=None) -> FittedFleet`` (cached; treat as read-only)."""
     cache: dict = {}

@@ -52,7 +52,8 @@ def test_fast_refit_equals_full_refit(demo, kind, shrinkage, policy):
             # fast path must decline too (and the search then reports it).
             assert outcome is None, text
             continue
-        threshold, flagged, conf = outcome
+        threshold, flagged, conf = outcome.threshold, outcome.flagged, outcome.confusion
+        np.testing.assert_allclose(outcome.log_density, Session(full.model, cs).scored.log_density, rtol=1e-9, atol=1e-9)
         assert threshold == pytest.approx(full.threshold_after, rel=1e-9, abs=1e-9)
         assert conf == full.after, text
         ref_flagged = Session(full.model, cs).scored.flagged

@@ -13,6 +13,8 @@ from __future__ import annotations
 import pytest
 
 from afterlook.core.candidates import Candidate
+from afterlook.core.heldout import HeldOut
+from afterlook.core.thresholds import Confusion
 from afterlook.analysis.discovery import SuggestResult
 from afterlook.tui import create_app
 from afterlook.tui.messages import CandidatesReady
@@ -36,21 +38,29 @@ async def settle(pilot) -> None:
 
 
 def fixed_candidates(case_id: str) -> SuggestResult:
-    def c(expression, kind, inputs, z, tail, beyond, separated, fa, caught):
-        return Candidate(expression, kind, inputs, 0.9, case_z=z, adjusted_tail=tail, beyond_chance=beyond,
+    def held(gain, low, high, found):
+        return HeldOut("kfold", 5, 0.48, 0.48 + gain, gain, low, high, 0.01, 0.3, 0.3 + gain,
+                       Confusion(10, 4, 12, 200), Confusion(11, 4, 11, 200), found_in_folds=found, stability_folds=5)
+
+    def c(expression, kind, inputs, z, tail, beyond, separated, fa, caught, heldout=None):
+        cand = Candidate(expression, kind, inputs, 0.9, case_z=z, adjusted_tail=tail, beyond_chance=beyond,
                          other_anomalies_separated=separated, other_anomalies=59, false_alarms_added=fa,
-                         catches_targets=caught)
+                         catches_targets=caught, heldout=heldout)
+        cand.judge()
+        return cand
 
     return SuggestResult(
         cases=[case_id], tried=238, sample_rows=6000, training_source="train.csv", chance_level=0.05,
+        heldout_method="kfold", heldout_folds=5, beyond_chance_total=3,
         candidates=[
             c("motor_current_a / hydraulic_power", "ratio", ("motor_current_a", "hydraulic_power"),
-              10.4, 8.1e-10, True, 24, 2, 1),
+              10.4, 8.1e-10, True, 24, 2, 1, held(0.067, 0.01, 0.12, 4)),
             c("log(motor_current_a / hydraulic_power)", "log_ratio", ("motor_current_a", "hydraulic_power"),
-              8.4, 7.5e-9, True, 24, 8, 1),
-            c("motor_current_a / flow_m3h", "ratio", ("motor_current_a", "flow_m3h"), 6.8, 3.1e-6, True, 20, 5, 0),
+              8.4, 7.5e-9, True, 24, 8, 1, held(0.012, -0.02, 0.05, 3)),
             c("vibration_mm_s * bearing_temp_c", "product", ("vibration_mm_s", "bearing_temp_c"),
               2.1, 0.61, False, 3, None, None),
+            c("motor_current_a / flow_m3h", "ratio", ("motor_current_a", "flow_m3h"), 6.8, 3.1e-6, True, 20, 5, 0,
+              held(-0.031, -0.08, 0.01, 1)),
         ],
     )
 

@@ -297,9 +297,20 @@ def test_casebook_ids_and_save(demo, tmp_path):
 def test_candidate_verdict_words():
     from afterlook.core.candidates import Candidate
 
-    def c(beyond, fa):
-        return Candidate("a / b", "ratio", ("a", "b"), 0.5, beyond_chance=beyond, false_alarms_added=fa)
+    from afterlook.core.heldout import HeldOut
+    from afterlook.core.thresholds import Confusion
 
-    assert wd.candidate_verdict(c(True, 2)) == "finding"
-    assert wd.candidate_verdict(c(True, None)) == "finding (not re-fitted)"
-    assert wd.candidate_verdict(c(False, 0)) == "could be chance"
+    def c(beyond, fa, gain=None, low=None):
+        held = None if gain is None else HeldOut("kfold", 5, 0.5, 0.5 + gain, gain, low, gain, 0.01, 0.4, 0.5,
+                                                 Confusion(1, 1, 1, 1), Confusion(1, 1, 1, 1))
+        cand = Candidate("a / b", "ratio", ("a", "b"), 0.5, beyond_chance=beyond, false_alarms_added=fa, heldout=held)
+        cand.judge()
+        return cand
+
+    assert wd.candidate_verdict(c(True, 2, 0.05, 0.01)) == "holds up"
+    assert wd.candidate_verdict(c(True, 2, 0.05, -0.02)) == "exposes only"  # a fold lost
+    assert wd.candidate_verdict(c(True, None)) == "exposes only (not re-fitted)"
+    assert wd.candidate_verdict(c(True, 0)) == "exposes only (no held-out estimate)"
+    assert wd.candidate_verdict(c(False, 0, 0.05, 0.01)) == "could be chance"
+    assert wd.candidate_verdict(c(True, 0, -0.01, -0.03)) == "hurts"
+    assert wd.candidate_verdict(c(False, 0, -0.01, -0.03)) == "hurts"

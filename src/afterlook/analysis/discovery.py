@@ -9,12 +9,15 @@ alarms each adds.
 from __future__ import annotations
 
 from dataclasses import dataclass, field
+from typing import NamedTuple
 
 import numpy as np
 
 from ..core import candidates as cand
 from ..core import expressions
+from ..core.collinear import LinearSpan
 from ..core.errors import AfterlookError
+from ..core.heldout import DEFAULT_FOLDS, DEFAULT_SEED, flagged_rate, kfold_gain, stratified_folds
 from ..core.numbers import sample_rows
 from ..core.recipe import free_name
 from ..core.gaussian import GaussianModel, added_column, with_added_column
@@ -37,17 +40,42 @@ class SuggestResult:
     sample_rows: int
     chance_level: float
     warnings: list[str] = field(default_factory=list)
+    beyond_chance_total: int = 0  # candidates beyond chance among all exactly scored, listed or not
+    dropped_collinear: int = 0  # linear combinations of the model's features (cannot join a full model)
+    dropped_refit: int = 0  # candidates whose re-fit failed
+    heldout_method: str | None = None  # "kfold" when held-out gains were estimated
+    heldout_folds: int | None = None
 
     @property
     def any_beyond_chance(self) -> bool:
         return any(c.beyond_chance for c in self.candidates)
 
+    @property
+    def recommended(self) -> str | None:
+        """Name of the best ``holds-up`` candidate (the list is ranked), or None."""
+        return next((c.name for c in self.candidates if c.verdict == "holds-up"), None)
+
+    def recommended_reason(self) -> str:
+        if self.recommended is not None:
+            best = next(c for c in self.candidates if c.name == self.recommended)
+            return (f"{best.name} = {best.expression} is beyond chance and raised F1 on held-out cases in every "
+                    f"fold (gain {best.heldout.gain:+.3f})")
+        if not self.candidates:
+            return "no candidate could be evaluated"
+        if self.heldout_method is None:
+            return "held-out gains could not be estimated (too few labelled cases), so nothing is recommended"
+        if not any(c.beyond_chance for c in self.candidates):
+            return "no listed candidate beats chance"
+        return "no candidate that beats chance also raised F1 on held-out cases in every fold"
+
     def verdict(self) -> str:
         if not self.candidates:
             return "no candidate could be evaluated"
-        if self.any_beyond_chance:
-            n = sum(c.beyond_chance for c in self.candidates)
-            return f"{n} candidate(s) expose the case(s) beyond what chance explains over {self.tried} tried"
+        n = self.beyond_chance_total or sum(c.beyond_chance for c in self.candidates)
+        if n:
+            return (f"{n} of the {self.tried} candidates tried expose the case(s) beyond what chance explains"
+                    + (f" ({sum(c.beyond_chance for c in self.candidates)} listed)"
+                       if n != sum(c.beyond_chance for c in self.candidates) else ""))
         return (f"nothing beats chance: with {self.tried} candidates tried, the most extreme one is no more "
                 "extreme than luck alone would give; no candidate here is a finding")
 
@@ -59,7 +87,12 @@ class SuggestResult:
             "sample_rows": int(self.sample_rows),
             "chance_level": self.chance_level,
             "any_beyond_chance": self.any_beyond_chance,
+            "beyond_chance_total": int(self.beyond_chance_total),
             "verdict": self.verdict(),
+            "recommended": self.recommended,
+            "recommended_reason": self.recommended_reason(),
+            "heldout": {"method": self.heldout_method, "folds": self.heldout_folds},
+            "dropped": {"collinear": int(self.dropped_collinear), "refit_failed": int(self.dropped_refit)},
             "candidates": [c.to_dict() for c in self.candidates],
         }
 
@@ -109,16 +142,77 @@ def suggest(model, cases, train=None, case_ids=None, top: int = 10, *,
                      dtype=int)
     other_cols = {n: C[other, k] for k, n in enumerate(names)}
     other_is_miss = miss_mask[other] if len(other) else np.zeros(0, bool)
-    ranked = cand.second_pass(candidates, tried, sample, {n: T[:, k] for k, n in enumerate(names)},
-                              target_ids, other_cols, other_is_miss, settings)
+    target_cols = {n: T[:, k] for k, n in enumerate(names)}
+    ranked = cand.second_pass(candidates, tried, sample, target_cols, target_ids, other_cols, other_is_miss, settings)
+    ranked, dropped_collinear = _addable(model, sample, ranked)
+    if dropped_collinear:
+        warnings.append(f"left out {dropped_collinear} candidate(s) that are linear combinations of the model's "
+                        "features (a full covariance cannot take them)")
+    beyond_total = sum(c.beyond_chance for c in ranked)
 
     exact = top if exact is None else exact
-    head = ranked[: max(exact, 0)]
-    warnings += _refit_head(session, head, idx, progress)
-    head.sort(key=lambda c: c.rank_key(settings.min_correlation))
-    final = (head + ranked[len(head):])[:top]
+    folds = _folds(session, warnings)
+    head, failed, refit_warnings = _refit_head(session, ranked, max(exact, 0), idx, folds, progress)
+    warnings += refit_warnings
+    ranked = [c for c in ranked if id(c) not in failed]
+    for c in ranked:
+        c.judge()
+    ranked.sort(key=lambda c: c.rank_key(settings.min_correlation))
+    final = ranked[:top]
+    if folds is not None and len(idx) > 1:
+        _report(progress, "stability over folds", 0.95)
+        _stability(final, names, sample, C, idx, folds, shaped, settings, top)
     _report(progress, "done", 1.0)
-    return SuggestResult(target_ids, tried, final, training.source, A.shape[0], settings.chance_level, warnings)
+    return SuggestResult(target_ids, tried, final, training.source, A.shape[0], settings.chance_level, warnings,
+                         beyond_chance_total=beyond_total, dropped_collinear=dropped_collinear,
+                         dropped_refit=len(failed), heldout_method=None if folds is None else "kfold",
+                         heldout_folds=None if folds is None else int(folds.max()) + 1)
+
+
+def _addable(model: Model, sample: dict, ranked: list) -> tuple[list, int]:
+    """Drop the candidates a full-covariance model cannot take (affine in its features); count them."""
+    if model.density.kind != "full" or not ranked:
+        return ranked, 0
+    fm = model.recipe.transform_features(sample)
+    span = LinearSpan(fm.values)
+    keep = []
+    for c in ranked:
+        values = (c.parsed or expressions.parse(c.expression)).evaluate(sample)
+        if span.contains(values):
+            continue
+        keep.append(c)
+    return keep, len(ranked) - len(keep)
+
+
+def _folds(session: Session, warnings: list[str]):
+    """Stratified folds of the labelled cases for held-out gains, or None (with a warning) when too few."""
+    try:
+        return stratified_folds(session.labels, DEFAULT_FOLDS, DEFAULT_SEED)
+    except AfterlookError as exc:
+        warnings.append(f"no held-out gains: {exc.message}")
+        return None
+
+
+def _stability(final: list, names, sample, C, idx, folds, shaped, settings, top: int) -> None:
+    """In how many folds each listed candidate is found again (in the top ``top``) from the other folds' misses."""
+    listed = {c.expression for c in final}
+    found = dict.fromkeys(listed, 0)
+    searched = 0
+    for f in range(int(folds.max()) + 1):
+        keep = [i for i in idx if folds[i] != f]
+        if not keep:
+            continue
+        searched += 1
+        T = C[keep]
+        cands, tried, _ = cand.generate_and_screen(names, sample, T, shaped, settings, select=True)
+        again = cand.second_pass(cands, tried, sample, {n: T[:, k] for k, n in enumerate(names)},
+                                 [str(i) for i in keep], None, None, settings)
+        for c in again[:top]:
+            if c.expression in found:
+                found[c.expression] += 1
+    for c in final:
+        if c.heldout is not None:
+            c.heldout = c.heldout.with_stability(found[c.expression], searched)
 
 
 def checked_settings(settings: cand.Settings | None) -> cand.Settings:
@@ -154,28 +248,51 @@ def _finite_rows(raw: dict, names: list[str]) -> np.ndarray:
     return A[np.all(np.isfinite(A), axis=1)]
 
 
-def _refit_head(session: Session, head: list, idx: list[int], progress) -> list[str]:
-    """Third pass: an exact re-fit of each of ``head`` for the false alarms it adds."""
+def _refit_head(session: Session, ranked: list, exact: int, idx: list[int], folds, progress):
+    """Third pass: an exact re-fit of the best ``exact`` candidates, with false alarms and held-out gain.
+
+    Returns (the re-fitted candidates, ids of those whose re-fit failed, warnings).
+    A failed re-fit drops the candidate (it could not be added); the next one
+    takes its place, so ``exact`` candidates are re-fitted when there are enough.
+    """
     model, table = session.model, session.cases
-    warnings = []
-    base_conf = session.scored.confusion()
+    warnings, failed, done = [], set(), []
+    scored = session.scored
+    base_conf = scored.confusion()
+    labels = session.labels
+    rate = flagged_rate(scored.log_density, model.threshold, labels) if labels is not None else 0.0
     fast = AddedFeatureRefit.prepare(session)
-    for k, c in enumerate(head):
-        _report(progress, f"re-fitting {k + 1}/{len(head)}", 0.4 + 0.6 * k / max(len(head), 1))
+    for c in ranked:
+        if len(done) >= exact:
+            break
+        _report(progress, f"re-fitting {len(done) + 1}/{exact}", 0.4 + 0.5 * len(done) / max(exact, 1))
         outcome = fast.evaluate(c.parsed or c.expression) if fast is not None else None
         if outcome is None:  # not expressible as an added column: full re-fit
             recipe = model.recipe.with_derived([(free_name("candidate", model.recipe.features), c.expression)])
             try:
                 new = refit(model, recipe, session.training, table, quantiles=False)
             except AfterlookError as exc:
-                warnings.append(f"could not re-fit with {c.expression}: {exc.message}")
+                failed.add(id(c))
+                warnings.append(f"left out {c.expression}: its re-fit failed ({exc.message})")
                 continue
             after = Session(new, table, training=session.training).scored
-            outcome = (new.threshold, after.flagged, after.confusion())
-        _threshold, flagged, conf = outcome
-        c.false_alarms_added = conf.fp - base_conf.fp
-        c.catches_targets = int(flagged[idx].sum())
-    return warnings
+            outcome = Refitted(new.threshold, after.flagged, after.confusion(), after.log_density)
+        c.false_alarms_added = outcome.confusion.fp - base_conf.fp
+        c.catches_targets = int(outcome.flagged[idx].sum())
+        if folds is not None:
+            c.heldout = kfold_gain(scored.log_density, outcome.log_density, labels, model.policy,
+                                   false_alarm_rate=rate, k=DEFAULT_FOLDS, seed=DEFAULT_SEED)
+        done.append(c)
+    return done, failed, warnings
+
+
+class Refitted(NamedTuple):
+    """The cases after a re-fit with one candidate added."""
+
+    threshold: float
+    flagged: np.ndarray
+    confusion: object
+    log_density: np.ndarray
 
 
 class AddedFeatureRefit:
@@ -221,7 +338,7 @@ class AddedFeatureRefit:
         return cls(model, X, raw_train, session.scored.features, session.scope("cases"), session.labels, base)
 
     def evaluate(self, expression):
-        """``(threshold, flagged, confusion)`` after adding ``expression`` (text or parsed), or None."""
+        """:class:`Refitted` cases after adding ``expression`` (text or parsed), or None."""
         try:
             expr = expression if isinstance(expression, expressions.Expression) else expressions.parse(expression)
             y = expr.evaluate(self.raw_train)
@@ -248,7 +365,7 @@ class AddedFeatureRefit:
         threshold = choose_threshold(self.model.policy, case_log_density=ld, case_is_anomaly=self.labels,
                                      normal_log_density=train_ld)
         flagged = flag(ld, threshold)
-        return threshold, flagged, confusion(flagged, self.labels)
+        return Refitted(threshold, flagged, confusion(flagged, self.labels), ld)
 
 
 

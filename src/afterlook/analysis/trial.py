@@ -10,11 +10,12 @@ from ..core import expressions
 from ..core.errors import AfterlookError
 from ..core.numbers import finite_or_none
 from ..core.recipe import Recipe
+from ..core.heldout import DEFAULT_FOLDS, DEFAULT_SEED, HeldOut, flagged_rate, holdout_gain, kfold_gain
 from ..core.thresholds import Confusion
 from ..store.tables import Table
 from .fitting import refit
 from .model import Model
-from .session import ScoredCases, Session, TrainingRows, derive_pairs, prepare
+from .session import ScoredCases, Session, TrainingRows, as_table, derive_pairs, prepare, table_name
 from .wording import flip_words
 
 __all__ = ["TryResult", "try_features", "TrialView", "trial_view", "MetricChange", "CaseChange"]
@@ -33,6 +34,7 @@ class TryResult:
     training_source: str
     model: Model
     warnings: list[str] = field(default_factory=list)
+    heldout: HeldOut | None = None  # F1 before/after on cases the threshold was not picked on
 
     @property
     def false_alarms_added(self) -> int:
@@ -46,12 +48,14 @@ class TryResult:
             "after": {"threshold": self.threshold_after, **self.after.to_dict()},
             "false_alarms_added": self.false_alarms_added,
             "misses_caught": sum(1 for c in self.cases if c["label"] == "anomaly" and c["after"]["flagged"] and not c["before"]["flagged"]),
+            "heldout": self.heldout.to_dict() if self.heldout is not None else None,
             "cases": self.cases,
         }
 
 
 def try_features(model, cases, derive, train=None, *, focus: list[str] | None = None,
-                 training: TrainingRows | None = None, before: ScoredCases | None = None) -> TryResult:
+                 training: TrainingRows | None = None, before: ScoredCases | None = None,
+                 holdout=None, folds: int = DEFAULT_FOLDS) -> TryResult:
     """Re-fit with extra derived features and compare before/after.
 
     Parameters
@@ -64,6 +68,12 @@ def try_features(model, cases, derive, train=None, *, focus: list[str] | None = 
     training, before : the resolved normal population and ``model``'s scores of
         ``cases``, when the caller already has them (the workbench keeps both
         for its session, which makes a re-score on 100,000 cases quick).
+    holdout : labelled cases (path, DataFrame or Table) kept apart: the threshold
+        is picked on ``cases`` and the held-out metrics are counted on these.
+        Default: stratified ``folds``-fold over ``cases`` (see
+        :mod:`afterlook.core.heldout`). The in-sample metrics re-pick the
+        threshold on the cases they report on and are optimistic; the held-out
+        estimate is what to expect on cases the tool never saw.
     """
     session = prepare(model, cases, train)
     session.require_labels("try")
@@ -80,8 +90,30 @@ def try_features(model, cases, derive, train=None, *, focus: list[str] | None = 
     before = before or session.scored
     after = Session(new, table, training=training).scored
     rows = _flip_rows(before, after, focus or [])
+    warnings = training.warnings + new.warnings
+    heldout = _heldout(model, new, session, before, after, holdout, folds, warnings)
     return TryResult(before.confusion(), after.confusion(), model.threshold, new.threshold, rows, pairs,
-                     training.source, new, training.warnings + new.warnings)
+                     training.source, new, warnings, heldout)
+
+
+def _heldout(model: Model, new: Model, session: Session, before: ScoredCases, after: ScoredCases, holdout,
+             folds: int, warnings: list[str]) -> HeldOut | None:
+    """Held-out F1 before/after: on a holdout table when given, else stratified K-fold over the cases."""
+    labels = session.labels
+    rate = flagged_rate(before.log_density, model.threshold, labels)
+    if holdout is not None:
+        hold = Session(model, as_table(holdout))
+        if hold.labels is None:
+            raise AfterlookError(f"{table_name(hold.cases)}: the holdout table needs a label column")
+        hold_after = Session(new, hold.cases).scored
+        return holdout_gain(before.log_density, after.log_density, labels, hold.scored.log_density,
+                            hold_after.log_density, hold.labels, model.policy, false_alarm_rate=rate)
+    try:
+        return kfold_gain(before.log_density, after.log_density, labels, model.policy, false_alarm_rate=rate,
+                          k=folds, seed=DEFAULT_SEED)
+    except AfterlookError as exc:
+        warnings.append(f"no held-out estimate: {exc.message}")
+        return None
 
 
 def _check_columns(recipe: Recipe, table: Table, pairs) -> None:

@@ -88,8 +88,35 @@ def flip_words(before: bool, after: bool) -> str:
     return "still flagged" if after else "still not flagged"
 
 
+VERDICT_WORDS = {
+    "holds-up": "holds up",
+    "exposes-only": "exposes only",
+    "chance": "could be chance",
+    "hurts": "hurts",
+}
+
+
 def candidate_verdict(c) -> str:
-    """A candidate's verdict in words: beyond chance or not (the CLI's wording)."""
+    """A candidate's verdict in words (the same words on every screen)."""
+    if c.verdict in VERDICT_WORDS:
+        words = VERDICT_WORDS[c.verdict]
+        if c.verdict == "exposes-only" and c.heldout is None:
+            words += " (not re-fitted)" if c.false_alarms_added is None else " (no held-out estimate)"
+        return words
     if c.beyond_chance:
-        return "finding" if c.false_alarms_added is not None else "finding (not re-fitted)"
+        return "beyond chance" if c.false_alarms_added is not None else "beyond chance (not re-fitted)"
     return "could be chance"
+
+
+def heldout_gain_text(c) -> str:
+    """Held-out F1 change of a candidate's re-fit, e.g. "+0.067"; "n/a" when not estimated."""
+    h = c.heldout
+    return "n/a" if h is None else f"{h.gain:+.3f}"
+
+
+def stability_text(c) -> str:
+    """In how many fold searches the candidate was found again, e.g. "4/5"; "n/a" when not estimated."""
+    h = c.heldout
+    if h is None or h.found_in_folds is None or not h.stability_folds:
+        return "n/a"
+    return f"{h.found_in_folds}/{h.stability_folds}"

@@ -9,7 +9,7 @@ from rich.table import Table
 from rich.text import Text
 
 from ..core.errors import AfterlookError
-from ..analysis.wording import flip_words
+from ..analysis.wording import candidate_verdict, flip_words, heldout_gain_text, stability_text
 from ..core.errors import EXIT_OK
 from .output import emit_json, warn
 
@@ -37,6 +37,10 @@ def register(sub, add_common, add_table_opts, caution) -> dict:
     p.add_argument("--train", metavar="TRAIN", help="normal population (default: the model's recorded training file)")
     p.add_argument("--case", action="append", default=[], metavar="CASE_ID", help="always list this case (repeatable)")
     p.add_argument("--out", metavar="NEW_MODEL", help="write the re-fitted model with the feature in its recipe")
+    p.add_argument("--holdout", metavar="TABLE",
+                   help="labelled cases kept apart: threshold picked on CASES, held-out metrics counted here "
+                        "(default: stratified 5-fold over CASES)")
+    p.add_argument("--folds", type=int, default=5, help="folds of the held-out estimate (default 5)")
     add_table_opts(p)
     add_common(p)
     return {"suggest": run_suggest, "try": run_try}
@@ -81,25 +85,33 @@ def suggest_table(result):
     table.add_column("expression", overflow="fold", ratio=1, min_width=18)
     table.add_column("case z", justify="right", no_wrap=True)
     table.add_column("adj tail", justify="right", no_wrap=True)
-    table.add_column("others", justify="right", no_wrap=True)
     table.add_column("caught", justify="right", no_wrap=True)
     table.add_column("+FA", justify="right", no_wrap=True)
+    table.add_column("held-out F1", justify="right", no_wrap=True)
+    table.add_column("found", justify="right", no_wrap=True)
     table.add_column("verdict", no_wrap=True)
     n_targets = len(result.cases)
+    styles = {"holds-up": "bold green", "exposes-only": "yellow", "chance": "dim", "hurts": "red"}
     for k, c in enumerate(result.candidates, 1):
         fa = "n/a" if c.false_alarms_added is None else f"{c.false_alarms_added:+d}"
         caught = "n/a" if c.catches_targets is None else f"{c.catches_targets}/{n_targets}"
         z = f"{c.case_z:+.1f}" if math.isfinite(c.case_z) else "n/a"
-        style = "bold green" if c.beyond_chance else "dim"
-        table.add_row(str(k), c.expression, z, f"{c.adjusted_tail:.2g}",
-                      f"{c.other_anomalies_separated}/{c.other_anomalies}", caught, fa,
-                      Text("finding" if c.beyond_chance else "chance?", style=style))
-    note = Text("case z: robust z (median, MAD) of the case under the normal population; adj. tail: chance of a "
-                "value this extreme, Bonferroni-adjusted over every candidate tried; others: other labelled "
-                "anomalies separated at the alarm rate; caught: target misses flagged after a re-fit with the feature; "
-                "+FA: false alarms that re-fit adds; chance?: not beyond what chance explains",
+        table.add_row(str(k), c.expression, z, f"{c.adjusted_tail:.2g}", caught, fa, heldout_gain_text(c),
+                      stability_text(c), Text(candidate_verdict(c), style=styles.get(c.verdict, "dim")))
+    folds = f"{result.heldout_folds}-fold" if result.heldout_folds else "K-fold"
+    note = Text("case z: robust z (median, MAD) of the case under the normal population; adj tail: chance of a "
+                "value this extreme over every candidate tried (for several cases: of this many cases being "
+                "this unusual); caught: target misses flagged after a re-fit with the feature; +FA: false alarms "
+                f"that re-fit adds; held-out F1: F1 change on cases the threshold was not picked on ({folds}); "
+                "found: fold searches that found the candidate again; verdicts: holds up = beyond chance and "
+                "better on held-out cases in every fold, exposes only = beyond chance without a held-out gain, "
+                "could be chance, hurts = worse on held-out cases",
                 style="dim")
     verdict = Text(result.verdict(), style="bold green" if result.any_beyond_chance else "bold yellow")
+    recommended = Text("recommended: ", style="bold")
+    recommended.append(result.recommended_reason() if result.recommended else f"none ({result.recommended_reason()})",
+                       style="bold green" if result.recommended else "yellow")
+    verdict = Group(verdict, recommended)
     return Group(head, table, verdict, note)
 
 
@@ -114,7 +126,14 @@ def run_try(args) -> int:
 
         check_writable(args.out)
     session = open_session(args)
-    result = try_features(session, None, pairs, focus=args.case)
+    if args.folds < 2:
+        raise AfterlookError(f"--folds must be at least 2, got {args.folds}")
+    holdout = None
+    if args.holdout:
+        from ..store.tables import load_table
+
+        holdout = load_table(args.holdout, id_col=args.id_col, label_col=args.label_col, require_labels=True)
+    result = try_features(session, None, pairs, focus=args.case, holdout=holdout, folds=args.folds)
     warn(result.warnings)
     if args.out:
         result.model.save(args.out)
@@ -134,6 +153,17 @@ def run_try(args) -> int:
     return EXIT_OK
 
 
+def heldout_line(h) -> str:
+    """The held-out estimate in one line (the in-sample rows above re-pick the threshold on the same cases)."""
+    if h is None:
+        return "held-out: not estimated (too few labelled cases); the in-sample numbers above are optimistic"
+    where = f"{h.folds}-fold over the cases" if h.method == "kfold" else "on the holdout table"
+    spread = f", folds {h.gain_low:+.3f} to {h.gain_high:+.3f}" if h.method == "kfold" else ""
+    return (f"held-out ({where}): F1 {h.f1_before:.3f} -> {h.f1_after:.3f} (gain {h.gain:+.3f}{spread}); "
+            f"recall at the model's false-alarm rate {h.false_alarm_rate:.1%}: "
+            f"{h.recall_before_at_rate:.3f} -> {h.recall_after_at_rate:.3f}")
+
+
 def try_table(result):
     from rich.console import Group
 
@@ -149,6 +179,7 @@ def try_table(result):
                   f"{m['precision']:.3f}", f"{m['recall']:.3f}", f"{m['f1']:.3f}")
     summary = Text(f"misses caught: {d['misses_caught']}; false alarms added: {d['false_alarms_added']:+d}",
                    style="bold")
+    summary.append("\n" + heldout_line(result.heldout))
     flips = Table(box=box.SIMPLE_HEAD, show_edge=False, title="cases listed (flag changed, or asked for)")
     flips.add_column("case", no_wrap=True)
     flips.add_column("label")

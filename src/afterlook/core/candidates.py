@@ -52,12 +52,21 @@ case by luck. Each candidate's tail is
   ``>= 0`` so that a light tail is extrapolated no thinner than an
   exponential one (conservative for Gaussian-like candidates).
 
-``adjusted_tail = min(1, m * k * tail)`` for ``k`` targets (Bonferroni over
-*all* candidates tried and all targets searched; conservative because the
-candidates are correlated) and ``beyond_chance`` is ``adjusted_tail < 0.05``.
-With several targets, ``targets_exposed`` counts the targets beyond chance,
-``adjusted_tail`` is that of the best-exposed target, ``case_z`` the median
-robust z, and the ranking puts candidates exposing more targets first.
+For one target, ``adjusted_tail = min(1, m * tail)`` (Bonferroni over *all*
+candidates tried; conservative because the candidates are correlated). For
+several targets the guard asks how many targets the candidate exposes, not
+only whether the best one is extreme: see :mod:`afterlook.core.chance` (a
+binomial count of targets beyond their own 5% tail, or the best target, the
+better of the two doubled, corrected over the candidates tried only).
+``beyond_chance`` is ``adjusted_tail < 0.05``; ``targets_exposed`` counts the
+targets beyond their own 5% tail; ``case_z`` is the median robust z.
+
+**Verdicts** (set by :func:`afterlook.analysis.discovery.suggest` once the
+held-out gain of the re-fit is known): ``hurts`` (held-out F1 gain below
+zero), ``chance`` (not beyond chance), ``holds-up`` (beyond chance, a
+positive held-out gain, and no fold with a loss), ``exposes-only`` (beyond
+chance without a held-out gain). The list is ranked by verdict, then
+held-out gain, then exposure (:meth:`Candidate.rank_key`).
 """
 
 from __future__ import annotations
@@ -69,6 +78,7 @@ from typing import Mapping
 import numpy as np
 
 from . import expressions
+from .chance import CHANCE_LEVEL, chance_verdict
 from .errors import AfterlookError
 from .candidate_pairs import difference_and_product_groups, moments, ratio_groups, shaped_groups
 from .numbers import finite_or_none
@@ -84,7 +94,14 @@ from .tails import (  # noqa: F401 - part of this module's interface
 )
 
 KINDS = ("ratio", "log_ratio", "standardized_difference", "product", "square_ratio", "shaped_difference")
-CHANCE_LEVEL = 0.05
+#: verdicts in ranking order, and what each tells a reviewer
+VERDICTS = {
+    "holds-up": "beyond chance, and adding it raised F1 on held-out cases in every fold",
+    "exposes-only": "beyond chance, but no held-out F1 gain (or a fold lost)",
+    "chance": "no more extreme than luck over the candidates tried",
+    "hurts": "adding it lowered F1 on held-out cases",
+}
+GAIN_EPSILON = 1e-12  # a held-out gain this small is no gain
 TAIL_TIERS = (1e-6, 1e-3, CHANCE_LEVEL)  # ranking tiers of the adjusted tail
 
 
@@ -140,6 +157,7 @@ class Candidate:
     case_z_by_case: dict = field(default_factory=dict)
     tail: float = float("nan")
     tail_method: str = ""
+    tail_by_case: dict = field(default_factory=dict)  # each target's own (uncorrected) tail
     adjusted_tail: float = float("nan")
     beyond_chance: bool = False
     other_anomalies_separated: int = 0
@@ -147,8 +165,12 @@ class Candidate:
     other_misses_separated: int = 0
     other_misses: int = 0
     targets_exposed: int = 0
+    chance_method: str = ""  # "single" or "count": which test of the guard decided
+    count_tail: float | None = None  # binomial tail of the number of targets exposed (several targets)
     false_alarms_added: int | None = None
     catches_targets: int | None = None
+    heldout: object | None = None  # afterlook.core.heldout.HeldOut of the re-fit, when it could be estimated
+    verdict: str = ""
     # the parsed expression, kept from the exact pass so the re-fit does not parse it again
     parsed: expressions.Expression | None = field(default=None, repr=False, compare=False)
 
@@ -172,10 +194,25 @@ class Candidate:
                 a, b = b, a
         return pattern.format(a=a, b=b)[:80]
 
+    def judge(self) -> str:
+        """Set and return the verdict from the guard and the held-out gain (see the module notes)."""
+        gain = getattr(self.heldout, "gain", None)
+        if gain is not None and gain < -GAIN_EPSILON:
+            self.verdict = "hurts"
+        elif not self.beyond_chance:
+            self.verdict = "chance"
+        elif gain is not None and gain > GAIN_EPSILON and not self.heldout.straddles_a_loss:
+            self.verdict = "holds-up"
+        else:
+            self.verdict = "exposes-only"
+        return self.verdict
+
     def rank_key(self, min_correlation: float = 0.3):
         """Order of the candidate list.
 
-        1. targets exposed beyond chance (more first);
+        0. verdict (holds-up, exposes-only, chance, hurts; not yet judged: after
+           exposes-only), then held-out F1 gain (larger first; unknown last);
+        1. targets exposed (more first);
         2. how extreme, in tiers of the adjusted tail: < 1e-6, < 1e-3, < 0.05,
            the rest. Tiers rather than the raw value, because once a tail is
            that small its exact size is mostly tail-model noise, and the next
@@ -191,7 +228,10 @@ class Candidate:
         tier = next((k for k, cut in enumerate(TAIL_TIERS) if tail < cut), len(TAIL_TIERS))
         fa = self.false_alarms_added if self.false_alarms_added is not None else math.inf
         caught = self.catches_targets if self.catches_targets is not None else -1
-        return (-self.targets_exposed, tier, -self.other_anomalies_separated, -caught, fa,
+        order = list(VERDICTS)
+        verdict = order.index(self.verdict) if self.verdict in order else 1.5
+        gain = getattr(self.heldout, "gain", None)
+        return (verdict, -gain if gain is not None else math.inf, -self.targets_exposed, tier, -self.other_anomalies_separated, -caught, fa,
                 -(abs(self.r) >= min_correlation), len(self.expression),
                 -abs(self.case_z) if math.isfinite(self.case_z) else 0.0)
 
@@ -207,9 +247,14 @@ class Candidate:
             "first_pass_z": finite_or_none(self.first_pass_z),
             "tail": finite_or_none(self.tail),
             "tail_method": self.tail_method,
+            "tail_by_case": {k: finite_or_none(v) for k, v in self.tail_by_case.items()},
             "adjusted_tail": finite_or_none(self.adjusted_tail),
             "beyond_chance": bool(self.beyond_chance),
             "targets_exposed": int(self.targets_exposed),
+            "chance_method": self.chance_method,
+            "count_tail": finite_or_none(self.count_tail) if self.count_tail is not None else None,
+            "verdict": self.verdict or None,
+            "heldout": self.heldout.to_dict() if self.heldout is not None else None,
             "other_anomalies_separated": int(self.other_anomalies_separated),
             "other_anomalies": int(self.other_anomalies),
             "other_misses_separated": int(self.other_misses_separated),
@@ -333,16 +378,16 @@ def second_pass(
             continue
         zs = robust_z(v, tv)
         tails = [tail_probability(v, float(t)) for t in tv]
-        # Bonferroni over every candidate tried and every target searched.
-        family = n_tried * len(tv)
-        adjusted = np.array([min(1.0, t[0] * family) for t in tails])
-        best = int(np.argmin(adjusted))
+        guard = chance_verdict(np.array([t[0] for t in tails]), n_tried)
+        best = int(np.argmin([t[0] for t in tails]))
         c.case_z_by_case = {cid: float(z) for cid, z in zip(target_ids, zs)}
+        c.tail_by_case = {cid: float(tl[0]) for cid, tl in zip(target_ids, tails)}
         c.case_z = float(np.median(zs)) if len(zs) > 1 else float(zs[0])
         c.tail, c.tail_method = float(tails[best][0]), tails[best][1]
-        c.adjusted_tail = float(adjusted[best])
-        c.targets_exposed = int(np.sum(adjusted < settings.chance_level))
-        c.beyond_chance = bool(c.targets_exposed > 0)
+        c.adjusted_tail = guard.adjusted_tail
+        c.targets_exposed = guard.targets_exposed
+        c.chance_method, c.count_tail = guard.method, guard.count_tail
+        c.beyond_chance = guard.beyond_chance(settings.chance_level)
         if other_anomalies is not None and other_is_miss is not None and len(other_is_miss):
             ov = expr.evaluate(other_anomalies)
             med = np.median(v)

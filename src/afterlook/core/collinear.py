@@ -42,3 +42,37 @@ def unexplained_share(candidate: np.ndarray, features: np.ndarray) -> float:
 
 def is_linear_combination(candidate: np.ndarray, features: np.ndarray, floor: float = UNEXPLAINED_FLOOR) -> bool:
     return unexplained_share(candidate, features) < floor
+
+
+class LinearSpan:
+    """The span of ``[1, features]`` over a fixed set of rows, factored once (QR) for many candidates.
+
+    ``unexplained_share(v)`` equals :func:`unexplained_share` of ``v`` on the
+    same features; rows where ``v`` is not finite fall back to that function.
+    """
+
+    def __init__(self, features: np.ndarray):
+        X = np.asarray(features, dtype=np.float64)
+        if X.ndim == 1:
+            X = X[:, None]
+        self.features = X
+        self.rows_ok = np.all(np.isfinite(X), axis=1)
+        Xc = X[self.rows_ok] - X[self.rows_ok].mean(axis=0)
+        q, r = np.linalg.qr(Xc)
+        keep = np.abs(np.diag(r)) > 1e-12 * max(1.0, float(np.abs(np.diag(r)).max(initial=0.0)))
+        self.q = q[:, keep]
+
+    def unexplained_share(self, candidate: np.ndarray) -> float:
+        c = np.asarray(candidate, dtype=np.float64)
+        if not np.all(np.isfinite(c[self.rows_ok])):
+            return unexplained_share(c, self.features)
+        c = c[self.rows_ok]
+        c = c - c.mean()
+        total = float(c @ c)
+        if total == 0.0:
+            return 0.0
+        resid = c - self.q @ (self.q.T @ c)
+        return max(0.0, float(resid @ resid) / total)
+
+    def contains(self, candidate: np.ndarray, floor: float = UNEXPLAINED_FLOOR) -> bool:
+        return self.unexplained_share(candidate) < floor

@@ -59,6 +59,14 @@ class HeldOut:
     found_in_folds: int | None = None  # filled by suggest's stability check
     extra: dict = field(default_factory=dict)
 
+    stability_folds: int | None = None  # folds searched for the stability count
+
+    def with_stability(self, found: int, searched: int) -> "HeldOut":
+        """A copy with ``found_in_folds`` (out of ``searched`` fold searches) filled in."""
+        from dataclasses import replace
+
+        return replace(self, found_in_folds=int(found), stability_folds=int(searched))
+
     @property
     def straddles_a_loss(self) -> bool:
         return self.gain_low < 0.0
@@ -76,7 +84,7 @@ class HeldOut:
             "recall_before_at_rate": num(self.recall_before_at_rate),
             "recall_after_at_rate": num(self.recall_after_at_rate),
             "before": self.before.to_dict(), "after": self.after.to_dict(),
-            "found_in_folds": self.found_in_folds, **self.extra,
+            "found_in_folds": self.found_in_folds, "stability_folds": self.stability_folds, **self.extra,
         }
 
 

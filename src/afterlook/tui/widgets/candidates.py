@@ -7,7 +7,7 @@ from textual.app import ComposeResult
 from textual.containers import Horizontal, Vertical
 from textual.widgets import DataTable, ProgressBar, Static
 
-from ...analysis.wording import candidate_verdict
+from ...analysis.wording import candidate_verdict, heldout_gain_text, stability_text
 from .. import format as fmt
 from ..messages import CandidateChosen, CandidateHighlighted, PanelMounted
 
@@ -15,11 +15,11 @@ VERDICT_WIDTH = 25
 NARROW_VERDICT_WIDTH = 9
 NARROW = 100  # panel width below which the verdict column is cut short
 # the columns other than the expression and the verdict, two cells of padding each, and the scrollbar
-FIXED_COLUMNS = 2 + 6 + 8 + 6 + 6 + 4 + 2 * 8 + 2
+FIXED_COLUMNS = 2 + 6 + 8 + 7 + 5 + 4 + 2 * 8 + 2
 
-LEGEND = ("case z: robust z of the case among normal rows · adj tail: chance of a value this extreme, adjusted "
-          "for every candidate tried · others: other labelled anomalies it separates · caught: target misses "
-          "flagged after a re-fit · +FA: false alarms that re-fit adds · ✓ beyond chance, ? not · enter or a: apply")
+LEGEND = ("case z: robust z of the case among normal rows · adj tail: chance of a value this extreme over every "
+          "candidate tried · ΔF1 out: F1 change on held-out cases · found: fold searches that found it again · "
+          "+FA: false alarms that re-fit adds · ✓ holds up, ? not · enter or a: apply")
 
 
 class CandidatesPanel(Vertical):
@@ -93,29 +93,33 @@ class CandidatesPanel(Vertical):
         with table.prevent(DataTable.RowHighlighted):
             table.clear(columns=True)
             for label, key, w in (("#", "rank", 2), ("expression", "expr", expr_width), ("case z", "z", 6),
-                                  ("adj tail", "tail", 8), ("others", "others", 6), ("caught", "caught", 6),
+                                  ("adj tail", "tail", 8), ("ΔF1 out", "heldout", 7), ("found", "found", 5),
                                   ("+FA", "fa", 4), ("verdict", "verdict", verdict_width)):
                 right = key not in ("expr", "verdict")
                 table.add_column(Text(label, justify="right") if right else label, key=key, width=w)
             for k, c in enumerate(result.candidates):
                 words = candidate_verdict(c)
-                caught = fmt.MISSING if c.catches_targets is None else f"{c.catches_targets}/{n_targets}"
+                gain = heldout_gain_text(c)
+                found = stability_text(c)
+                good = c.verdict == "holds-up" or (not c.verdict and c.beyond_chance)
                 table.add_row(
                     Text(str(k + 1), justify="right"),
                     fmt.clip(c.expression, expr_width),
                     Text(fmt.signed(c.case_z, 1), justify="right"),
                     Text(fmt.tail(c.adjusted_tail), justify="right"),
-                    Text(f"{c.other_anomalies_separated}/{c.other_anomalies}", justify="right"),
-                    Text(caught, justify="right"),
+                    Text(fmt.MISSING if gain == "n/a" else gain, justify="right"),
+                    Text(fmt.MISSING if found == "n/a" else found, justify="right"),
                     Text(fmt.count_change(c.false_alarms_added), justify="right"),
-                    Text(fmt.clip(("✓ " if c.beyond_chance else "? ") + words, verdict_width),
-                         style=finding if c.beyond_chance else chance),
+                    Text(fmt.clip(("✓ " if good else "? ") + words, verdict_width), style=finding if good else chance),
                     key=str(k),
                 )
         self._detail(0)
         verdict = Text()
         verdict.append("verdict: ", style="bold")
         verdict.append(result.verdict(), style=finding if result.any_beyond_chance else chance)
+        verdict.append("\nrecommended: ", style="bold")
+        verdict.append(result.recommended_reason() if result.recommended else f"none ({result.recommended_reason()})",
+                       style=finding if result.recommended else chance)
         self.query_one("#cand-verdict", Static).update(verdict)
 
     def on_resize(self) -> None:
@@ -145,8 +149,8 @@ class CandidatesPanel(Vertical):
         t = Text()
         t.append(f"{index + 1}: {c.name} = ", style="bold")
         t.append(c.expression)
-        t.append(f"  ({candidate_verdict(c)})", style=self._style("candidates--finding" if c.beyond_chance
-                                                                   else "candidates--chance"))
+        good = c.verdict == "holds-up" or (not c.verdict and c.beyond_chance)
+        t.append(f"  ({candidate_verdict(c)})", style=self._style("candidates--finding" if good else "candidates--chance"))
         detail.update(t)
 
     def on_data_table_row_highlighted(self, event: DataTable.RowHighlighted) -> None:
