@@ -72,6 +72,23 @@ def test_kfold_f1_matches_a_naive_scikit_learn_estimate(cancer_scores):
     assert h.before.tp + h.before.fp + h.before.fn + h.before.tn == y.size  # every case held out exactly once
 
 
+def test_changed_calls_and_their_mcnemar_tail_match_a_naive_count(cancer_scores):
+    before, after, y = cancer_scores
+    h = kfold_gain(before, after, y, F1, false_alarm_rate=0.05, k=5, seed=11)
+    calls = {}
+    for name, ld in (("before", before), ("after", after)):
+        pred = np.zeros(y.size, dtype=bool)
+        for fit, test in StratifiedKFold(5, shuffle=True, random_state=11).split(np.zeros(y.size), y):
+            pred[test] = _naive_best_f1_flags(ld[fit], y[fit], ld[test])
+        calls[name] = pred == y
+    improved = int(np.sum(~calls["before"] & calls["after"]))
+    worsened = int(np.sum(calls["before"] & ~calls["after"]))
+    assert (h.improved, h.worsened) == (improved, worsened)
+    if improved:  # exact one-sided McNemar: binomial tail at one half (scipy.stats.binomtest)
+        assert h.change_tail == pytest.approx(
+            stats.binomtest(improved, improved + worsened, 0.5, alternative="greater").pvalue, rel=1e-9)
+
+
 def test_kfold_recall_at_rate_matches_a_naive_count(cancer_scores):
     before, after, y = cancer_scores
     rate = 0.1

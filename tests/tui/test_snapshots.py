@@ -40,7 +40,8 @@ async def settle(pilot) -> None:
 def fixed_candidates(case_id: str) -> SuggestResult:
     def held(gain, low, high, found):
         return HeldOut("kfold", 5, 0.48, 0.48 + gain, gain, low, high, 0.01, 0.3, 0.3 + gain,
-                       Confusion(10, 4, 12, 200), Confusion(11, 4, 11, 200), found_in_folds=found, stability_folds=5)
+                       Confusion(10, 4, 12, 200), Confusion(11, 4, 11, 200), found_in_folds=found, stability_folds=5,
+                       improved=9 if gain > 0.05 else 2, worsened=1)
 
     def c(expression, kind, inputs, z, tail, beyond, separated, fa, caught, heldout=None):
         cand = Candidate(expression, kind, inputs, 0.9, case_z=z, adjusted_tail=tail, beyond_chance=beyond,

@@ -302,7 +302,8 @@ def test_candidate_verdict_words():
 
     def c(beyond, fa, gain=None, low=None):
         held = None if gain is None else HeldOut("kfold", 5, 0.5, 0.5 + gain, gain, low, gain, 0.01, 0.4, 0.5,
-                                                 Confusion(1, 1, 1, 1), Confusion(1, 1, 1, 1))
+                                                 Confusion(1, 1, 1, 1), Confusion(1, 1, 1, 1),
+                                                 improved=6 if gain > 0 else 0, worsened=0 if gain > 0 else 3)
         cand = Candidate("a / b", "ratio", ("a", "b"), 0.5, beyond_chance=beyond, false_alarms_added=fa, heldout=held)
         cand.judge()
         return cand
@@ -313,4 +314,7 @@ def test_candidate_verdict_words():
     assert wd.candidate_verdict(c(True, 0)) == "exposes only (no held-out estimate)"
     assert wd.candidate_verdict(c(False, 0, 0.05, 0.01)) == "could be chance"
     assert wd.candidate_verdict(c(True, 0, -0.01, -0.03)) == "hurts"
+    noisy = c(True, 2, 0.05, 0.01)
+    noisy.heldout = noisy.heldout.__class__(**{**noisy.heldout.__dict__, "improved": 2, "worsened": 1})
+    assert noisy.judge() == "exposes-only"  # 2 right vs 1 wrong is no evidence of a gain
     assert wd.candidate_verdict(c(False, 0, -0.01, -0.03)) == "hurts"

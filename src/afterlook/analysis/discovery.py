@@ -58,15 +58,17 @@ class SuggestResult:
     def recommended_reason(self) -> str:
         if self.recommended is not None:
             best = next(c for c in self.candidates if c.name == self.recommended)
-            return (f"{best.name} = {best.expression} is beyond chance and raised F1 on held-out cases in every "
-                    f"fold (gain {best.heldout.gain:+.3f})")
+            h = best.heldout
+            return (f"{best.name} = {best.expression} is beyond chance and raised F1 on held-out cases (gain "
+                    f"{h.gain:+.3f}, no fold lower; {h.improved} held-out calls turned right, {h.worsened} wrong)")
         if not self.candidates:
             return "no candidate could be evaluated"
         if self.heldout_method is None:
             return "held-out gains could not be estimated (too few labelled cases), so nothing is recommended"
         if not any(c.beyond_chance for c in self.candidates):
             return "no listed candidate beats chance"
-        return "no candidate that beats chance also raised F1 on held-out cases in every fold"
+        return ("no candidate that beats chance also raised F1 on held-out cases by more than noise, "
+                "with no fold lower")
 
     def verdict(self) -> str:
         if not self.candidates:
@@ -152,13 +154,22 @@ def suggest(model, cases, train=None, case_ids=None, top: int = 10, *,
 
     exact = top if exact is None else exact
     folds = _folds(session, warnings)
-    head, failed, refit_warnings = _refit_head(session, ranked, max(exact, 0), idx, folds, progress)
-    warnings += refit_warnings
-    ranked = [c for c in ranked if id(c) not in failed]
-    for c in ranked:
-        c.judge()
-    ranked.sort(key=lambda c: c.rank_key(settings.min_correlation))
-    final = ranked[:top]
+    refitter = _Refitter(session, idx, folds, progress, max(exact, 0))
+    for c in ranked[: max(exact, 0)]:
+        refitter.refit(c)
+    while True:  # the list is ranked by verdict, which needs the re-fit: re-fit what would be listed
+        ranked = [c for c in ranked if id(c) not in refitter.failed]
+        for c in ranked:
+            c.judge()
+        ranked.sort(key=lambda c: c.rank_key(settings.min_correlation))
+        final = ranked[:top]
+        pending = [c for c in final if id(c) not in refitter.attempted] if exact >= top else []
+        if not pending:
+            break
+        for c in pending:
+            refitter.refit(c)
+    warnings += refitter.warnings
+    failed = refitter.failed
     if folds is not None and len(idx) > 1:
         _report(progress, "stability over folds", 0.95)
         _stability(final, names, sample, C, idx, folds, shaped, settings, top)
@@ -248,42 +259,47 @@ def _finite_rows(raw: dict, names: list[str]) -> np.ndarray:
     return A[np.all(np.isfinite(A), axis=1)]
 
 
-def _refit_head(session: Session, ranked: list, exact: int, idx: list[int], folds, progress):
-    """Third pass: an exact re-fit of the best ``exact`` candidates, with false alarms and held-out gain.
+class _Refitter:
+    """Third pass: an exact re-fit of a candidate, for the false alarms it adds and its held-out gain.
 
-    Returns (the re-fitted candidates, ids of those whose re-fit failed, warnings).
-    A failed re-fit drops the candidate (it could not be added); the next one
-    takes its place, so ``exact`` candidates are re-fitted when there are enough.
+    A failed re-fit drops the candidate (it could not be added): its id goes to
+    ``failed`` and a warning says why.
     """
-    model, table = session.model, session.cases
-    warnings, failed, done = [], set(), []
-    scored = session.scored
-    base_conf = scored.confusion()
-    labels = session.labels
-    rate = flagged_rate(scored.log_density, model.threshold, labels) if labels is not None else 0.0
-    fast = AddedFeatureRefit.prepare(session)
-    for c in ranked:
-        if len(done) >= exact:
-            break
-        _report(progress, f"re-fitting {len(done) + 1}/{exact}", 0.4 + 0.5 * len(done) / max(exact, 1))
-        outcome = fast.evaluate(c.parsed or c.expression) if fast is not None else None
+
+    def __init__(self, session: Session, idx: list[int], folds, progress, planned: int):
+        self.session, self.idx, self.folds, self.progress, self.planned = session, idx, folds, progress, planned
+        self.failed: set[int] = set()
+        self.attempted: set[int] = set()
+        self.warnings: list[str] = []
+        scored = session.scored
+        self.base_conf = scored.confusion()
+        labels = session.labels
+        self.rate = flagged_rate(scored.log_density, session.model.threshold, labels) if labels is not None else 0.0
+        self.fast = AddedFeatureRefit.prepare(session)
+
+    def refit(self, c) -> None:
+        if id(c) in self.attempted:
+            return
+        self.attempted.add(id(c))
+        n = len(self.attempted)
+        _report(self.progress, f"re-fitting {n}/{max(self.planned, n)}", 0.4 + 0.5 * min(n / max(self.planned, 1), 1))
+        session, model = self.session, self.session.model
+        outcome = self.fast.evaluate(c.parsed or c.expression) if self.fast is not None else None
         if outcome is None:  # not expressible as an added column: full re-fit
             recipe = model.recipe.with_derived([(free_name("candidate", model.recipe.features), c.expression)])
             try:
-                new = refit(model, recipe, session.training, table, quantiles=False)
+                new = refit(model, recipe, session.training, session.cases, quantiles=False)
             except AfterlookError as exc:
-                failed.add(id(c))
-                warnings.append(f"left out {c.expression}: its re-fit failed ({exc.message})")
-                continue
-            after = Session(new, table, training=session.training).scored
+                self.failed.add(id(c))
+                self.warnings.append(f"left out {c.expression}: its re-fit failed ({exc.message})")
+                return
+            after = Session(new, session.cases, training=session.training).scored
             outcome = Refitted(new.threshold, after.flagged, after.confusion(), after.log_density)
-        c.false_alarms_added = outcome.confusion.fp - base_conf.fp
-        c.catches_targets = int(outcome.flagged[idx].sum())
-        if folds is not None:
-            c.heldout = kfold_gain(scored.log_density, outcome.log_density, labels, model.policy,
-                                   false_alarm_rate=rate, k=DEFAULT_FOLDS, seed=DEFAULT_SEED)
-        done.append(c)
-    return done, failed, warnings
+        c.false_alarms_added = outcome.confusion.fp - self.base_conf.fp
+        c.catches_targets = int(outcome.flagged[self.idx].sum())
+        if self.folds is not None:
+            c.heldout = kfold_gain(session.scored.log_density, outcome.log_density, session.labels, model.policy,
+                                   false_alarm_rate=self.rate, k=DEFAULT_FOLDS, seed=DEFAULT_SEED)
 
 
 class Refitted(NamedTuple):

@@ -104,7 +104,7 @@ def suggest_table(result):
                 "this unusual); caught: target misses flagged after a re-fit with the feature; +FA: false alarms "
                 f"that re-fit adds; held-out F1: F1 change on cases the threshold was not picked on ({folds}); "
                 "found: fold searches that found the candidate again; verdicts: holds up = beyond chance and "
-                "better on held-out cases in every fold, exposes only = beyond chance without a held-out gain, "
+                "better on held-out cases (no fold worse, more calls turned right than noise explains), exposes only = beyond chance without a held-out gain, "
                 "could be chance, hurts = worse on held-out cases",
                 style="dim")
     verdict = Text(result.verdict(), style="bold green" if result.any_beyond_chance else "bold yellow")

@@ -64,8 +64,9 @@ targets beyond their own 5% tail; ``case_z`` is the median robust z.
 **Verdicts** (set by :func:`afterlook.analysis.discovery.suggest` once the
 held-out gain of the re-fit is known): ``hurts`` (held-out F1 gain below
 zero), ``chance`` (not beyond chance), ``holds-up`` (beyond chance, a
-positive held-out gain, and no fold with a loss), ``exposes-only`` (beyond
-chance without a held-out gain). The list is ranked by verdict, then
+positive held-out gain, no fold with a loss, and more held-out calls turned
+right than wrong beyond noise: :attr:`afterlook.core.heldout.HeldOut.holds`),
+``exposes-only`` (beyond chance without such a gain). The list is ranked by verdict, then
 held-out gain, then exposure (:meth:`Candidate.rank_key`).
 """
 
@@ -96,7 +97,7 @@ from .tails import (  # noqa: F401 - part of this module's interface
 KINDS = ("ratio", "log_ratio", "standardized_difference", "product", "square_ratio", "shaped_difference")
 #: verdicts in ranking order, and what each tells a reviewer
 VERDICTS = {
-    "holds-up": "beyond chance, and adding it raised F1 on held-out cases in every fold",
+    "holds-up": "beyond chance, and adding it raised F1 on held-out cases, in no fold lower, beyond noise",
     "exposes-only": "beyond chance, but no held-out F1 gain (or a fold lost)",
     "chance": "no more extreme than luck over the candidates tried",
     "hurts": "adding it lowered F1 on held-out cases",
@@ -201,7 +202,7 @@ class Candidate:
             self.verdict = "hurts"
         elif not self.beyond_chance:
             self.verdict = "chance"
-        elif gain is not None and gain > GAIN_EPSILON and not self.heldout.straddles_a_loss:
+        elif gain is not None and self.heldout.holds:
             self.verdict = "holds-up"
         else:
             self.verdict = "exposes-only"

@@ -16,7 +16,13 @@ part of the cases and the metrics are counted on the rest:
 * **a holdout table**: the threshold is picked on the cases, the metrics are
   counted on the holdout rows.
 
-Before and after use the same folds, so their difference is paired. Recall at
+Before and after use the same folds, so their difference is paired: each case
+is held out once, and the cases whose held-out call turned right
+(``improved``) or wrong (``worsened``) give an exact one-sided McNemar test of
+"the change helps" (the binomial upper tail of ``improved`` out of
+``improved + worsened`` at one half; McNemar, Psychometrika 12, 1947,
+153-157, cited from memory). Per-fold F1 is noisy with few anomalies, so a
+gain counts as a gain only when that test agrees (:data:`GAIN_LEVEL`). Recall at
 the model's false-alarm rate (the share of labelled normal cases the model
 flags) is reported beside F1: it is what a user who keeps today's alarm load
 would gain.
@@ -37,6 +43,7 @@ from .thresholds import Confusion, ThresholdPolicy, choose_threshold, confusion,
 
 DEFAULT_FOLDS = 5
 DEFAULT_SEED = 0
+GAIN_LEVEL = 0.1  # the McNemar tail below which a held-out gain is more than noise
 
 
 @dataclass(frozen=True)
@@ -56,6 +63,8 @@ class HeldOut:
     before: Confusion
     after: Confusion
     fold_gains: tuple[float, ...] = ()
+    improved: int = 0  # held-out cases whose call turned right
+    worsened: int = 0  # held-out cases whose call turned wrong
     found_in_folds: int | None = None  # filled by suggest's stability check
     extra: dict = field(default_factory=dict)
 
@@ -71,6 +80,19 @@ class HeldOut:
     def straddles_a_loss(self) -> bool:
         return self.gain_low < 0.0
 
+    @property
+    def change_tail(self) -> float:
+        """Exact one-sided McNemar tail of ``improved`` vs ``worsened`` (1.0 when no call changed)."""
+        from scipy.stats import binom
+
+        n = self.improved + self.worsened
+        return 1.0 if n == 0 or self.improved == 0 else float(binom.sf(self.improved - 1, n, 0.5))
+
+    @property
+    def holds(self) -> bool:
+        """A positive gain, no fold with a loss, and more calls turned right than chance explains."""
+        return self.gain > 1e-12 and not self.straddles_a_loss and self.change_tail < GAIN_LEVEL
+
     def to_dict(self) -> dict:
         def num(x):
             return None if x is None or not math.isfinite(x) else float(x)
@@ -80,6 +102,7 @@ class HeldOut:
             "f1_before": num(self.f1_before), "f1_after": num(self.f1_after),
             "gain": num(self.gain), "gain_low": num(self.gain_low), "gain_high": num(self.gain_high),
             "fold_gains": [num(g) for g in self.fold_gains],
+            "improved": self.improved, "worsened": self.worsened, "change_tail": num(self.change_tail),
             "false_alarm_rate": num(self.false_alarm_rate),
             "recall_before_at_rate": num(self.recall_before_at_rate),
             "recall_after_at_rate": num(self.recall_after_at_rate),
@@ -145,19 +168,24 @@ def kfold_gain(before: np.ndarray, after: np.ndarray, is_anomaly: np.ndarray, po
     folds = stratified_folds(y, k, seed)
     totals = {name: np.zeros(4, np.int64) for name in ("before", "after", "rate_before", "rate_after")}
     gains = []
+    calls = {"before": np.zeros(y.size, bool), "after": np.zeros(y.size, bool)}
     for f in range(int(folds.max()) + 1):
         fit, test = folds != f, folds == f
         per_fold = {}
         for name, ld in (("before", b), ("after", a)):
-            c = confusion(flag(ld[test], _pick(policy, ld[fit], y[fit])), y[test])
+            flagged = flag(ld[test], _pick(policy, ld[fit], y[fit]))
+            calls[name][test] = flagged
+            c = confusion(flagged, y[test])
             totals[name] += _counts(c)
             per_fold[name] = c.f1
             r = confusion(flag(ld[test], _rate_cut(ld[fit], y[fit], false_alarm_rate)), y[test])
             totals["rate_" + name] += _counts(r)
         gains.append(per_fold["after"] - per_fold["before"])
     cb, ca = _sum(totals["before"]), _sum(totals["after"])
+    right_before, right_after = calls["before"] == y, calls["after"] == y
     return HeldOut("kfold", len(gains), cb.f1, ca.f1, ca.f1 - cb.f1, min(gains), max(gains), false_alarm_rate,
-                   _sum(totals["rate_before"]).recall, _sum(totals["rate_after"]).recall, cb, ca, tuple(gains))
+                   _sum(totals["rate_before"]).recall, _sum(totals["rate_after"]).recall, cb, ca, tuple(gains),
+                   improved=int(np.sum(~right_before & right_after)), worsened=int(np.sum(right_before & ~right_after)))
 
 
 def holdout_gain(before_cases: np.ndarray, after_cases: np.ndarray, is_anomaly_cases: np.ndarray,
@@ -167,11 +195,15 @@ def holdout_gain(before_cases: np.ndarray, after_cases: np.ndarray, is_anomaly_c
     yc, yh = np.asarray(is_anomaly_cases, bool), np.asarray(is_anomaly_holdout, bool)
     if not yh.any():
         raise AfterlookError("the holdout table has no labelled anomaly; F1 cannot be estimated on it")
-    out = {}
+    out, right = {}, {}
     for name, cases, hold in (("before", before_cases, before_holdout), ("after", after_cases, after_holdout)):
         cases, hold = np.asarray(cases, np.float64), np.asarray(hold, np.float64)
-        out[name] = confusion(flag(hold, _pick(policy, cases, yc)), yh)
+        flagged = flag(hold, _pick(policy, cases, yc))
+        right[name] = flagged == yh
+        out[name] = confusion(flagged, yh)
         out["rate_" + name] = confusion(flag(hold, _rate_cut(cases, yc, false_alarm_rate)), yh)
     gain = out["after"].f1 - out["before"].f1
     return HeldOut("holdout", 1, out["before"].f1, out["after"].f1, gain, gain, gain, false_alarm_rate,
-                   out["rate_before"].recall, out["rate_after"].recall, out["before"], out["after"], (gain,))
+                   out["rate_before"].recall, out["rate_after"].recall, out["before"], out["after"], (gain,),
+                   improved=int(np.sum(~right["before"] & right["after"])),
+                   worsened=int(np.sum(right["before"] & ~right["after"])))
