@@ -16,6 +16,7 @@ __all__ = ["Miss", "MissesResult", "misses", "ExplainResult", "explain", "explai
 
 @dataclass
 class Miss:
+    """A labelled anomaly left unflagged: its log-density, margin above the threshold and context."""
     case: str
     log_density: float
     margin: float

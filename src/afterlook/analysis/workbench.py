@@ -135,6 +135,7 @@ class StatusSummary:
 
 
 def status_summary(session: WorkbenchSession) -> StatusSummary:
+    """The numbers of the status line (all from the model and the session's misses)."""
     m: Confusion = session.missed.metrics
     model = session.model
     return StatusSummary(
