@@ -285,15 +285,13 @@ def case_evidence(session: WorkbenchSession, case_id: str) -> EvidenceView:
     total = float(np.nansum(contributions))
     raw = session.scope("cases")
     rows = []
-    for f in ev:
+    for f in result.features_by_cost():
         share = 100.0 * f.contribution / total if total != 0 and math.isfinite(f.contribution) else math.nan
         t = model.recipe.transforms.get(f.name)
         rows.append(EvidenceRow(f.name, f.value, float(raw[f.name][i]), f.z, f.percentile, f.contribution, share, f.conditional_z,
                                 reading(f.z), relation_words(f.z, f.conditional_z),
                                 t.describe(f.name) if t is not None else ""))
-    rows.sort(key=lambda r: r.contribution if math.isfinite(r.contribution) else 0.0)
-    full = any(f.conditional_z is not None for f in ev)
-    return EvidenceView(result, rows, standing(label, result.flagged, result.log_density), full)
+    return EvidenceView(result, rows, standing(label, result.flagged, result.log_density), result.full_model)
 
 
 # --------------------------------------------------------------------------
