@@ -383,7 +383,7 @@ def _shape_search(session: WorkbenchSession, key: str, values: np.ndarray):
     from ..core.shaping import search_transform
 
     if key not in session._shaped:
-        # The same defaults as afterlook.analysis.shaping.shape (D'Agostino K^2, 5000-row seeded sample).
+        # The same defaults as afterlook.analysis.shape.shape (D'Agostino K^2, 5000-row seeded sample).
         session._shaped[key] = search_transform(values, name=key)
     return session._shaped[key]
 

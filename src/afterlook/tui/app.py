@@ -30,11 +30,11 @@ from .casebook_flow import CasebookFlow
 from .histogram_flow import HistogramFlow
 from .failures import internal_error
 from .screens.help import HelpScreen
-from .screens.workbench import WorkbenchScreen
-from .widgets.candidates import CandidatesPanel
+from .screens.workbench_screen import WorkbenchScreen
+from .widgets.candidates_panel import CandidatesPanel
 from .widgets.case_list import CaseList, context_widths
-from .widgets.evidence import EvidencePanel
-from .widgets.histogram import HistogramPanel
+from .widgets.evidence_panel import EvidencePanel
+from .widgets.histogram_panel import HistogramPanel
 from .widgets.status_line import StatusLine
 from .widgets.try_panel import TryPanel
 
