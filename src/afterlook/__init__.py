@@ -25,7 +25,7 @@ _EXPORTS = {
     "fit": "afterlook.analysis.fitting",
     "misses": "afterlook.analysis.evidence",
     "explain": "afterlook.analysis.evidence",
-    "shape": "afterlook.analysis.shaping",
+    "shape": "afterlook.analysis.shape",
     "suggest": "afterlook.analysis.discovery",
     "try_features": "afterlook.analysis.trial",
     "AfterlookError": "afterlook.core.errors",

@@ -100,3 +100,8 @@ def test_no_module_is_over_about_500_lines():
     long = {module: n for path, module in all_modules()
             if (n := len(path.read_text("utf-8").splitlines())) > 520}
     assert long == {}
+
+
+def test_no_two_modules_share_a_file_name():
+    names = [p.name for p, _ in all_modules() if p.name != "__init__.py"]
+    assert sorted({n for n in names if names.count(n) > 1}) == []

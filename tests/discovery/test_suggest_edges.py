@@ -69,3 +69,28 @@ def test_one_suggest_call_parses_the_model_recipe_once(fleet_factory):
         assert counts[text] == 0, (text, counts[text])
     for c in result.candidates:  # a candidate: parsed in the exact pass, reused by its re-fit
         assert counts[c.expression] == 1, (c.expression, counts[c.expression])
+
+
+def test_one_suggest_call_reads_each_table_s_columns_once(fleet_factory):
+    # Before the session, suggest converted the same columns four times over
+    # (scoring, the raw matrix, the re-fit's preparation, ...); now the cases'
+    # and the normal rows' columns are each read once.
+    from afterlook.analysis import session as session_module
+    from afterlook.analysis.session import as_table
+
+    fitted = fleet_factory("ratio")
+    cases = as_table(fitted.cases)
+    target = str(cases.ids[cases.labels][0])
+    calls = []
+    real = session_module.numeric_columns_of
+
+    def counting(frame, names):
+        calls.append(len(frame))
+        return real(frame, names)
+
+    with mock.patch.object(session_module, "numeric_columns_of", counting):
+        result = suggest(fitted.model, cases, train=fitted.fleet.train, case_ids=[target], top=3, shaping=False)
+    assert result.candidates
+    train = as_table(fitted.fleet.train)
+    n_normal = int((~train.labels).sum()) if train.labels is not None else len(train)
+    assert sorted(calls) == sorted([len(cases), n_normal])

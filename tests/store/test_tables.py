@@ -22,7 +22,7 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
 from afterlook.core.errors import AfterlookError
-from afterlook.store import table_write, tables
+from afterlook.store import table_write
 from afterlook.store.table_stream import iter_numeric_chunks
 from afterlook.store.tables import (
     LABEL_VALUES,

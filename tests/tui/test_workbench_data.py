@@ -1,7 +1,7 @@
 """The numbers the workbench shows (afterlook.analysis.workbench) against the API and naive recomputations.
 
 References: :func:`afterlook.analysis.evidence.misses`, :func:`afterlook.analysis.evidence.explain`,
-:func:`afterlook.analysis.trial.try_features` and :func:`afterlook.analysis.shaping.shape` (the
+:func:`afterlook.analysis.trial.try_features` and :func:`afterlook.analysis.shape.shape` (the
 CLI's functions: a number on the screen must equal the one the CLI prints),
 plus numpy written out here for what those do not cover.
 """

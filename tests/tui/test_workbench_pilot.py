@@ -47,7 +47,7 @@ async def test_main_flow_worst_miss_candidates_apply_flip_and_save(demo, tmp_pat
     app = create_app(demo.model, demo.cases, train_path=demo.train, casebook=book)
 
     stages = []
-    from afterlook.tui.widgets.candidates import CandidatesPanel
+    from afterlook.tui.widgets.candidates_panel import CandidatesPanel
 
     original_progress = CandidatesPanel.progress
     monkeypatch.setattr(CandidatesPanel, "progress",

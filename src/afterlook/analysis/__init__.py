@@ -9,7 +9,7 @@
     evidence.py   misses, explain
     discovery.py  suggest (three passes; the added-column re-fit)
     trial.py      try_features and its before/after comparison
-    shaping.py    shape
+    shape.py      shape
     review.py     review entries, add to a casebook, check a casebook against a model
     report.py     Markdown / self-contained HTML report of a casebook
     wording.py    every word and scale the CLI, the workbench and the report share

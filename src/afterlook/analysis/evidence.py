@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -16,6 +17,7 @@ __all__ = ["Miss", "MissesResult", "misses", "ExplainResult", "explain", "explai
 
 @dataclass
 class Miss:
+    """A labelled anomaly left unflagged: its log-density, margin above the threshold and context."""
     case: str
     log_density: float
     margin: float
@@ -94,6 +96,15 @@ class ExplainResult:
     @property
     def margin(self) -> float:
         return self.log_density - self.threshold
+
+    @property
+    def full_model(self) -> bool:
+        """Whether the evidence has conditional z (a full-covariance model)."""
+        return any(f.conditional_z is not None for f in self.features)
+
+    def features_by_cost(self) -> list[FeatureEvidence]:
+        """The features, largest cost (most negative contribution) first; NaN counts as 0, ties keep recipe order."""
+        return sorted(self.features, key=lambda f: f.contribution if math.isfinite(f.contribution) else 0.0)
 
     def to_dict(self) -> dict:
         ld = self.log_density if np.isfinite(self.log_density) else None

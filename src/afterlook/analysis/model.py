@@ -71,6 +71,7 @@ class Model:
         return self.recipe.features
 
     def feature_matrix(self, columns: Mapping[str, np.ndarray] | pd.DataFrame) -> FeatureMatrix:
+        """Model features of ``columns`` (a DataFrame or a name -> array mapping) after the recipe."""
         return self.recipe.apply(_columns_of(columns))
 
     def log_density(self, columns: Mapping[str, np.ndarray] | pd.DataFrame) -> np.ndarray:
@@ -159,6 +160,7 @@ class Model:
         )
 
     def describe_kind(self) -> str:
+        """The model kind in words, e.g. "full, robust" or "full, shrinkage 0.12"."""
         parts = [self.kind]
         if self.density.robust:
             parts.append("robust")

@@ -74,6 +74,7 @@ Clock = Callable[[], datetime]
 
 
 def utc_now() -> datetime:
+    """The current time in UTC (the default clock of a review)."""
     return datetime.now(timezone.utc)
 
 

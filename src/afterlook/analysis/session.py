@@ -104,6 +104,7 @@ class ScoredCases:
         return self.log_density - self.model.threshold
 
     def confusion(self) -> Confusion:
+        """Confusion counts of the flags against the labels (one-line error without labels)."""
         if self.labels is None:
             raise AfterlookError(f"{table_name(self.table)} has no label column (--label-col)")
         return confusion(self.flagged, self.labels)

@@ -146,6 +146,7 @@ def _flip_rows(before: ScoredCases, after: ScoredCases, focus: list[str]) -> lis
 
 @dataclass(frozen=True)
 class MetricChange:
+    """One metric before and after a try, and its change."""
     name: str
     before: float
     after: float
@@ -155,6 +156,7 @@ class MetricChange:
 
 @dataclass(frozen=True)
 class CaseChange:
+    """One case before and after a try: log-densities, flags and the flip in words."""
     case: str
     label: str
     log_density_before: float | None

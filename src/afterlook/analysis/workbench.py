@@ -135,6 +135,7 @@ class StatusSummary:
 
 
 def status_summary(session: WorkbenchSession) -> StatusSummary:
+    """The numbers of the status line (all from the model and the session's misses)."""
     m: Confusion = session.missed.metrics
     model = session.model
     return StatusSummary(
@@ -284,15 +285,13 @@ def case_evidence(session: WorkbenchSession, case_id: str) -> EvidenceView:
     total = float(np.nansum(contributions))
     raw = session.scope("cases")
     rows = []
-    for f in ev:
+    for f in result.features_by_cost():
         share = 100.0 * f.contribution / total if total != 0 and math.isfinite(f.contribution) else math.nan
         t = model.recipe.transforms.get(f.name)
         rows.append(EvidenceRow(f.name, f.value, float(raw[f.name][i]), f.z, f.percentile, f.contribution, share, f.conditional_z,
                                 reading(f.z), relation_words(f.z, f.conditional_z),
                                 t.describe(f.name) if t is not None else ""))
-    rows.sort(key=lambda r: r.contribution if math.isfinite(r.contribution) else 0.0)
-    full = any(f.conditional_z is not None for f in ev)
-    return EvidenceView(result, rows, standing(label, result.flagged, result.log_density), full)
+    return EvidenceView(result, rows, standing(label, result.flagged, result.log_density), result.full_model)
 
 
 # --------------------------------------------------------------------------
@@ -384,7 +383,7 @@ def _shape_search(session: WorkbenchSession, key: str, values: np.ndarray):
     from ..core.shaping import search_transform
 
     if key not in session._shaped:
-        # The same defaults as afterlook.analysis.shaping.shape (D'Agostino K^2, 5000-row seeded sample).
+        # The same defaults as afterlook.analysis.shape.shape (D'Agostino K^2, 5000-row seeded sample).
         session._shaped[key] = search_transform(values, name=key)
     return session._shaped[key]
 

@@ -206,33 +206,26 @@ def cmd_score(args) -> int:
 
 def cmd_misses(args) -> int:
     from ..analysis.evidence import misses
-    from ..analysis.model import load_model
-    from ..store.tables import load_table
+    from .inputs import open_session
 
-    model = load_model(args.model)
-    cases = load_table(args.cases, id_col=args.id_col, label_col=args.label_col, require_labels=True)
-    result = misses(model, cases)
+    session = open_session(args)
+    result = misses(session)
     warn(result.warnings)
-    if args.json:
-        emit_json(result.to_dict())
-        return EXIT_OK
-    from . import render
-
-    out = render.console()
-    out.print(render.model_line(model, args.model))
-    out.print(render.misses_table(result, limit=args.limit))
-    return EXIT_OK
+    return _show(args, session.model, result, lambda render: render.misses_table(result, limit=args.limit))
 
 
 def cmd_explain(args) -> int:
     from ..analysis.evidence import explain
-    from ..analysis.model import load_model
-    from ..store.tables import load_table
+    from .inputs import open_session
 
-    model = load_model(args.model)
-    cases = load_table(args.cases, id_col=args.id_col, label_col=args.label_col)
-    result = explain(model, cases, args.case_id)
-    warn(cases.warnings)
+    session = open_session(args, require_labels=False)
+    result = explain(session, args.case_id)
+    warn(session.cases.warnings)
+    return _show(args, session.model, result, lambda render: render.explain_table(result))
+
+
+def _show(args, model, result, table) -> int:
+    """``--json``: the result's document; otherwise the model line and ``table(render)``."""
     if args.json:
         emit_json(result.to_dict())
         return EXIT_OK
@@ -240,7 +233,7 @@ def cmd_explain(args) -> int:
 
     out = render.console()
     out.print(render.model_line(model, args.model))
-    out.print(render.explain_table(result))
+    out.print(table(render))
     return EXIT_OK
 
 

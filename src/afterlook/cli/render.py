@@ -115,7 +115,7 @@ def explain_table(result: ExplainResult) -> Group:
     if math.isfinite(result.log_density):
         head.append(f" (margin {result.margin:+.3f})")
     ctx = "  ".join(f"{k}: {v}" for k, v in result.context.items() if v)
-    full = any(f.conditional_z is not None for f in result.features)
+    full = result.full_model
     table = Table(box=box.SIMPLE_HEAD, show_edge=False)
     table.add_column("feature", no_wrap=True, overflow="ellipsis", max_width=20)
     table.add_column("value", justify="right", no_wrap=True)
@@ -125,7 +125,7 @@ def explain_table(result: ExplainResult) -> Group:
     table.add_column("contrib", justify="right", no_wrap=True)
     if full:
         table.add_column("cond z", justify="right", no_wrap=True)
-    order = sorted(result.features, key=lambda f: (f.contribution if math.isfinite(f.contribution) else 0.0))
+    order = result.features_by_cost()
     broken = False
     for f in order:
         row = [f.name, _short_num(f.value), z_bar(f.z), f"{f.z:+.2f}", fmt(f.percentile, 1), f"{f.contribution:.2f}"]

@@ -69,7 +69,7 @@ def _short_transform(result) -> str:
 
 
 def run(args) -> int:
-    from ..analysis.shaping import shape
+    from ..analysis.shape import shape
     from ..store.tables import load_table
     from .render import console
 
@@ -85,7 +85,7 @@ def run(args) -> int:
     from rich.text import Text
 
     from ..core.shaping import STATISTIC_LABELS
-    from .histogram import side_by_side
+    from .text_histogram import side_by_side
 
     out = console()
     stat_label = STATISTIC_LABELS[report.statistic]

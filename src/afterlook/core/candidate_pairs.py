@@ -23,6 +23,7 @@ __all__ = ["Group", "Moments", "moments", "difference_and_product_groups", "rati
 
 @dataclass
 class Group:
+    """One kind of candidate over many pairs: means and variances over the normal rows, values on the targets."""
     kind: str
     i: np.ndarray
     j: np.ndarray
@@ -65,6 +66,7 @@ class Moments:
 
 
 def moments(names, sample, targets) -> Moments:
+    """Means, standard deviations, correlations and scaled columns of the normal sample, and the pairs to try."""
     A = np.column_stack([np.asarray(sample[n], dtype=np.float64) for n in names])
     T = np.atleast_2d(np.asarray(targets, dtype=np.float64))
     n, d = A.shape

@@ -65,6 +65,7 @@ def percentile_from_grid(grid_column: np.ndarray, value: float) -> float:
 
 @dataclass(frozen=True)
 class FeatureEvidence:
+    """The evidence of one feature for one case (see the module docstring for each number)."""
     name: str
     value: float
     z: float

@@ -60,10 +60,12 @@ class SufficientStats:
 
     @classmethod
     def empty(cls, d: int) -> "SufficientStats":
+        """Statistics of no rows (the identity of :meth:`merge`)."""
         return cls(0, np.zeros(d), np.zeros((d, d)))
 
     @classmethod
     def of(cls, X: np.ndarray) -> "SufficientStats":
+        """Statistics of the rows of ``X`` (n, d)."""
         X = np.asarray(X, dtype=np.float64)
         n = X.shape[0]
         if n == 0:
@@ -73,6 +75,7 @@ class SufficientStats:
         return cls(n, mean, Xc.T @ Xc)
 
     def merge(self, other: "SufficientStats") -> "SufficientStats":
+        """Statistics of both row sets (Chan, Golub and LeVeque's pairwise update)."""
         if other.n == 0:
             return self
         if self.n == 0:

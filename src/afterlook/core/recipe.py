@@ -106,6 +106,7 @@ def parse_transform(feature: str, text: str) -> Transform:
 
 
 def apply_transform(t: Transform, feature: str, values: np.ndarray) -> np.ndarray:
+    """The transform ``t`` of ``feature`` applied to its values (non-finite results are NaN)."""
     values = np.asarray(values, dtype=np.float64)
     # An infinite reading is a broken sensor, not a value: never let a power
     # transform map it to a finite number (lambda < 0 would give -1/lambda).
@@ -156,6 +157,7 @@ class FeatureMatrix:
         return np.all(np.isfinite(self.values), axis=1)
 
     def column(self, name: str) -> np.ndarray:
+        """The values of one feature, by name."""
         return self.values[:, self.names.index(name)]
 
 
@@ -211,9 +213,14 @@ class Recipe:
         return need
 
     def with_derived(self, extra: list[tuple[str, str]]) -> "Recipe":
+        """A new recipe with ``extra`` (name, expression) pairs appended to the derived features."""
         return Recipe(self.base, self.derived + list(extra), dict(self.transforms))
 
     def raw_features(self, columns: Mapping[str, np.ndarray]) -> dict[str, np.ndarray]:
+        """Base columns and derived features by name, before any transform.
+
+        ``columns`` maps raw table column names to arrays; a derived feature may
+        read earlier derived features and any column of ``columns``."""
         env: dict[str, np.ndarray] = {}
         for name in self.base:
             if name not in columns:

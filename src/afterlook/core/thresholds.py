@@ -100,6 +100,7 @@ def flag(log_density: np.ndarray, threshold: float) -> np.ndarray:
 
 
 def confusion(flagged: np.ndarray, is_anomaly: np.ndarray) -> Confusion:
+    """Counts and rates of ``flagged`` against the labels ``is_anomaly`` (True = anomaly)."""
     flagged = np.asarray(flagged, dtype=bool)
     is_anomaly = np.asarray(is_anomaly, dtype=bool)
     tp = int(np.sum(flagged & is_anomaly))

@@ -116,10 +116,12 @@ def raw_chunks_to_features(recipe: Recipe, raw_names: list[str]) -> Callable[[np
 
 
 def needs_fitted_lambda(recipe: Recipe) -> bool:
+    """Whether a transform of the recipe still needs its lambda (fitted from the seeded sample)."""
     return any(t.kind in POWER_KINDS and t.lmbda is None for t in recipe.transforms.values())
 
 
 def stream(chunks: Iterable[np.ndarray], convert, names, sample_size, random_state) -> StreamedTraining:
+    """Accumulate chunks of raw rows (converted to features) into streamed training statistics."""
     acc = Accumulator(names, sample_size, random_state)
     for chunk in chunks:
         acc.add(convert(chunk))
@@ -142,6 +144,7 @@ def fit_local(path, recipe: Recipe, *, chunk_rows: int = 262_144, sample_size: i
 
 
 def check_streamable(label_col: str | None, path) -> None:
+    """Refuse a labelled training file for a streamed fit (every row is used)."""
     if label_col is not None:
         raise AfterlookError(
             f"{path} has a label column '{label_col}': a streamed fit uses every row, so keep only normal rows "

@@ -231,6 +231,7 @@ class Casebook:
 
 
 def backup_path(path: str | os.PathLike) -> Path:
+    """Where the previous version of a casebook is kept (``NAME.bak`` beside it)."""
     p = Path(path)
     return p.with_name(p.name + ".bak")
 

@@ -26,13 +26,15 @@ from textual.worker import get_current_worker
 from ..analysis import workbench as wd
 from ..core.errors import AfterlookError
 from . import messages as msg
+from .casebook_flow import CasebookFlow
+from .histogram_flow import HistogramFlow
+from .failures import internal_error
 from .screens.help import HelpScreen
-from .screens.save_case import SaveCaseScreen, SaveRequest
-from .screens.workbench import WorkbenchScreen
-from .widgets.candidates import CandidatesPanel
+from .screens.workbench_screen import WorkbenchScreen
+from .widgets.candidates_panel import CandidatesPanel
 from .widgets.case_list import CaseList, context_widths
-from .widgets.evidence import EvidencePanel
-from .widgets.histogram import HistogramPanel
+from .widgets.evidence_panel import EvidencePanel
+from .widgets.histogram_panel import HistogramPanel
 from .widgets.status_line import StatusLine
 from .widgets.try_panel import TryPanel
 
@@ -60,7 +62,7 @@ class _Stale(Exception):
     """Raised inside a worker's progress callback once the worker was cancelled."""
 
 
-class WorkbenchApp(App[int]):
+class WorkbenchApp(CasebookFlow, HistogramFlow, App[int]):
     CSS_PATH = "app.tcss"
     TITLE = "afterlook"
     ENABLE_COMMAND_PALETTE = False
@@ -320,7 +322,7 @@ class WorkbenchApp(App[int]):
                 self.post_message(msg.WorkFailed("candidates", exc.message, case_id))
             return
         except Exception as exc:  # a bug, not bad input: say so, keep the workbench alive
-            self.post_message(msg.WorkFailed("candidates", _internal(exc), case_id))
+            self.post_message(msg.WorkFailed("candidates", internal_error(exc), case_id))
             return
         if not worker.is_cancelled:
             self.post_message(msg.CandidatesReady(case_id, result))
@@ -412,7 +414,7 @@ class WorkbenchApp(App[int]):
                 self.post_message(msg.WorkFailed("try", exc.message, case_id))
             return
         except Exception as exc:
-            self.post_message(msg.WorkFailed("try", _internal(exc), case_id))
+            self.post_message(msg.WorkFailed("try", internal_error(exc), case_id))
             return
         if not worker.is_cancelled:
             self.post_message(msg.TrialReady(case_id, label, result, view))
@@ -430,154 +432,6 @@ class WorkbenchApp(App[int]):
         if c is not None:
             self.notify(f"{c.case}: {c.words}; misses caught {message.view.misses_caught}, false alarms added "
                         f"{message.view.false_alarms_added:+d}", title="try")
-
-    # -- histogram ---------------------------------------------------------------------
-    def action_histogram(self) -> None:
-        source = None
-        result = self.candidates.get(self.selected_case)
-        focused = self.focused
-        panel = self.candidates_panel
-        in_candidates = focused is not None and panel is not None and panel in focused.ancestors_with_self
-        if in_candidates and result is not None and result.candidates:
-            c = result.candidates[min(self.candidate_index, len(result.candidates) - 1)]
-            source = wd.HistogramSource("candidate", c.name, c.expression)
-        elif self.feature is not None:
-            source = wd.HistogramSource("feature", self.feature)
-        if source is not None:
-            self.hist_source = source
-        self.tabs.active = "histogram"
-        self.request_histogram()
-
-    def action_toggle_shaped(self) -> None:
-        self.hist_shaped = not self.hist_shaped
-        self.tabs.active = "histogram"
-        self.request_histogram()
-
-    def action_histogram_step(self, step: int) -> None:
-        sources = wd.histogram_sources(self.session, self.candidates.get(self.selected_case))
-        here = sources.index(self.hist_source) if self.hist_source in sources else -1
-        self.hist_source = sources[(here + step) % len(sources)]
-        self.tabs.active = "histogram"
-        self.request_histogram()
-
-    def on_histogram_step(self, message: msg.HistogramStep) -> None:
-        self.action_histogram_step(message.step)
-
-    def on_histogram_shaped_toggled(self, _: msg.HistogramShapedToggled) -> None:
-        self.action_toggle_shaped()
-
-    def on_histogram_resized(self, message: msg.HistogramResized) -> None:
-        h = self.histogram
-        if self.tabs.active == "histogram" and h is not None and h.counts.bins != message.bins:
-            self.request_histogram()
-
-    def _ensure_histogram(self) -> None:
-        h = self.histogram
-        if h is None or h.case != self.selected_case or h.source != self.hist_source or h.shaped != self.hist_shaped:
-            self.request_histogram()
-
-    def request_histogram(self) -> None:
-        case = self.selected_case
-        if case is None or self.tabs.active != "histogram":
-            return
-        panel = self.histogram_panel
-        if panel is None:  # not mounted yet: on_panel_mounted asks again
-            return
-        if panel.size.width == 0:  # its tab has just opened: ask again once it is laid out
-            self.call_after_refresh(self.request_histogram)
-            return
-        if self.hist_source is None:
-            self.hist_source = wd.HistogramSource("feature", self.feature or self.session.model.features[0])
-        panel.loading(self.hist_source.label)
-        self.run_histogram(self.hist_source, case, self.hist_shaped, panel.bins)
-
-    @work(thread=True, exclusive=True, group="histogram")
-    def run_histogram(self, source: wd.HistogramSource, case_id: str, shaped: bool, bins: int) -> None:
-        worker = get_current_worker()
-        try:
-            view = wd.histogram_view(self.session, source, case_id, shaped=shaped, bins=bins)
-        except AfterlookError as exc:
-            if not worker.is_cancelled:
-                self.post_message(msg.WorkFailed("histogram", exc.message, case_id))
-            return
-        except Exception as exc:
-            self.post_message(msg.WorkFailed("histogram", _internal(exc), case_id))
-            return
-        if not worker.is_cancelled:
-            self.post_message(msg.HistogramReady(view))
-
-    def on_histogram_ready(self, message: msg.HistogramReady) -> None:
-        v = message.view
-        if v.case == self.selected_case and v.source == self.hist_source and v.shaped == self.hist_shaped:
-            self.histogram = v
-            if self.histogram_panel is not None:
-                self.histogram_panel.show(v)
-
-    # -- casebook --------------------------------------------------------------------
-    @work(thread=True, exclusive=True, group="casebook-read")
-    def load_casebook(self) -> None:
-        try:
-            ids = wd.casebook_case_ids(self.session.casebook_path)
-        except AfterlookError as exc:
-            self.post_message(msg.WorkFailed("casebook", f"{exc.message}; entries are not marked"))
-            return
-        except Exception as exc:
-            self.post_message(msg.WorkFailed("casebook", _internal(exc)))
-            return
-        self.post_message(msg.CasebookLoaded(ids))
-
-    def on_casebook_loaded(self, message: msg.CasebookLoaded) -> None:
-        self.book_ids = set(message.case_ids)
-        self.book_loaded = True
-        self.case_list.mark(book=self.book_ids, flips=self._flips())
-
-    def action_save_case(self) -> None:
-        case = self.selected_case
-        if case is None:
-            self.notify("select a case first", title="casebook", severity="warning")
-            return
-        if self.saving:
-            self.notify("still saving the previous entry", title="casebook", severity="warning")
-            return
-        statuses = wd.casebook_statuses()
-        derive = None
-        status = "open"
-        if self.trial is not None and self.trial_case == case and len(self.trial.derive) == 1:
-            derive = tuple(self.trial.derive[0])
-            c = self.trial_view.case if self.trial_view is not None else None
-            if c is not None and c.flagged_after and not c.flagged_before:
-                status = "explained"
-        screen = SaveCaseScreen(case, os.path.basename(self.session.casebook_path), statuses, status, derive,
-                                already=case in self.book_ids)
-        self.push_screen(screen, callback=lambda request: self._save_requested(case, request))
-
-    def _save_requested(self, case_id: str, request: SaveRequest | None) -> None:
-        # Back to the case list whatever the answer: never leave the focus in
-        # the filter box, where the next key would silently filter the list.
-        self.case_list.focus_table()
-        if request is None:
-            return
-        self.saving = True
-        self.run_save(case_id, request)
-
-    @work(thread=True, exclusive=True, group="casebook")
-    def run_save(self, case_id: str, request: SaveRequest) -> None:
-        try:
-            entry = wd.save_case(self.session, case_id, request.status, note=request.note, derive=request.derive)
-        except AfterlookError as exc:
-            self.post_message(msg.WorkFailed("casebook", exc.message, case_id))
-            return
-        except Exception as exc:  # e.g. the file changed on disk since it was opened: never overwrite silently
-            self.post_message(msg.WorkFailed("casebook", _describe(exc), case_id))
-            return
-        self.post_message(msg.CasebookSaved(case_id, request.status, entry))
-
-    def on_casebook_saved(self, message: msg.CasebookSaved) -> None:
-        self.saving = False
-        self.book_ids.add(message.case_id)
-        self.case_list.mark(book=self.book_ids, flips=self._flips())
-        self.notify(f"saved {message.case_id} as {message.status} to {os.path.basename(self.session.casebook_path)}",
-                    title="casebook")
 
     # -- failures ------------------------------------------------------------------------
     def on_work_failed(self, message: msg.WorkFailed) -> None:
@@ -597,12 +451,3 @@ class WorkbenchApp(App[int]):
                 self.histogram_panel.failed(message.message)
         elif message.what == "casebook":
             self.saving = False
-
-
-def _internal(exc: Exception) -> str:
-    return f"internal error: {type(exc).__name__}: {exc} (please report it)"
-
-
-def _describe(exc: Exception) -> str:
-    text = getattr(exc, "message", None) or str(exc) or type(exc).__name__
-    return " ".join(str(text).split())

@@ -9,6 +9,7 @@ from textual.app import ComposeResult
 from textual.containers import VerticalScroll
 from textual.widgets import Input, Static
 
+from ...analysis.wording import flip_words
 from .. import format as fmt
 from ..messages import ExpressionEdited, ExpressionSubmitted, PanelMounted
 
@@ -112,7 +113,8 @@ class TryPanel(VerticalScroll):
         self.query_one("#trial-case", Static).update(case)
 
         flips = Text()
-        for title, rows in (("now flagged", view.now_flagged), ("no longer flagged", view.no_longer_flagged)):
+        for title, rows in ((flip_words(False, True), view.now_flagged),
+                            (flip_words(True, False), view.no_longer_flagged)):
             n, n_anomaly, n_normal = view.counts(rows)
             flips.append(f"\n{title}: {n} ({n_anomaly} labelled anomaly, {n_normal} labelled normal)", style="bold")
             for r in rows[:FLIPS_SHOWN]:

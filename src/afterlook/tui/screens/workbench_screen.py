@@ -9,10 +9,10 @@ from textual.widgets import Footer, TabbedContent, TabPane
 
 from ..keys import bindings
 from ..messages import WorkbenchReady
-from ..widgets.candidates import CandidatesPanel
+from ..widgets.candidates_panel import CandidatesPanel
 from ..widgets.case_list import CaseList
-from ..widgets.evidence import EvidencePanel
-from ..widgets.histogram import HistogramPanel
+from ..widgets.evidence_panel import EvidencePanel
+from ..widgets.histogram_panel import HistogramPanel
 from ..widgets.status_line import StatusLine
 from ..widgets.try_panel import TryPanel
 
