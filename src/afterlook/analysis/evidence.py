@@ -9,6 +9,8 @@ import numpy as np
 
 from ..core.errors import AfterlookError
 from ..core.explain import FeatureEvidence, evidence
+from ..core.quality import RankingQuality, UnseenValue, ranking_quality, unseen_values
+from ..store.columns import numeric_columns_of
 from ..core.thresholds import Confusion
 from .session import Session, case_context, prepare, table_name
 
@@ -39,6 +41,8 @@ class MissesResult:
     unscored: list[str]
     model_kind: str = ""
     warnings: list[str] = field(default_factory=list)
+    quality: RankingQuality | None = None
+    never_seen: list[UnseenValue] = field(default_factory=list)
 
     def to_dict(self) -> dict:
         return {
@@ -49,6 +53,8 @@ class MissesResult:
             "misses": [m.to_dict() for m in self.misses],
             "metrics": self.metrics.to_dict(),
             "unscored_anomalies": list(self.unscored),
+            "model_quality": self.quality.to_dict() if self.quality is not None else None,
+            "never_seen_in_normal": [u.to_dict() for u in self.never_seen],
         }
 
 
@@ -76,8 +82,21 @@ def misses(model, cases=None) -> MissesResult:
     warnings = list(table.warnings)
     if (~finite).any():
         warnings.append(f"{int((~finite).sum())} case(s) have NaN or infinite features and were not scored")
+    quality = ranking_quality(sc.log_density, y, model.threshold)
+    warnings += quality.warnings()
+    never_seen = never_seen_values(model, table)  # a finding: in the result, not a warning
     return MissesResult(model.threshold, int(len(y)), int(y.sum()), rows, sc.confusion(), unscored,
-                        model.describe_kind(), warnings)
+                        model.describe_kind(), warnings, quality, never_seen)
+
+
+def never_seen_values(model, table) -> list[UnseenValue]:
+    """Columns constant over the model's normal training rows (left out of it) that differ on some cases."""
+    constants = (model.training or {}).get("constant_columns") or {}
+    present = [c for c in constants if c in table.numeric_columns]
+    if not present or table.labels is None:
+        return []
+    cases = numeric_columns_of(table.frame, present)
+    return unseen_values({c: np.array([float(constants[c])]) for c in present}, cases, table.labels)
 
 
 @dataclass

@@ -72,8 +72,9 @@ def fit(
         raise AfterlookError("nothing normal to fit on: every training row is labelled anomaly")
     normal_frame = frame.loc[normal]
 
+    constants: dict[str, float] = {}
     if recipe is None:
-        recipe = _build_recipe(table, normal_frame, columns, derive, transform, warnings)
+        recipe = _build_recipe(table, normal_frame, columns, derive, transform, warnings, constants)
     columns_map = numeric_columns_of(normal_frame, recipe.required_columns())
     # Lambdas are fitted on the rows whose raw inputs are all finite (the
     # rows a streamed fit sees too), so both engines give the same recipe.
@@ -108,6 +109,9 @@ def fit(
         "rows_labelled_anomaly": n_labelled_anomaly,
         "columns": stats,
     }
+    if constants:
+        # left out of the model (zero variance), kept so misses can report values never seen in normal rows
+        training["constant_columns"] = constants
     return Model(recipe=recipe, density=density, threshold=value, policy=policy, threshold_basis=basis,
                  training=training, quantiles=grid, warnings=warnings + list(table.warnings))
 
@@ -163,7 +167,8 @@ def checked_base_columns(table: Table, columns) -> list[str]:
     return base
 
 
-def _build_recipe(table: Table, normal_frame: pd.DataFrame, columns, derive, transform, warnings) -> Recipe:
+def _build_recipe(table: Table, normal_frame: pd.DataFrame, columns, derive, transform, warnings,
+                  constants: dict | None = None) -> Recipe:
     if columns:
         base = checked_base_columns(table, columns)
     else:
@@ -171,8 +176,11 @@ def _build_recipe(table: Table, normal_frame: pd.DataFrame, columns, derive, tra
         values = numeric_columns_of(normal_frame, base)
         constant = [c for c in base if np.nanmin(values[c]) == np.nanmax(values[c])] if len(normal_frame) else []
         if constant:
-            warnings.append(f"left out {len(constant)} constant column(s): {', '.join(constant)}")
+            warnings.append(f"left out {len(constant)} constant column(s): {', '.join(constant)} (a value they "
+                            "take on a case but never in normal rows is reported by misses)")
             base = [c for c in base if c not in constant]
+            if constants is not None:
+                constants.update({c: float(np.nanmin(values[c])) for c in constant})
     derived = derive_pairs(derive)
     if not base and not derived:
         raise AfterlookError("no numeric columns to model")

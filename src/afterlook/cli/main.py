@@ -134,7 +134,13 @@ def cmd_fit(args) -> int:
                                  threshold=args.threshold, columns=args.columns, id_col=args.id_col,
                                  label_col=args.label_col)
     model.save(args.out)
-    warn(model.warnings)
+    quality = None
+    if cases is not None and cases.labels is not None:
+        from ..core.quality import ranking_quality
+
+        scored = Session(model, cases).scored
+        quality = ranking_quality(scored.log_density, cases.labels, model.threshold)
+    warn(model.warnings + (quality.warnings() if quality is not None else []))
     summary = {
         "model": args.out,
         "kind": model.kind,
@@ -145,8 +151,9 @@ def cmd_fit(args) -> int:
         "rows_used": model.training["rows_used"],
         "fingerprint": model.fingerprint(),
     }
-    if cases is not None and cases.labels is not None:
-        summary["metrics"] = Session(model, cases).scored.confusion().to_dict()
+    if quality is not None:
+        summary["metrics"] = scored.confusion().to_dict()
+        summary["model_quality"] = quality.to_dict()
     if args.json:
         emit_json(summary)
         return EXIT_OK
@@ -159,6 +166,9 @@ def cmd_fit(args) -> int:
         m = summary["metrics"]
         out.print(f"on {args.cases}: precision {m['precision']:.3f}, recall {m['recall']:.3f}, F1 {m['f1']:.3f} "
                   f"(tp {m['tp']}, fp {m['fp']}, fn {m['fn']}, tn {m['tn']})")
+        if quality.roc_auc is not None:
+            out.print(f"ranking on {args.cases}: ROC AUC {quality.roc_auc:.3f}, average precision "
+                      f"{quality.average_precision:.3f} (chance: 0.5 and {quality.anomaly_share:.3f})")
     return EXIT_OK
 
 

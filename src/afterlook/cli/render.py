@@ -98,6 +98,13 @@ def misses_table(result: MissesResult, limit: int | None = None, width: int | No
     if result.unscored:
         parts.append(Text(f"{len(result.unscored)} labelled anomaly(ies) could not be scored (NaN features): "
                           + ", ".join(result.unscored[:5]), style="yellow"))
+    q = result.quality
+    if q is not None and q.roc_auc is not None:
+        parts.append(Text(f"ranking on the labelled cases: ROC AUC {q.roc_auc:.3f}, average precision "
+                          f"{q.average_precision:.3f} (chance: 0.5 and {q.anomaly_share:.3f}); the threshold flags "
+                          f"{q.normal_flagged_share:.1%} of the labelled normal cases", style="dim"))
+    for u in result.never_seen:
+        parts.append(Text(u.describe(), style="yellow"))
     if not result.misses:
         parts.append(Text("no misses: every labelled anomaly is flagged", style="green"))
     return Group(*parts)
