@@ -38,6 +38,14 @@ def test_public_suggest_refuses_a_bad_alarm_rate_without_a_raw_value_error(fleet
         afterlook.suggest(fitted.model, fitted.cases, settings=Settings(alarm_rate=2.0))
 
 
+@pytest.mark.parametrize("bad", [{"top": 0}, {"top": "5"}, {"top": 2.0}, {"exact": -1}, {"exact": True}])
+def test_bad_counts_are_refused_at_the_api_edge(fleet_factory, bad):
+    # the CLI refuses --top below 1 the same way
+    fitted = fleet_factory("ratio")
+    with pytest.raises(AfterlookError, match=next(iter(bad))):
+        suggest(fitted.model, fitted.cases, **bad)
+
+
 def test_settings_that_are_not_settings_are_refused(fleet_factory):
     fitted = fleet_factory("ratio")
     with pytest.raises(AfterlookError, match="Settings"):

@@ -114,6 +114,9 @@ def suggest(model, cases, train=None, case_ids=None, top: int = 10, *,
     progress : optional callable(stage: str, fraction: float) for the workbench
     """
     settings = checked_settings(settings)
+    _check_count("top", top, 1)
+    if exact is not None:
+        _check_count("exact", exact, 0)
     session = prepare(model, cases, train)
     labels = session.require_labels("suggest")
     model, table = session.model, session.cases
@@ -233,6 +236,11 @@ def checked_settings(settings: cand.Settings | None) -> cand.Settings:
     if not isinstance(settings, cand.Settings):
         raise AfterlookError(f"settings must be an afterlook Settings, got {type(settings).__name__}")
     return settings.check()
+
+
+def _check_count(name: str, value, low: int) -> None:
+    if isinstance(value, bool) or not isinstance(value, (int, np.integer)) or value < low:
+        raise AfterlookError(f"{name} must be a whole number of at least {low}, got {value!r}")
 
 
 def _targets(session: Session, case_ids, miss_mask: np.ndarray) -> tuple[list[int], list[str]]:
