@@ -43,6 +43,8 @@ class MissesResult:
     warnings: list[str] = field(default_factory=list)
     quality: RankingQuality | None = None
     never_seen: list[UnseenValue] = field(default_factory=list)
+    outside_domain_anomalies: list[str] = field(default_factory=list)
+    outside_domain_normals: list[str] = field(default_factory=list)
 
     def to_dict(self) -> dict:
         return {
@@ -53,6 +55,8 @@ class MissesResult:
             "misses": [m.to_dict() for m in self.misses],
             "metrics": self.metrics.to_dict(),
             "unscored_anomalies": list(self.unscored),
+            "outside_domain": {"anomalies": list(self.outside_domain_anomalies),
+                               "normal_cases": list(self.outside_domain_normals)},
             "model_quality": self.quality.to_dict() if self.quality is not None else None,
             "never_seen_in_normal": [u.to_dict() for u in self.never_seen],
         }
@@ -73,7 +77,7 @@ def misses(model, cases=None) -> MissesResult:
     if table.labels is None:
         raise AfterlookError(f"{table_name(table)} has no label column; misses need labelled cases (--label-col)")
     y = table.labels
-    finite = np.isfinite(sc.log_density)
+    finite = ~np.isnan(sc.log_density)  # scored; -inf (outside a feature's domain) is scored and flagged
     is_miss = y & ~sc.flagged & finite
     idx = np.flatnonzero(is_miss)
     idx = idx[np.argsort(-sc.margin[idx], kind="mergesort")]
@@ -81,12 +85,19 @@ def misses(model, cases=None) -> MissesResult:
     unscored = [str(table.ids[i]) for i in np.flatnonzero(y & ~finite)]
     warnings = list(table.warnings)
     if (~finite).any():
-        warnings.append(f"{int((~finite).sum())} case(s) have NaN or infinite features and were not scored")
+        warnings.append(f"{int((~finite).sum())} case(s) have a missing or infinite reading and were not scored")
+    domain = sc.domain_ids()
+    if domain:
+        how = ("flagged as outside the feature's domain" if model.undefined == "flag"
+               else "left unscored (the model's undefined-value policy is skip)")
+        warnings.append(f"{len(domain)} case(s) have a feature that is undefined on finite readings (e.g. a zero "
+                        f"divisor or the log of a non-positive value): {how}")
     quality = ranking_quality(sc.log_density, y, model.threshold)
     warnings += quality.warnings()
     never_seen = never_seen_values(model, table)  # a finding: in the result, not a warning
     return MissesResult(model.threshold, int(len(y)), int(y.sum()), rows, sc.confusion(), unscored,
-                        model.describe_kind(), warnings, quality, never_seen)
+                        model.describe_kind(), warnings, quality, never_seen,
+                        sc.domain_ids(labelled=True), sc.domain_ids(labelled=False))
 
 
 def never_seen_values(model, table) -> list[UnseenValue]:

@@ -64,6 +64,9 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--transform", action="append", default=[], metavar="COL=EXPR",
                    help="per-feature transform: an expression over COL, boxcox, yeojohnson, boxcox(0.3) (repeatable)")
     p.add_argument("--threshold", help="f1 | rate:R | value:V (default f1 with labelled cases, else rate:0.01)")
+    p.add_argument("--undefined", choices=("flag", "skip"), default="flag",
+                   help="a case whose feature is undefined on finite readings (a zero divisor, a log of a "
+                        "non-positive value): flag it as outside the feature's domain (default) or leave it unscored")
     p.add_argument("--engine", default="memory",
                    help="memory (default), chunked (files larger than memory) or dask (a Dask cluster)")
     p.add_argument("--scheduler", metavar="ADDRESS", help="Dask scheduler address for --engine dask (default: a local cluster)")
@@ -120,7 +123,8 @@ def cmd_fit(args) -> int:
             raise AfterlookError("--scheduler needs --engine dask")
         train = load_table(args.train, id_col=args.id_col, label_col=args.label_col)
         model = fitting.fit(train, cases=cases, kind=args.kind, robust=args.robust, shrinkage=args.shrinkage,
-                        derive=derive, transform=transform, threshold=args.threshold, columns=args.columns)
+                            derive=derive, transform=transform, threshold=args.threshold, columns=args.columns,
+                            undefined=args.undefined)
     else:
         if args.engine not in ("chunked", "dask"):
             raise AfterlookError(f"unknown --engine '{args.engine}' (choose: memory, chunked, dask)")
@@ -132,7 +136,7 @@ def cmd_fit(args) -> int:
                                  chunk_rows=args.chunk_rows, cases=cases, kind=args.kind,
                                      shrinkage=args.shrinkage, derive=derive, transform=transform,
                                  threshold=args.threshold, columns=args.columns, id_col=args.id_col,
-                                 label_col=args.label_col)
+                                 label_col=args.label_col, undefined=args.undefined)
     model.save(args.out)
     quality = None
     if cases is not None and cases.labels is not None:
