@@ -8,7 +8,8 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from ..core.errors import AfterlookError
-from ..core.explain import FeatureEvidence, evidence
+from ..core.explain import FeatureEvidence, evidence, transform_direction
+from ..core.recipe import apply_transform
 from ..core.quality import RankingQuality, UnseenValue, ranking_quality, unseen_values
 from ..store.columns import numeric_columns_of
 from ..core.thresholds import Confusion
@@ -161,12 +162,28 @@ def explain(model, cases, case_id=None) -> ExplainResult:
     return explain_case(prepare(model, cases), case_id)
 
 
+def oriented_to_readings(model, ev: list[FeatureEvidence], raw: dict, i: int) -> list[FeatureEvidence]:
+    """Each feature's evidence with its reading (before the transform) and the transform's direction there."""
+    from dataclasses import replace
+
+    out = []
+    for f in ev:
+        reading = float(raw[f.name][i]) if f.name in raw else None
+        t = model.recipe.transforms.get(f.name)
+        direction = 1
+        if t is not None and reading is not None:
+            direction = transform_direction(lambda v, t=t, n=f.name: apply_transform(t, n, v), reading)
+        out.append(replace(f, reading=reading, direction=direction))
+    return out
+
+
 def explain_case(session: Session, case_id) -> ExplainResult:
     """:func:`explain` on a prepared session (the cases are not scored again)."""
     model = session.model
     sc = session.scored
     i = session.row(case_id)
     ev = evidence(model.density, sc.features[i], model.quantiles)
+    ev = oriented_to_readings(model, ev, session.raw_features("cases"), i)
     label = None if sc.labels is None else bool(sc.labels[i])
     return ExplainResult(str(sc.table.ids[i]), float(sc.log_density[i]), model.threshold, ev,
                          bool(sc.flagged[i]), label, case_context(sc.table, i), model.describe_kind())
