@@ -129,6 +129,9 @@ class StatusSummary:
     f1: float
     n_unscored: int
     casebook_file: str
+    roc_auc: float | None = None  # ranking quality of -log_density on the labelled cases (misses' numbers)
+    average_precision: float | None = None
+    warnings: tuple[str, ...] = ()  # the model itself may be the problem (AUC < 0.5, most normals flagged)
 
     def to_dict(self) -> dict:
         return dict(self.__dict__)
@@ -154,6 +157,9 @@ def status_summary(session: WorkbenchSession) -> StatusSummary:
         f1=m.f1,
         n_unscored=len(session.missed.unscored),
         casebook_file=os.path.basename(session.casebook_path),
+        roc_auc=None if session.missed.quality is None else session.missed.quality.roc_auc,
+        average_precision=None if session.missed.quality is None else session.missed.quality.average_precision,
+        warnings=tuple(session.missed.quality.warnings()) if session.missed.quality is not None else (),
     )
 
 
