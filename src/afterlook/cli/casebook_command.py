@@ -6,8 +6,6 @@ The entry is built by :mod:`afterlook.analysis.review`, the file is handled by
 
 from __future__ import annotations
 
-import json
-import os
 import sys
 from pathlib import Path
 
@@ -60,6 +58,7 @@ def register(sub, add_common, add_table_opts, caution) -> dict:
     a.add_argument("book", metavar="BOOK")
     a.add_argument("--format", choices=("md", "html"), help="md or html (default: from --out's extension, else md)")
     a.add_argument("--out", metavar="FILE", help="write the report here (default: stdout)")
+    a.add_argument("--force", action="store_true", help="replace an existing casebook report at --out")
     a.add_argument("--title", help="report title (default: from the book's file name)")
     add_common(a)
 
@@ -250,9 +249,12 @@ def run_report(args) -> int:
     fmt = args.format
     if fmt is None:
         fmt = "html" if args.out and Path(args.out).suffix.lower() in (".html", ".htm") else "md"
-    book = Casebook.open(args.book, create=False)
     if args.out:
-        _refuse_overwriting_a_book(Path(args.out), book.path)
+        from ..store.casebook_file import backup_path
+        from ..store.outputs import check_output
+
+        check_output(args.out, kind="report", inputs=[args.book, backup_path(Path(args.book))], force=args.force)
+    book = Casebook.open(args.book, create=False)
     text = (report.render_html if fmt == "html" else report.render_markdown)(book, title=args.title)
     if args.out:
         write_bytes_atomic(args.out, text.encode("utf-8"))
@@ -267,25 +269,6 @@ def run_report(args) -> int:
     else:
         sys.stdout.write(text)
     return EXIT_OK
-
-
-def _refuse_overwriting_a_book(out: Path, book: Path) -> None:
-    """A report must never replace a casebook (this one, its backup, or any other), nor a model file."""
-    from ..store.casebook_file import FORMAT, backup_path
-
-    for protected in (book, backup_path(book)):
-        if out.exists() and protected.exists() and os.path.samefile(out, protected):
-            raise AfterlookError(f"--out {out} is the casebook (or its backup) itself; choose another file")
-    if out.is_file():
-        try:
-            doc = json.loads(out.read_bytes().decode("utf-8"))
-        except (OSError, ValueError):
-            return  # not JSON (or unreadable; the write will say so): not a casebook
-        kind = doc.get("format") if isinstance(doc, dict) else None
-        if kind == FORMAT:
-            raise AfterlookError(f"--out {out} is an afterlook casebook; a report will not overwrite it")
-        if isinstance(kind, str) and kind.startswith("afterlook-"):
-            raise AfterlookError(f"--out {out} is an afterlook file ({kind}); a report will not overwrite it")
 
 
 # --------------------------------------------------------------------------

@@ -15,7 +15,7 @@ from .. import _version
 from ..cautions import CAUTION
 from ..core.errors import EXIT_BAD_INPUT, EXIT_CHECK_FAILED, EXIT_INTERNAL, EXIT_INTERRUPTED, EXIT_OK, AfterlookError
 from ..core.numbers import finite_or_none
-from ..store.atomic import check_writable
+from ..store.outputs import check_output
 from .output import emit_json, error_line, warn
 
 
@@ -55,6 +55,7 @@ def build_parser() -> argparse.ArgumentParser:
     p = sub.add_parser("fit", help="fit a model on the normal rows of a table", epilog=CAUTION)
     p.add_argument("train", metavar="TRAIN", help="training table (CSV or Parquet)")
     p.add_argument("--out", required=True, metavar="MODEL", help="model file to write (JSON)")
+    p.add_argument("--force", action="store_true", help="replace an existing afterlook model file at --out")
     p.add_argument("--cases", metavar="CASES", help="labelled cases on which to pick the threshold")
     p.add_argument("--kind", default="full", help="independent or full (default full)")
     p.add_argument("--robust", action="store_true", help="minimum covariance determinant fit (resists masking)")
@@ -75,6 +76,7 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("model", metavar="MODEL")
     p.add_argument("data", metavar="DATA")
     p.add_argument("--out", metavar="FILE", help="write the scored table (CSV or Parquet by extension)")
+    p.add_argument("--force", action="store_true", help="replace an existing table scored by afterlook at --out")
     _add_table_opts(p)
     _add_common(p)
 
@@ -113,7 +115,7 @@ def cmd_fit(args) -> int:
 
     derive = [parse_assignment(d, "--derive") for d in args.derive]
     transform = [parse_assignment(t, "--transform") for t in args.transform]
-    check_writable(args.out)
+    check_output(args.out, kind="model", inputs=[args.train, args.cases], force=args.force)
     cases = load_table(args.cases, id_col=args.id_col, label_col=args.label_col, require_labels=True) if args.cases else None
     if args.engine == "memory":
         if args.scheduler:
@@ -176,10 +178,10 @@ def cmd_score(args) -> int:
     from ..analysis.model import load_model
     from ..store.tables import load_table
 
+    if args.out:
+        check_output(args.out, kind="table", inputs=[args.model, args.data], force=args.force)
     model = load_model(args.model)
     table = load_table(args.data, id_col=args.id_col, label_col=args.label_col)
-    if args.out:
-        check_writable(args.out)
     scored = model.score(table.frame)
     warn(table.warnings)
     n_bad = int(scored["log_density"].isna().sum())
