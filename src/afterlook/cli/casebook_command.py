@@ -10,6 +10,7 @@ import sys
 from pathlib import Path
 
 from ..core.errors import AfterlookError
+from ..core.printable import printable, printable_lines
 from ..core.errors import EXIT_CHECK_FAILED, EXIT_OK
 from .output import emit_json, warn
 
@@ -156,10 +157,10 @@ def run_list(args) -> int:
     table = Table(box=box.SIMPLE_HEAD, show_edge=False, pad_edge=False)
     # Feature, reviewer and date become columns only when every column fits whole.
     rows = [_list_row(e) for e in entries]
-    cols = [[r["case"] or "" for r in rows], [r["status"] or "" for r in rows],
-            [r["deciding_feature"] or "n/a" for r in rows], [_versus(e.get("before")) for e in entries],
-            [_versus(e.get("after")) for e in entries], [r["reviewer"] or "" for r in rows],
-            [r["updated"] or "" for r in rows]]
+    cols = [[printable(r["case"] or "") for r in rows], [printable(r["status"] or "") for r in rows],
+            [printable(r["deciding_feature"] or "n/a") for r in rows], [_versus(e.get("before")) for e in entries],
+            [_versus(e.get("after")) for e in entries], [printable(r["reviewer"] or "") for r in rows],
+            [printable(r["updated"] or "") for r in rows]]
     heads = ["case", "status", "deciding feature", "before", "after", "reviewer", "updated"]
     need = sum(max([len(h)] + [len(v) for v in col]) + 3 for h, col in zip(heads, cols))
     wide = need <= out.width
@@ -174,12 +175,12 @@ def run_list(args) -> int:
         table.add_column("updated", no_wrap=True)
     for e in entries:
         row = _list_row(e)
-        cells = [Text(row["case"]), Text(row["status"], style=_STATUS_STYLE.get(row["status"], ""))]
+        cells = [_plain(row["case"]), _plain(row["status"], style=_STATUS_STYLE.get(row["status"], ""))]
         if wide:
-            cells.append(Text(row["deciding_feature"] or "n/a"))
+            cells.append(_plain(row["deciding_feature"] or "n/a"))
         cells += [Text(_versus(e.get("before"))), Text(_versus(e.get("after")))]
         if wide:
-            cells += [Text(row["reviewer"] or ""), Text(row["updated"] or "")]
+            cells += [_plain(row["reviewer"] or ""), _plain(row["updated"] or "")]
         table.add_row(*cells)
     if not wide:
         features = Text("deciding feature: ", style="dim")
@@ -191,6 +192,13 @@ def run_list(args) -> int:
         out.print(features)
     out.print(Text("log-density vs threshold: '<' flagged, '>=' unflagged", style="dim"))
     return EXIT_OK
+
+
+def _plain(value, style: str = "") -> "Text":
+    """Data from the book as a Rich Text cell: never markup, every control character escaped."""
+    from rich.text import Text
+
+    return Text(printable("" if value is None else value), style=style)
 
 
 _STATUS_STYLE = {"explained": "green", "needs-signal": "yellow", "label-disputed": "magenta",
@@ -265,9 +273,9 @@ def run_report(args) -> int:
         emit_json(doc)
         return EXIT_OK
     if args.out:
-        print(f"wrote {args.out} ({fmt}, {len(book.entries)} case(s))")
+        print(printable(f"wrote {args.out} ({fmt}, {len(book.entries)} case(s))"))
     else:
-        sys.stdout.write(text)
+        sys.stdout.write(printable_lines(text))
     return EXIT_OK
 
 
@@ -304,7 +312,7 @@ def run_check(args) -> int:
     for d in result.details:
         verdict = Text("regressed", style="bold red") if d["regressed"] else Text("ok", style="green")
         where = " (from snapshot)" if d["source"] == "snapshot" else ""
-        table.add_row(Text(d["case"]), Text(str(d["status"])), _fmt(d["log_density"]), _fmt(d["threshold"]),
+        table.add_row(_plain(d["case"]), _plain(d["status"]), _fmt(d["log_density"]), _fmt(d["threshold"]),
                       Text(("flagged" if d["flagged"] else "unflagged") + where), verdict)
     out.print(table)
     if result.ok:

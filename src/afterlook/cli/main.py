@@ -15,6 +15,7 @@ from .. import _version
 from ..cautions import CAUTION
 from ..core.errors import EXIT_BAD_INPUT, EXIT_CHECK_FAILED, EXIT_INTERNAL, EXIT_INTERRUPTED, EXIT_OK, AfterlookError
 from ..core.numbers import finite_or_none
+from ..core.printable import printable, printable_lines
 from ..store.outputs import check_output
 from .output import emit_json, error_line, warn
 
@@ -210,9 +211,11 @@ def cmd_score(args) -> int:
         return EXIT_OK
     if not args.out:
         cols = ([table.id_col] if table.id_col else []) + ["log_density", "flagged"]
-        sys.stdout.write(scored[cols].to_csv(index=table.id_col is None))
+        # The terminal view: control characters in ids are escaped; --out and --json keep them exact.
+        sys.stdout.write(printable_lines(scored[cols].to_csv(index=table.id_col is None)))
     else:
-        print(f"wrote {args.out}: {doc['n_rows']} rows, {doc['n_flagged']} flagged (threshold {model.threshold:.6g})")
+        print(printable(f"wrote {args.out}: {doc['n_rows']} rows, {doc['n_flagged']} flagged "
+                        f"(threshold {model.threshold:.6g})"))
     return EXIT_OK
 
 

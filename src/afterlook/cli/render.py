@@ -6,11 +6,13 @@ import math
 
 from rich import box
 from rich.console import Console, Group
+from rich.segment import Segment
 from rich.table import Table
 from rich.text import Text
 
 from ..analysis.evidence import ExplainResult, MissesResult
 from ..analysis.model import Model
+from ..core.printable import printable
 from ..analysis.wording import BAR_FULL_SCALE, RELATION_RULE, bar_cells, relation_broken
 
 BAR_HALF = 5  # characters each side of zero in a z bar
@@ -167,5 +169,29 @@ def _relation_mark(z: float, cz: float | None) -> str:
     return "!" if relation_broken(z, cz) else " "
 
 
+class PlainConsole(Console):
+    """A Console that never reads data as markup and never lets a control character through.
+
+    Strings are plain text (``markup=False``, ``emoji=False``: a case id
+    ``[bold]x[/]`` or ``:fire:`` shows as written), and every segment of text
+    is made printable just before it is written (:func:`afterlook.core.printable.printable`),
+    whether it came in as a ``str``, a ``Text`` or inside a table or Markdown.
+    Rich's own control segments (cursor moves, hyperlinks it was asked for)
+    are left alone; afterlook asks for none.
+    """
+
+    def render_str(self, text: str, **kwargs) -> Text:
+        kwargs["markup"] = False
+        kwargs["emoji"] = False
+        return super().render_str(printable(text, keep_newlines=True), **kwargs)
+
+    def render(self, renderable, options=None):
+        for segment in super().render(renderable, options):
+            if segment.control or segment.text.isprintable() or segment.text == "\n":
+                yield segment
+            else:
+                yield Segment(printable(segment.text, keep_newlines=True), segment.style, segment.control)
+
+
 def console(stderr: bool = False) -> Console:
-    return Console(stderr=stderr, highlight=False, soft_wrap=False)
+    return PlainConsole(stderr=stderr, highlight=False, soft_wrap=False, markup=False, emoji=False)
