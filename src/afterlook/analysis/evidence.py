@@ -44,11 +44,31 @@ class MissesResult:
     quality: RankingQuality | None = None
     never_seen: list[UnseenValue] = field(default_factory=list)
 
+    @property
+    def n_flagged_anomalies(self) -> int:
+        """Labelled anomalies that were scored and flagged."""
+        return self.n_anomalies - len(self.misses) - len(self.unscored)
+
+    def coverage(self) -> str:
+        """What the misses list covers, in one sentence: never an all-clear for anomalies that were not scored."""
+        if self.n_anomalies == 0:
+            return "no labelled anomalies among the cases: there is nothing to miss or catch"
+        missed, unscored, flagged = len(self.misses), len(self.unscored), self.n_flagged_anomalies
+        if unscored == 0:
+            if missed == 0:
+                return f"no misses: all {flagged} labelled anomalies are flagged"
+            return f"{flagged} of {self.n_anomalies} labelled anomalies flagged, {missed} missed"
+        return (f"of {self.n_anomalies} labelled anomalies: {flagged} flagged, {missed} missed, {unscored} not scored "
+                "(missing or undefined features): nothing can be concluded about the ones not scored")
+
     def to_dict(self) -> dict:
         return {
             "threshold": self.threshold,
             "n_cases": self.n_cases,
             "n_anomalies": self.n_anomalies,
+            "n_flagged_anomalies": self.n_flagged_anomalies,
+            "n_unscored_anomalies": len(self.unscored),
+            "coverage": self.coverage(),
             "n_misses": len(self.misses),
             "misses": [m.to_dict() for m in self.misses],
             "metrics": self.metrics.to_dict(),
@@ -73,7 +93,7 @@ def misses(model, cases=None) -> MissesResult:
     if table.labels is None:
         raise AfterlookError(f"{table_name(table)} has no label column; misses need labelled cases (--label-col)")
     y = table.labels
-    finite = np.isfinite(sc.log_density)
+    finite = ~np.isnan(sc.log_density)  # scored: -inf (an overflowing reading) is scored, and flagged
     is_miss = y & ~sc.flagged & finite
     idx = np.flatnonzero(is_miss)
     idx = idx[np.argsort(-sc.margin[idx], kind="mergesort")]
@@ -82,6 +102,10 @@ def misses(model, cases=None) -> MissesResult:
     warnings = list(table.warnings)
     if (~finite).any():
         warnings.append(f"{int((~finite).sum())} case(s) have NaN or infinite features and were not scored")
+    overflowed = int(np.isneginf(sc.log_density).sum())
+    if overflowed:
+        warnings.append(f"{overflowed} case(s) have readings so extreme that the log-density overflows: "
+                        "scored as minus infinity and flagged")
     quality = ranking_quality(sc.log_density, y, model.threshold)
     warnings += quality.warnings()
     never_seen = never_seen_values(model, table)  # a finding: in the result, not a warning
@@ -122,8 +146,8 @@ class ExplainResult:
         return any(f.conditional_z is not None for f in self.features)
 
     def features_by_cost(self) -> list[FeatureEvidence]:
-        """The features, largest cost (most negative contribution) first; NaN counts as 0, ties keep recipe order."""
-        return sorted(self.features, key=lambda f: f.contribution if math.isfinite(f.contribution) else 0.0)
+        """The features, largest cost (most negative contribution, -inf on overflow) first; NaN counts as 0, ties keep recipe order."""
+        return sorted(self.features, key=lambda f: 0.0 if math.isnan(f.contribution) else f.contribution)
 
     def to_dict(self) -> dict:
         ld = self.log_density if np.isfinite(self.log_density) else None
@@ -132,6 +156,7 @@ class ExplainResult:
             "log_density": ld,
             "threshold": self.threshold,
             "margin": None if ld is None else self.margin,
+            "overflow": bool(np.isneginf(self.log_density)),
             "flagged": bool(self.flagged),
             "label": None if self.label is None else ("anomaly" if self.label else "normal"),
             "model_kind": self.model_kind,

@@ -10,6 +10,7 @@ from __future__ import annotations
 import argparse
 import os
 import sys
+import warnings
 
 from .. import _version
 from ..cautions import CAUTION
@@ -176,6 +177,8 @@ def cmd_fit(args) -> int:
 
 
 def cmd_score(args) -> int:
+    import numpy as np
+
     from ..analysis.model import load_model
     from ..store.tables import load_table
 
@@ -188,6 +191,10 @@ def cmd_score(args) -> int:
     n_bad = int(scored["log_density"].isna().sum())
     if n_bad:
         warn([f"{n_bad} row(s) have NaN or infinite features: log_density is empty and they are not flagged"])
+    n_overflow = int(np.isneginf(scored["log_density"].to_numpy(dtype=float)).sum())
+    if n_overflow:
+        warn([f"{n_overflow} row(s) have readings so extreme that the log-density overflows: "
+              "log_density is -inf and they are flagged"])
     if args.out:
         from ..store.tables import write_table
 
@@ -199,12 +206,14 @@ def cmd_score(args) -> int:
         "n_rows": int(len(scored)),
         "n_flagged": int(scored["flagged"].sum()),
         "n_unscored": n_bad,
+        "n_overflow": n_overflow,
         "out": args.out,
     }
     if args.json:
         if not args.out:
             doc["rows"] = [
-                {"case": str(cid), "log_density": finite_or_none(ld), "flagged": bool(fl)}
+                {"case": str(cid), "log_density": finite_or_none(ld), "flagged": bool(fl),
+                 **({"overflow": True} if ld == -np.inf else {})}
                 for cid, ld, fl in zip(table.ids, scored["log_density"], scored["flagged"])
             ]
         emit_json(doc)
@@ -275,7 +284,14 @@ def main(argv: list[str] | None = None) -> int:
         if not args.command:
             parser.print_help()
             return EXIT_BAD_INPUT
-        return COMMANDS[args.command](args)
+        # Python's own warnings (numpy overflow, SyntaxWarning ...) never reach stderr as they are: they
+        # are recorded and, if the command succeeds, said once each in afterlook's words. A failed command
+        # prints its one error line and nothing else.
+        with warnings.catch_warnings(record=True) as caught:
+            warnings.simplefilter("always")
+            code = COMMANDS[args.command](args)
+        warn(python_warnings(caught))
+        return code
     except AfterlookError as exc:
         error_line(exc.message)
         return exc.exit_code
@@ -298,6 +314,23 @@ def main(argv: list[str] | None = None) -> int:
         error_line(f"{type(exc).__name__}: {exc} (please report it; set AFTERLOOK_DEBUG=1 for the traceback)",
                    "internal error")
         return EXIT_INTERNAL
+
+
+def python_warnings(caught) -> list[str]:
+    """Recorded Python warnings as afterlook's one-line messages, each kind once."""
+    out: list[str] = []
+    for w in caught:
+        text = " ".join(str(w.message).split())
+        if issubclass(w.category, RuntimeWarning) and "overflow" in text:
+            line = ("numeric overflow: some values are too large to compute with (beyond about 1e154 squared); "
+                    "the cases they touch are scored as extreme")
+        elif issubclass(w.category, RuntimeWarning) and ("invalid value" in text or "divide by zero" in text):
+            line = "some values could not be computed (an invalid operation on a value); they are treated as missing"
+        else:
+            line = f"{w.category.__name__}: {text}"
+        if line not in out:
+            out.append(line)
+    return out
 
 
 def entry() -> None:

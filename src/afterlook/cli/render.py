@@ -107,8 +107,9 @@ def misses_table(result: MissesResult, limit: int | None = None, width: int | No
                           f"{q.normal_flagged_share:.1%} of the labelled normal cases", style="dim"))
     for u in result.never_seen:
         parts.append(Text(u.describe(), style="yellow"))
-    if not result.misses:
-        parts.append(Text("no misses: every labelled anomaly is flagged", style="green"))
+    if not result.misses or result.unscored:
+        clear = not result.misses and not result.unscored and result.n_anomalies > 0
+        parts.append(Text(result.coverage(), style="green" if clear else "yellow"))
     return Group(*parts)
 
 
@@ -120,9 +121,14 @@ def explain_table(result: ExplainResult) -> Group:
     verdict = "FLAGGED" if result.flagged else "not flagged"
     head.append(f"  {verdict}", style="bold red" if result.flagged else "bold")
     head.append(f"  ({result.model_kind} model)", style="dim")
-    head.append(f"\nlog-density {fmt(result.log_density)} vs threshold {fmt(result.threshold)}")
+    shown = "-inf" if result.log_density == -math.inf else fmt(result.log_density)
+    head.append(f"\nlog-density {shown} vs threshold {fmt(result.threshold)}")
     if math.isfinite(result.log_density):
         head.append(f" (margin {result.margin:+.3f})")
+    elif result.log_density == -math.inf:
+        head.append(" (log-density minus infinity: a reading is so extreme that it overflows; flagged)")
+    else:
+        head.append(" (not scored: a feature is missing or undefined)")
     ctx = "  ".join(f"{k}: {v}" for k, v in result.context.items() if v)
     full = result.full_model
     table = Table(box=box.SIMPLE_HEAD, show_edge=False)
@@ -137,12 +143,12 @@ def explain_table(result: ExplainResult) -> Group:
     order = result.features_by_cost()
     broken = False
     for f in order:
-        row = [f.name, _short_num(f.value), z_bar(f.z), f"{f.z:+.2f}", fmt(f.percentile, 1), f"{f.contribution:.2f}"]
+        row = [f.name, _short_num(f.value), z_bar(f.z), _signed(f.z), fmt(f.percentile, 1), _signed(f.contribution, "")]
         if full:
             cz = f.conditional_z
             mark = _relation_mark(f.z, cz)
             broken = broken or bool(mark)
-            row.append((f"{cz:+.2f}" if cz is not None else "n/a") + mark)
+            row.append((_signed(cz) if cz is not None else "n/a") + mark)
         table.add_row(*row)
     note = Text(
         f"z: standard deviations from the normal mean (bar: - left, + right, full at {BAR_FULL_SCALE:g}); "
@@ -157,6 +163,15 @@ def explain_table(result: ExplainResult) -> Group:
         parts.append(Text("cond z: standard deviations from the value expected given all other features"
                           + (f"; ! = relation broken ({RELATION_RULE})" if broken else ""), style="dim"))
     return Group(*parts)
+
+
+def _signed(x: float | None, sign: str = "+") -> str:
+    """Two decimals, or three significant digits in e-notation once a number is too long to read."""
+    if x is None or math.isnan(x):
+        return "n/a"
+    if math.isinf(x):
+        return "+inf" if x > 0 and sign else ("inf" if x > 0 else "-inf")
+    return f"{x:{sign}.2f}" if abs(x) < 1e5 else f"{x:{sign}.2e}"
 
 
 def _short_num(x: float) -> str:

@@ -18,6 +18,7 @@ from __future__ import annotations
 
 import ast
 import keyword
+import warnings
 import difflib
 import re
 from dataclasses import dataclass, field
@@ -141,7 +142,10 @@ def parse(text: str, known_columns: list[str] | tuple[str, ...] | None = None) -
         raise AfterlookError(f"unbalanced backtick in expression '{source}'")
     prepared = _BACKTICK.sub(_sub, source)
     try:
-        tree = ast.parse(prepared.strip(), mode="eval")
+        with warnings.catch_warnings():
+            # e.g. "1if x else 2" warns about the literal; the whitelist below decides, silently.
+            warnings.simplefilter("ignore")
+            tree = ast.parse(prepared.strip(), mode="eval")
     except (SyntaxError, ValueError, RecursionError, MemoryError, OverflowError) as exc:
         detail = getattr(exc, "msg", None) or type(exc).__name__
         raise AfterlookError(f"cannot parse expression '{_short(source)}': {detail}") from None
