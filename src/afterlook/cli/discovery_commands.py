@@ -11,6 +11,7 @@ from rich.text import Text
 from ..core.errors import AfterlookError
 from ..analysis.wording import candidate_verdict, flip_words, heldout_gain_text, stability_text
 from ..core.errors import EXIT_OK
+from .inputs import table_options
 from .output import emit_json, warn
 
 
@@ -134,7 +135,7 @@ def run_try(args) -> int:
     if args.holdout:
         from ..store.tables import load_table
 
-        holdout = load_table(args.holdout, id_col=args.id_col, label_col=args.label_col, require_labels=True)
+        holdout = load_table(args.holdout, **table_options(args), require_labels=True)
     result = try_features(session, None, pairs, focus=args.case, holdout=holdout, folds=args.folds)
     warn(result.warnings)
     if args.out:

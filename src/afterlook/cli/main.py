@@ -18,6 +18,7 @@ from ..core.errors import EXIT_BAD_INPUT, EXIT_CHECK_FAILED, EXIT_INTERNAL, EXIT
 from ..core.numbers import finite_or_none
 from ..core.printable import printable, printable_lines
 from ..store.outputs import check_output
+from .inputs import table_options
 from .output import emit_json, error_line, warn
 
 
@@ -36,6 +37,9 @@ def _add_common(p: argparse.ArgumentParser) -> None:
 def _add_table_opts(p: argparse.ArgumentParser) -> None:
     p.add_argument("--id-col", help="id column (default: 'id' if present, else row number)")
     p.add_argument("--label-col", help="label column (default: 'label'; values 1/0, true/false, anomaly/normal, yes/no)")
+    p.add_argument("--encoding", help="text encoding of CSV tables (default utf-8; e.g. latin-1, cp1252)")
+    p.add_argument("--delimiter", help="CSV field separator (default: by extension, ',' or tab for .tsv; e.g. ';')")
+    p.add_argument("--decimal", choices=(".", ","), help="decimal mark of numbers written as text (',' reads 10,5)")
 
 
 def build_parser() -> argparse.ArgumentParser:
@@ -118,11 +122,11 @@ def cmd_fit(args) -> int:
     derive = [parse_assignment(d, "--derive") for d in args.derive]
     transform = [parse_assignment(t, "--transform") for t in args.transform]
     check_output(args.out, kind="model", inputs=[args.train, args.cases], force=args.force)
-    cases = load_table(args.cases, id_col=args.id_col, label_col=args.label_col, require_labels=True) if args.cases else None
+    cases = load_table(args.cases, **table_options(args), require_labels=True) if args.cases else None
     if args.engine == "memory":
         if args.scheduler:
             raise AfterlookError("--scheduler needs --engine dask")
-        train = load_table(args.train, id_col=args.id_col, label_col=args.label_col)
+        train = load_table(args.train, **table_options(args))
         model = fitting.fit(train, cases=cases, kind=args.kind, robust=args.robust, shrinkage=args.shrinkage,
                         derive=derive, transform=transform, threshold=args.threshold, columns=args.columns)
     else:
@@ -185,7 +189,7 @@ def cmd_score(args) -> int:
     if args.out:
         check_output(args.out, kind="table", inputs=[args.model, args.data], force=args.force)
     model = load_model(args.model)
-    table = load_table(args.data, id_col=args.id_col, label_col=args.label_col)
+    table = load_table(args.data, **table_options(args))
     scored = model.score(table.frame)
     warn(table.warnings)
     n_bad = int(scored["log_density"].isna().sum())
