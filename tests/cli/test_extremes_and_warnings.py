@@ -116,3 +116,21 @@ def test_misses_never_gives_an_all_clear_for_unscored_anomalies(demo_written, tm
     doc = json.loads(out)
     assert doc["n_unscored_anomalies"] == len(anomalies) and doc["n_flagged_anomalies"] == 0
     assert doc["misses"] == []
+
+
+def test_the_workbench_lists_an_overflowing_normal_case_as_a_false_alarm(demo_written, tmp_path):
+    from afterlook.analysis.workbench import case_counts, case_rows, open_session
+    from afterlook.tui import format as fmt
+
+    cases = tmp_path / "cases.csv"
+    rows = list(csv.reader(open(demo_written.cases, newline="")))
+    label = rows[0].index("label")
+    k = next(i for i, r in enumerate(rows[1:], 1) if r[label].strip().lower() in ("0", "normal", "false", "no"))
+    _edit_cases(demo_written.cases, cases, [(k, "motor_current_a", "-4.5e205")])
+    session = open_session(demo_written.model, cases, train_path=demo_written.train, casebook=tmp_path / "b.json")
+    before = open_session(demo_written.model, demo_written.cases, train_path=demo_written.train,
+                          casebook=tmp_path / "b.json")
+    assert case_counts(session)["false alarm"] == case_counts(before)["false alarm"] + 1
+    alarms = [r for r in case_rows(session, false_alarms=True) if r.kind == "false alarm"]
+    assert alarms[0].case == rows[k][0] and alarms[0].log_density == -math.inf  # lowest log-density first
+    assert fmt.num(alarms[0].log_density) == "-inf" and fmt.num(float("nan")) == fmt.MISSING

@@ -199,7 +199,7 @@ def case_rows(session: WorkbenchSession, *, near: bool = False, false_alarms: bo
     rows = [CaseRow(m.case, KIND_MISS, m.log_density, m.margin, m.context) for m in session.missed.misses]
     sc = session.scored
     y = session.labels
-    finite = np.isfinite(sc.log_density)
+    finite = ~np.isnan(sc.log_density)  # scored; -inf (an overflowing reading) is flagged
     margin = sc.margin
     if near:
         gap = near_catch_gap(session)
@@ -229,7 +229,7 @@ def case_counts(session: WorkbenchSession) -> dict:
     """How many rows each toggle of the case list would add."""
     sc = session.scored
     y = session.labels
-    finite = np.isfinite(sc.log_density)
+    finite = ~np.isnan(sc.log_density)  # scored; -inf (an overflowing reading) is flagged
     gap = near_catch_gap(session)
     return {
         KIND_MISS: len(session.missed.misses),

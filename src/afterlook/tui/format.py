@@ -24,7 +24,9 @@ def _bad(x) -> bool:
 
 
 def num(x, digits: int = 3) -> str:
-    """Fixed decimals, scientific notation for very large or very small magnitudes."""
+    """Fixed decimals, scientific notation for very large or very small magnitudes; -inf as is (overflow)."""
+    if isinstance(x, float) and x == -math.inf:
+        return "-inf"
     if _bad(x):
         return MISSING
     if isinstance(x, float):
