@@ -183,3 +183,13 @@ def test_demo_writes_only_into_an_empty_or_demo_made_folder(tmp_path, run_cli):
     afile.write_text("x")
     code, out, err = run_cli("demo", "--dir", afile, "--no-tui", "--json")
     assert code == 2 and afile.read_text() == "x", err
+
+
+def test_a_casebook_path_that_is_an_input_is_refused(files, run_cli):
+    d = files
+    for target in ("cases.csv", "model.json", "train.csv"):
+        for spelling in _spellings(d, target):
+            _refused(run_cli, ["casebook", "add", spelling, "--model", d / "model.json", "--cases", d / "cases.csv",
+                               "--case", "x", "--status", "open", "--train", d / "train.csv"], d / target, "input")
+            _refused(run_cli, ["review", d / "model.json", d / "cases.csv", "--train", d / "train.csv",
+                               "--casebook", spelling, "--json"], d / target, "input")

@@ -99,7 +99,10 @@ def run_add(args) -> int:
     from ..store.casebook_file import Casebook, check_status
     from .inputs import open_session
 
+    from ..store.outputs import refuse_input_as_book
+
     check_status(args.status)
+    refuse_input_as_book(args.book, [args.model, args.cases, args.train])
     pairs = [parse_assignment(d, "--derive") for d in args.derive]
     existing = Casebook.open(args.book, create=True)  # refuse a bad book before the (slower) review
     previous = existing.entries.get(str(args.case))

@@ -134,6 +134,9 @@ def cmd_fit(args) -> int:
             raise AfterlookError(f"unknown --engine '{args.engine}' (choose: memory, chunked, dask)")
         if args.robust:
             raise AfterlookError("--robust needs every row in memory; drop --engine or --robust")
+        if args.encoding or args.delimiter or args.decimal:
+            raise AfterlookError("--encoding, --delimiter and --decimal need the memory engine (the streamed "
+                                 "engines read UTF-8 CSV with its usual separator); drop --engine or save as UTF-8")
         if args.chunk_rows < 1:
             raise AfterlookError("--chunk-rows must be at least 1")
         model = fitting.fit_streamed(args.train, engine=args.engine, scheduler=args.scheduler,

@@ -38,8 +38,10 @@ def register(sub, add_common, add_table_opts, caution) -> dict:
 def run(args) -> int:
     from ..tui import create_app
 
+    from ..store.outputs import refuse_input_as_book
     from .inputs import table_options
 
+    refuse_input_as_book(args.casebook, [args.model, args.cases, args.train])
     app = create_app(args.model, args.cases, train_path=args.train, casebook=args.casebook, **table_options(args))
     if args.json:
         from ..analysis.workbench import status_summary

@@ -25,7 +25,7 @@ from typing import Iterable
 from ..core.errors import AfterlookError
 from ..core.printable import printable
 
-__all__ = ["check_output", "same_file", "kind_of_file", "OUTPUT_KINDS"]
+__all__ = ["check_output", "refuse_input_as_book", "same_file", "kind_of_file", "OUTPUT_KINDS"]
 
 # What each output is, in words for the messages.
 OUTPUT_KINDS = {
@@ -45,6 +45,16 @@ def same_file(a: str | os.PathLike, b: str | os.PathLike) -> bool:
         return os.path.exists(a) and os.path.exists(b) and os.path.samefile(a, b)
     except (OSError, ValueError):
         return False
+
+
+def refuse_input_as_book(book: str | os.PathLike | None, inputs: Iterable[str | os.PathLike | None]) -> None:
+    """A casebook path that is one of the command's inputs (the model, a table) is refused in one line."""
+    if book is None:
+        return
+    for inp in inputs:
+        if inp is not None and same_file(book, inp):
+            raise AfterlookError(f"casebook {printable(str(book))} is the input {printable(str(inp))}; "
+                                 "saving reviews there would destroy it: choose another file")
 
 
 def check_output(path: str | os.PathLike, *, kind: str, inputs: Iterable[str | os.PathLike | None] = (),
