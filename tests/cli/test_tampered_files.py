@@ -218,3 +218,71 @@ def test_fuzzed_casebooks_are_read_or_refused_in_one_line(files, run_cli, tmp_pa
         code, out, err = run_cli(*argv)
         _never_crashes(code, err)
     assert sha(book) == digest
+
+
+# -- fuzz that must always be refused: a number of the model or the book replaced by a non-number -------------
+
+def _numeric_places(doc, prefix=()):
+    """Places holding a number (bool excluded), lists sampled at both ends and the middle."""
+    out = []
+    if isinstance(doc, dict):
+        for k, v in doc.items():
+            out += _numeric_places(v, prefix + (k,))
+    elif isinstance(doc, list):
+        for i in sorted({0, len(doc) // 2, len(doc) - 1} if doc else set()):
+            out += _numeric_places(doc[i], prefix + (i,))
+    elif isinstance(doc, (int, float)) and not isinstance(doc, bool):
+        out.append(prefix)
+    return out
+
+
+NOT_A_NUMBER = (st.text(max_size=6) | st.booleans() | st.lists(st.integers(), max_size=2)
+                | st.dictionaries(st.text(max_size=3), st.integers(), max_size=2)
+                | st.sampled_from(["NaN", "Infinity", "-Infinity", "1e999", "-1e999", "9" * 400]))
+RAW_TOKENS = {"NaN", "Infinity", "-Infinity", "1e999", "-1e999", "9" * 400}
+
+# Numbers a reader may ignore (informative only): changing their type is still refused by the schema only
+# where the schema types them; the places below are the ones scoring and display rely on.
+MODEL_NUMBERS = ("model", "threshold", "training")
+
+
+@settings(max_examples=50, deadline=None, suppress_health_check=list(HealthCheck), derandomize=True)
+@given(data=st.data(), kind=st.sampled_from(["independent", "full"]))
+def test_a_model_number_replaced_by_a_non_number_is_always_refused(files, run_cli, tmp_path_factory, data, kind):
+    doc = files[kind]
+    places = [p for p in _numeric_places(doc) if p[0] in MODEL_NUMBERS and p[:2] != ("training", "rows")
+              and (p[0] != "training" or p[:2] == ("training", "quantiles"))]
+    where = data.draw(st.sampled_from(places))
+    value = data.draw(NOT_A_NUMBER)
+    model = tmp_path_factory.mktemp("fuzz_model_nan") / "model.json"
+    if isinstance(value, str) and value in RAW_TOKENS:
+        _write_raw(doc, model, value, where)
+    else:
+        model.write_text(json.dumps(_set(copy.deepcopy(doc), where, value), indent=2))
+    digest = sha(model)
+    code, out, err = run_cli("misses", model, files["dir"] / "cases.csv")
+    _bad_input(code, err)
+    assert sha(model) == digest
+
+
+BOOK_NUMBERS = ("before", "after", "evidence", "deciding_feature", "metrics", "snapshot")
+
+
+@settings(max_examples=50, deadline=None, suppress_health_check=list(HealthCheck), derandomize=True)
+@given(data=st.data())
+def test_a_casebook_number_replaced_by_a_non_number_is_always_refused(files, run_cli, tmp_path_factory, data):
+    doc = files["book"]
+    places = [p for p in _numeric_places(doc) if len(p) > 2 and p[2] in BOOK_NUMBERS
+              and not (p[2] == "snapshot" and p[3] == "context")]
+    where = data.draw(st.sampled_from(places))
+    value = data.draw(NOT_A_NUMBER)
+    book = tmp_path_factory.mktemp("fuzz_book_nan") / "book.json"
+    if isinstance(value, str) and value in RAW_TOKENS:
+        _write_raw(doc, book, value, where)
+    else:
+        book.write_text(json.dumps(_set(copy.deepcopy(doc), where, value), indent=2))
+    digest = sha(book)
+    for argv in (["casebook", "list", book], ["casebook", "report", book]):
+        code, out, err = run_cli(*argv)
+        _bad_input(code, err)
+    assert sha(book) == digest
