@@ -134,3 +134,22 @@ def test_the_workbench_lists_an_overflowing_normal_case_as_a_false_alarm(demo_wr
     alarms = [r for r in case_rows(session, false_alarms=True) if r.kind == "false alarm"]
     assert alarms[0].case == rows[k][0] and alarms[0].log_density == -math.inf  # lowest log-density first
     assert fmt.num(alarms[0].log_density) == "-inf" and fmt.num(float("nan")) == fmt.MISSING
+
+
+def test_overflow_is_told_apart_from_a_feature_outside_its_domain(demo_written, tmp_path, run_cli):
+    cases = tmp_path / "cases.csv"
+    # row 1 overflows; row 2 makes hydraulic_power = flow * (discharge - suction) fine but a ratio undefined
+    rows = _edit_cases(demo_written.cases, cases, [(1, "motor_current_a", "-4.5e205"), (2, "flow_m3h", "0")])
+    model = tmp_path / "ratio.json"
+    code, out, err = run_cli("fit", demo_written.train, "--out", model, "--cases", cases, "--kind", "independent",
+                             "--derive", "r=motor_current_a / flow_m3h")
+    assert code == 0, err
+    code, out, err = run_cli("score", model, cases, "--json")
+    assert code == 0, err
+    by_case = {r["case"]: r for r in json.loads(out)["rows"]}
+    assert by_case[rows[1][0]].get("overflow") is True and by_case[rows[1][0]]["flagged"] is True
+    assert "overflow" not in by_case[rows[2][0]] and by_case[rows[2][0]]["flagged"] is True
+    code, out, err = run_cli("explain", model, cases, rows[2][0], "--json")
+    assert code == 0 and json.loads(out)["overflow"] is False, err
+    code, out, err = run_cli("explain", model, cases, rows[2][0])
+    assert "outside its domain" in out and "overflows" not in out

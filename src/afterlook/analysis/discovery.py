@@ -121,7 +121,7 @@ def suggest(model, cases, train=None, case_ids=None, top: int = 10, *,
     labels = session.require_labels("suggest")
     model, table = session.model, session.cases
     before = session.scored
-    miss_mask = labels & ~before.flagged & np.isfinite(before.log_density)
+    miss_mask = labels & ~before.flagged & ~np.isnan(before.log_density)
     idx, warnings = _targets(session, case_ids, miss_mask)
     target_ids = [str(table.ids[i]) for i in idx]
     _report(progress, "normal population", 0.05)
@@ -338,7 +338,8 @@ class AddedFeatureRefit:
         self.case_features, self.case_raw, self.labels, self.base = case_features, case_raw, labels, base
         # log p(x) of the current features, reused: with one added column y,
         # log p(x, y) = log p(x) + log N(y; E[y | x], var(y | x)) exactly.
-        self.case_ld = base.log_density(case_features)
+        # the session's scores already carry the model's undefined-value policy (-inf outside a domain)
+        self.case_ld = model.with_undefined_policy(base.log_density(case_features), case_raw)
         self.train_ld = base.log_density(X) if model.policy.kind == "rate" else None
         self.precision = base.precision() if base.kind == "full" else None
 
@@ -377,15 +378,22 @@ class AddedFeatureRefit:
             if new is None:
                 return None
             ld = new.log_density(np.column_stack([self.case_features, y_cases]))
+            ld = np.where(np.isneginf(self.case_ld), -np.inf, ld)
             train_ld = new.log_density(np.column_stack([self.X, y])) if self.train_ld is not None else None
         else:
             column = added_column(base, self.X, y, precision=self.precision)
             if column is None:
                 return None  # the full re-fit refuses a constant or collinear column too
             with np.errstate(invalid="ignore"):
-                ld = self.case_ld + column.conditional_log_density(self.case_features, y_cases)
-            ld[~np.isfinite(ld)] = np.nan
+                cond = column.conditional_log_density(self.case_features, y_cases)
+                ld = np.where(np.isneginf(self.case_ld), -np.inf, self.case_ld + cond)
+            ld[np.isnan(ld) | np.isposinf(ld)] = np.nan
             train_ld = None if self.train_ld is None else self.train_ld + column.conditional_log_density(self.X, y)
+        if self.model.undefined == "flag":
+            # the candidate undefined on a case whose readings are finite: outside its domain, flagged
+            readings_ok = np.all(np.column_stack([np.isfinite(self.case_raw[c]) for c in expr.columns]), axis=1) \
+                if expr.columns else np.ones(len(ld), bool)
+            ld = np.where(np.isnan(ld) & ~np.isfinite(y_cases) & readings_ok & ~np.isnan(self.case_ld), -np.inf, ld)
         threshold = choose_threshold(self.model.policy, case_log_density=ld, case_is_anomaly=self.labels,
                                      normal_log_density=train_ld)
         flagged = flag(ld, threshold)

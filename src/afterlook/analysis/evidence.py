@@ -8,7 +8,8 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from ..core.errors import AfterlookError
-from ..core.explain import FeatureEvidence, evidence
+from ..core.explain import FeatureEvidence, evidence, transform_direction
+from ..core.recipe import apply_transform
 from ..core.quality import RankingQuality, UnseenValue, ranking_quality, unseen_values
 from ..store.columns import numeric_columns_of
 from ..core.thresholds import Confusion
@@ -43,6 +44,8 @@ class MissesResult:
     warnings: list[str] = field(default_factory=list)
     quality: RankingQuality | None = None
     never_seen: list[UnseenValue] = field(default_factory=list)
+    outside_domain_anomalies: list[str] = field(default_factory=list)
+    outside_domain_normals: list[str] = field(default_factory=list)
 
     @property
     def n_flagged_anomalies(self) -> int:
@@ -73,6 +76,8 @@ class MissesResult:
             "misses": [m.to_dict() for m in self.misses],
             "metrics": self.metrics.to_dict(),
             "unscored_anomalies": list(self.unscored),
+            "outside_domain": {"anomalies": list(self.outside_domain_anomalies),
+                               "normal_cases": list(self.outside_domain_normals)},
             "model_quality": self.quality.to_dict() if self.quality is not None else None,
             "never_seen_in_normal": [u.to_dict() for u in self.never_seen],
         }
@@ -93,7 +98,7 @@ def misses(model, cases=None) -> MissesResult:
     if table.labels is None:
         raise AfterlookError(f"{table_name(table)} has no label column; misses need labelled cases (--label-col)")
     y = table.labels
-    finite = ~np.isnan(sc.log_density)  # scored: -inf (an overflowing reading) is scored, and flagged
+    finite = ~np.isnan(sc.log_density)  # scored; -inf (outside a feature's domain, or overflow) is flagged
     is_miss = y & ~sc.flagged & finite
     idx = np.flatnonzero(is_miss)
     idx = idx[np.argsort(-sc.margin[idx], kind="mergesort")]
@@ -101,8 +106,14 @@ def misses(model, cases=None) -> MissesResult:
     unscored = [str(table.ids[i]) for i in np.flatnonzero(y & ~finite)]
     warnings = list(table.warnings)
     if (~finite).any():
-        warnings.append(f"{int((~finite).sum())} case(s) have NaN or infinite features and were not scored")
-    overflowed = int(np.isneginf(sc.log_density).sum())
+        warnings.append(f"{int((~finite).sum())} case(s) have a missing or infinite reading and were not scored")
+    domain = sc.domain_ids()
+    if domain:
+        how = ("flagged as outside the feature's domain" if model.undefined == "flag"
+               else "left unscored (the model's undefined-value policy is skip)")
+        warnings.append(f"{len(domain)} case(s) have a feature that is undefined on finite readings (e.g. a zero "
+                        f"divisor or the log of a non-positive value): {how}")
+    overflowed = int(overflow_mask(sc).sum())
     if overflowed:
         warnings.append(f"{overflowed} case(s) have readings so extreme that the log-density overflows: "
                         "scored as minus infinity and flagged")
@@ -110,7 +121,16 @@ def misses(model, cases=None) -> MissesResult:
     warnings += quality.warnings()
     never_seen = never_seen_values(model, table)  # a finding: in the result, not a warning
     return MissesResult(model.threshold, int(len(y)), int(y.sum()), rows, sc.confusion(), unscored,
-                        model.describe_kind(), warnings, quality, never_seen)
+                        model.describe_kind(), warnings, quality, never_seen,
+                        sc.domain_ids(labelled=True), sc.domain_ids(labelled=False))
+
+
+def overflow_mask(sc) -> np.ndarray:
+    """Cases at -inf because a finite reading overflowed (not because a feature is outside its domain)."""
+    mask = np.isneginf(sc.log_density)
+    if getattr(sc, "outside_domain", None) is not None:
+        mask &= ~sc.outside_domain
+    return mask
 
 
 def never_seen_values(model, table) -> list[UnseenValue]:
@@ -135,6 +155,12 @@ class ExplainResult:
     label: bool | None
     context: dict
     model_kind: str
+    outside_domain: bool = False  # -inf because a feature is undefined on finite readings (not an overflow)
+
+    @property
+    def overflow(self) -> bool:
+        """-inf because a finite reading is so extreme that its log-density overflows."""
+        return bool(np.isneginf(self.log_density)) and not self.outside_domain
 
     @property
     def margin(self) -> float:
@@ -156,7 +182,7 @@ class ExplainResult:
             "log_density": ld,
             "threshold": self.threshold,
             "margin": None if ld is None else self.margin,
-            "overflow": bool(np.isneginf(self.log_density)),
+            "overflow": self.overflow,
             "flagged": bool(self.flagged),
             "label": None if self.label is None else ("anomaly" if self.label else "normal"),
             "model_kind": self.model_kind,
@@ -175,12 +201,29 @@ def explain(model, cases, case_id=None) -> ExplainResult:
     return explain_case(prepare(model, cases), case_id)
 
 
+def oriented_to_readings(model, ev: list[FeatureEvidence], raw: dict, i: int) -> list[FeatureEvidence]:
+    """Each feature's evidence with its reading (before the transform) and the transform's direction there."""
+    from dataclasses import replace
+
+    out = []
+    for f in ev:
+        reading = float(raw[f.name][i]) if f.name in raw else None
+        t = model.recipe.transforms.get(f.name)
+        direction = 1
+        if t is not None and reading is not None:
+            direction = transform_direction(lambda v, t=t, n=f.name: apply_transform(t, n, v), reading)
+        out.append(replace(f, reading=reading, direction=direction))
+    return out
+
+
 def explain_case(session: Session, case_id) -> ExplainResult:
     """:func:`explain` on a prepared session (the cases are not scored again)."""
     model = session.model
     sc = session.scored
     i = session.row(case_id)
     ev = evidence(model.density, sc.features[i], model.quantiles)
+    ev = oriented_to_readings(model, ev, session.raw_features("cases"), i)
     label = None if sc.labels is None else bool(sc.labels[i])
+    domain = sc.outside_domain is not None and bool(sc.outside_domain[i])
     return ExplainResult(str(sc.table.ids[i]), float(sc.log_density[i]), model.threshold, ev,
-                         bool(sc.flagged[i]), label, case_context(sc.table, i), model.describe_kind())
+                         bool(sc.flagged[i]), label, case_context(sc.table, i), model.describe_kind(), domain)

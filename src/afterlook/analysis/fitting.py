@@ -16,7 +16,7 @@ import pandas as pd
 from ..core.errors import AfterlookError
 from ..core.gaussian import GaussianModel
 from ..core.recipe import Recipe, parse_transform
-from ..core.thresholds import ThresholdPolicy, choose_threshold, parse_policy
+from ..core.thresholds import UNDEFINED_POLICIES, ThresholdPolicy, apply_undefined_policy, choose_threshold, parse_policy
 from ..store.tables import Table, sha256_file
 from .model import Model, training_summary
 from .session import TrainingRows, as_table, derive_pairs, numeric_columns_of, table_name
@@ -39,6 +39,7 @@ def fit(
     columns: list[str] | None = None,
     recipe: Recipe | None = None,
     quantiles: bool = True,
+    undefined: str = "flag",
 ) -> Model:
     """Fit a model on the normal rows of ``train``.
 
@@ -60,7 +61,12 @@ def fit(
     recipe : a complete recipe, instead of columns/derive/transform (used for re-fits)
     quantiles : store the per-feature quantile grid used for percentiles (skipped
         by the candidate search's throw-away re-fits, where it is the slowest step)
+    undefined : "flag" (default) or "skip": a case whose feature is undefined on
+        finite readings (a zero divisor) is flagged as outside the feature's
+        domain, or left unscored (see :class:`~afterlook.analysis.model.Model`)
     """
+    if undefined not in UNDEFINED_POLICIES:
+        raise AfterlookError(f"undefined must be one of {', '.join(UNDEFINED_POLICIES)}, got {undefined!r}")
     warnings: list[str] = []
     table = as_table(train)
     frame = table.frame
@@ -96,7 +102,7 @@ def fit(
     if density.support_fraction_ is not None:
         warnings.append(f"robust fit kept {density.support_fraction_:.1%} of the training rows as its core")
 
-    policy, value, basis = _pick_threshold(density, recipe, threshold, cases, X, warnings,
+    policy, value, basis = _pick_threshold(density, recipe, threshold, cases, X, warnings, undefined,
                                            f"training rows ({X.shape[0]})")
 
     stats, grid = training_summary(X, fm.names, quantiles=quantiles)
@@ -113,10 +119,11 @@ def fit(
         # left out of the model (zero variance), kept so misses can report values never seen in normal rows
         training["constant_columns"] = constants
     return Model(recipe=recipe, density=density, threshold=value, policy=policy, threshold_basis=basis,
-                 training=training, quantiles=grid, warnings=warnings + list(table.warnings))
+                 training=training, quantiles=grid, warnings=warnings + list(table.warnings), undefined=undefined)
 
 
 def _pick_threshold(density, recipe: Recipe, threshold, cases, normal_rows: np.ndarray, warnings: list[str],
+                    undefined: str,
                     normal_basis: str, rate_note: str = ""):
     """Threshold by policy: labelled cases when given, else the normal rows.
 
@@ -127,7 +134,11 @@ def _pick_threshold(density, recipe: Recipe, threshold, cases, normal_rows: np.n
     case_table = as_table(cases) if cases is not None else None
     case_ld = case_y = None
     if case_table is not None and case_table.labels is not None:
-        case_ld = density.log_density(recipe.apply(numeric_columns_of(case_table.frame, recipe.required_columns())).values)
+        case_cols = numeric_columns_of(case_table.frame, recipe.required_columns())
+        case_ld = density.log_density(recipe.apply(case_cols).values)
+        inputs_ok = np.all(np.column_stack([np.isfinite(v) for v in case_cols.values()]), axis=1) \
+            if case_cols else np.ones(len(case_ld), bool)
+        case_ld = apply_undefined_policy(case_ld, inputs_ok, undefined)
         case_y = case_table.labels
     if policy is None:
         if case_y is not None and case_y.any():
@@ -191,7 +202,8 @@ def _build_recipe(table: Table, normal_frame: pd.DataFrame, columns, derive, tra
 def refit(model: Model, recipe: Recipe, train: TrainingRows, cases: Table, *, quantiles: bool = True) -> Model:
     """Re-fit the model's kind and options with another recipe, threshold by the same policy."""
     return fit(train.table, cases=cases, kind=model.density.kind, robust=model.density.robust,
-               shrinkage=model.density.shrinkage, threshold=model.policy, recipe=recipe, quantiles=quantiles)
+               shrinkage=model.density.shrinkage, threshold=model.policy, recipe=recipe, quantiles=quantiles,
+               undefined=model.undefined)
 
 
 def fit_streamed(
@@ -210,6 +222,7 @@ def fit_streamed(
     id_col: str | None = None,
     label_col: str | None = None,
     random_state: int = 0,
+    undefined: str = "flag",
 ) -> Model:
     """Fit from a training file without loading it whole.
 
@@ -242,7 +255,7 @@ def fit_streamed(
                         f"(most in '{worst}': {streamed.nan_by_feature[worst]})")
     density = GaussianModel(kind=kind, shrinkage=shrinkage).fit_stats(streamed.stats, recipe.features)
 
-    policy, value, basis = _pick_threshold(density, recipe, threshold, cases, streamed.sample, warnings,
+    policy, value, basis = _pick_threshold(density, recipe, threshold, cases, streamed.sample, warnings, undefined,
                                            f"a sample of {streamed.sample.shape[0]} training rows",
                                            " (estimated on a sample of the training rows)")
 
@@ -265,4 +278,4 @@ def fit_streamed(
     }
     return Model(recipe=recipe, density=density, threshold=value, policy=policy, threshold_basis=basis,
                  training=training, quantiles=quantile_grid(streamed.sample, QUANTILE_POINTS),
-                 warnings=warnings + list(head.warnings))
+                 warnings=warnings + list(head.warnings), undefined=undefined)

@@ -20,7 +20,7 @@ from ..core.errors import AfterlookError
 from ..core.explain import QUANTILE_POINTS, quantile_grid
 from ..core.gaussian import GaussianModel
 from ..core.recipe import FeatureMatrix, Recipe
-from ..core.thresholds import ThresholdPolicy, flag, parse_policy
+from ..core.thresholds import UNDEFINED_POLICIES, ThresholdPolicy, apply_undefined_policy, flag, parse_policy
 from ..store import model_file
 from ..store.columns import numeric_column
 
@@ -47,6 +47,11 @@ class Model:
         percentiles in explanations.
     warnings : list of str
         What the fit had to drop or assume (not saved).
+    undefined : "flag" or "skip"
+        A case whose feature is undefined although its readings are finite (a
+        zero divisor, a log of a non-positive value) is outside the feature's
+        domain: scored -inf and flagged ("flag", the default), or left
+        unscored ("skip"). Cases with a missing reading are unscored either way.
     """
 
     recipe: Recipe
@@ -60,6 +65,7 @@ class Model:
     tool_version: str = __version__
     source_path: str | None = None
     warnings: list[str] = field(default_factory=list)
+    undefined: str = "flag"
 
     # -- features and scores ---------------------------------------------
     @property
@@ -75,8 +81,22 @@ class Model:
         return self.recipe.apply(_columns_of(columns))
 
     def log_density(self, columns: Mapping[str, np.ndarray] | pd.DataFrame) -> np.ndarray:
-        """Log-density of each row (NaN where a feature is NaN or infinite)."""
-        return self.density.log_density(self.feature_matrix(columns).values)
+        """Log-density of each row: NaN where a reading is missing; -inf where a feature is
+        undefined on finite readings and the model's ``undefined`` policy is "flag"."""
+        cols = _columns_of(columns)
+        ld = self.density.log_density(self.recipe.apply(cols).values)
+        return self.with_undefined_policy(ld, cols)
+
+    def with_undefined_policy(self, log_density: np.ndarray, columns: Mapping[str, np.ndarray]) -> np.ndarray:
+        """``log_density`` with the model's undefined-value policy applied (``columns``: the raw readings)."""
+        return apply_undefined_policy(log_density, self.inputs_finite(columns), self.undefined)
+
+    def inputs_finite(self, columns: Mapping[str, np.ndarray]) -> np.ndarray:
+        """Rows whose every reading the recipe uses is finite."""
+        needed = [np.isfinite(np.asarray(columns[c], dtype=np.float64)) for c in self.recipe.required_columns()]
+        if not needed:
+            return np.ones(len(next(iter(columns.values()))) if columns else 0, dtype=bool)
+        return np.all(np.column_stack(needed), axis=1)
 
     def score(self, df: pd.DataFrame) -> pd.DataFrame:
         """A copy of ``df`` with ``log_density`` and ``flagged`` columns added."""
@@ -85,6 +105,16 @@ class Model:
         out["log_density"] = ld
         out["flagged"] = flag(ld, self.threshold)
         return out
+
+    def score_with_overflow(self, df: pd.DataFrame) -> tuple[pd.DataFrame, np.ndarray]:
+        """:meth:`score` and the rows at -inf because a finite reading overflowed (not a feature's domain)."""
+        cols = _columns_of(df)
+        raw = self.density.log_density(self.recipe.apply(cols).values)  # -inf only on overflow
+        ld = self.with_undefined_policy(raw, cols)
+        out = df.copy()
+        out["log_density"] = ld
+        out["flagged"] = flag(ld, self.threshold)
+        return out, np.isneginf(raw)
 
     def fingerprint(self) -> str:
         """16 hex digits that identify this fit on any machine (see :mod:`afterlook.core.fingerprint`).
@@ -119,6 +149,7 @@ class Model:
                 "policy": str(self.policy),
                 "description": self.policy.describe(),
                 "chosen_on": self.threshold_basis,
+                "undefined": self.undefined,
             },
             "training": {
                 **self.training,
@@ -141,6 +172,9 @@ class Model:
             thr = doc["threshold"]
             threshold = float(thr["value"])
             policy = parse_policy(thr.get("policy", "f1"))
+            undefined = thr.get("undefined", "flag")
+            if undefined not in UNDEFINED_POLICIES:
+                raise AfterlookError(f"model file: threshold.undefined must be one of {', '.join(UNDEFINED_POLICIES)}")
             training = dict(doc["training"])
             q = training.pop("quantiles")
             quantiles = np.asarray(q["values"], dtype=np.float64).T
@@ -156,7 +190,7 @@ class Model:
             recipe=recipe, density=density, threshold=threshold, policy=policy,
             threshold_basis=str(thr.get("chosen_on", "")), training=training, quantiles=quantiles,
             created=str(doc.get("created", "")), tool_version=str(doc.get("tool_version", "")),
-            source_path=source_path,
+            source_path=source_path, undefined=undefined,
         )
 
     def describe_kind(self) -> str:

@@ -126,9 +126,15 @@ def _evidence_rows(entry: dict) -> list[tuple[str, list[str], bool]]:
 
 
 def _evidence_cells(f: dict) -> list[str]:
-    return [_num(f.get("value")), _signed(f.get("z")), _num(f.get("percentile"), ".1f"),
-            _signed(f.get("contribution")), _signed(f.get("conditional_z")) if f.get("conditional_z") is not None
-            else "n/a"]
+    """The reading (before any transform) and z, percentile, conditional z signed as the reading.
+
+    Entries written before readings were recorded show the model-scale value.
+    """
+    flip = -1.0 if f.get("order_reversed") else 1.0
+    cz = f.get("conditional_z")
+    return [_num(f.get("reading", f.get("value"))), _signed(f.get("z_reading", f.get("z"))),
+            _num(f.get("percentile_reading", f.get("percentile")), ".1f"), _signed(f.get("contribution")),
+            _signed(flip * cz) if isinstance(cz, (int, float)) else "n/a"]
 
 
 def _deciding(entry: dict) -> dict:
@@ -149,7 +155,7 @@ def _history_line(entry: dict) -> str | None:
             f"{last.get('reviewer', 'n/a')} ({last.get('updated', 'n/a')})")
 
 
-_EVIDENCE_HEAD = ["feature", "value", "z", "percentile", "contribution", "conditional z"]
+_EVIDENCE_HEAD = ["feature", "reading", "z", "percentile", "contribution", "conditional z"]
 _METRIC_HEAD = ["model", "threshold", "tp", "fp", "fn", "tn", "precision", "recall", "F1"]
 _SCORE_HEAD = ["model", "log-density", "threshold", "margin", "verdict"]
 

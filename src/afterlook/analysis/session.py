@@ -26,7 +26,7 @@ import pandas as pd
 
 from ..core.errors import AfterlookError
 from ..core.recipe import parse_assignment
-from ..core.thresholds import Confusion, confusion, flag
+from ..core.thresholds import Confusion, confusion, flag, outside_domain
 from ..store.columns import numeric_columns_of
 from ..store.tables import Table, load_table, sha256_file, table_from_frame
 from .model import Model, load_model
@@ -102,8 +102,9 @@ class ScoredCases:
     model: Model
     table: Table
     features: np.ndarray  # (n, d) model features
-    log_density: np.ndarray
+    log_density: np.ndarray  # NaN: a reading is missing (unscored); -inf: outside a feature's domain
     flagged: np.ndarray
+    outside_domain: np.ndarray | None = None  # a feature undefined on finite readings (flagged or not: policy)
 
     @property
     def labels(self) -> np.ndarray | None:
@@ -112,6 +113,20 @@ class ScoredCases:
     @property
     def margin(self) -> np.ndarray:
         return self.log_density - self.model.threshold
+
+    @property
+    def unscored(self) -> np.ndarray:
+        """Cases with no log-density at all (a missing reading, or outside a domain under the "skip" policy)."""
+        return np.isnan(self.log_density)
+
+    def domain_ids(self, labelled: bool | None = None) -> list[str]:
+        """Ids of the cases outside a feature's domain (of one label when ``labelled`` is given)."""
+        if self.outside_domain is None:
+            return []
+        mask = self.outside_domain.copy()
+        if labelled is not None and self.labels is not None:
+            mask &= self.labels if labelled else ~self.labels
+        return [str(self.table.ids[i]) for i in np.flatnonzero(mask)]
 
     def confusion(self) -> Confusion:
         """Confusion counts of the flags against the labels (one-line error without labels)."""
@@ -281,7 +296,10 @@ class Session:
         if self._scored is None:
             fm = self.model.recipe.transform_features(self.raw_features(CASES))
             ld = self.model.density.log_density(fm.values)
-            self._scored = ScoredCases(self.model, self.cases, fm.values, ld, flag(ld, self.model.threshold))
+            inputs_ok = self.model.inputs_finite(self.columns(CASES))
+            domain = outside_domain(ld, inputs_ok)
+            ld = self.model.with_undefined_policy(ld, self.columns(CASES))
+            self._scored = ScoredCases(self.model, self.cases, fm.values, ld, flag(ld, self.model.threshold), domain)
         return self._scored
 
 

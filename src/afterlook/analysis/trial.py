@@ -35,6 +35,8 @@ class TryResult:
     model: Model
     warnings: list[str] = field(default_factory=list)
     heldout: HeldOut | None = None  # F1 before/after on cases the threshold was not picked on
+    outside_domain: tuple[int, int] = (0, 0)  # cases with a feature undefined on finite readings, before/after
+    unscored: tuple[int, int] = (0, 0)  # cases with no log-density, before/after
 
     @property
     def false_alarms_added(self) -> int:
@@ -44,8 +46,10 @@ class TryResult:
         return {
             "derive": [{"name": n, "expression": e} for n, e in self.derive],
             "training": self.training_source,
-            "before": {"threshold": self.threshold_before, **self.before.to_dict()},
-            "after": {"threshold": self.threshold_after, **self.after.to_dict()},
+            "before": {"threshold": self.threshold_before, **self.before.to_dict(),
+                       "outside_domain": self.outside_domain[0], "unscored": self.unscored[0]},
+            "after": {"threshold": self.threshold_after, **self.after.to_dict(),
+                      "outside_domain": self.outside_domain[1], "unscored": self.unscored[1]},
             "false_alarms_added": self.false_alarms_added,
             "misses_caught": sum(1 for c in self.cases if c["label"] == "anomaly" and c["after"]["flagged"] and not c["before"]["flagged"]),
             "heldout": self.heldout.to_dict() if self.heldout is not None else None,
@@ -92,8 +96,14 @@ def try_features(model, cases, derive, train=None, *, focus: list[str] | None = 
     rows = _flip_rows(before, after, focus or [])
     warnings = training.warnings + new.warnings
     heldout = _heldout(model, new, session, before, after, holdout, folds, warnings)
+    domain = tuple(int(s.outside_domain.sum()) if s.outside_domain is not None else 0 for s in (before, after))
+    unscored = tuple(int(s.unscored.sum()) for s in (before, after))
+    if domain[1] > domain[0]:
+        how = "flagged as outside its domain" if new.undefined == "flag" else "left unscored (--undefined skip)"
+        warnings.append(f"{domain[1] - domain[0]} more case(s) have a feature undefined on finite readings "
+                        f"after the change (e.g. a zero divisor): {how}")
     return TryResult(before.confusion(), after.confusion(), model.threshold, new.threshold, rows, pairs,
-                     training.source, new, warnings, heldout)
+                     training.source, new, warnings, heldout, domain, unscored)
 
 
 def _heldout(model: Model, new: Model, session: Session, before: ScoredCases, after: ScoredCases, holdout,

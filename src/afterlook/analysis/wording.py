@@ -70,8 +70,11 @@ def bar_cells(z: float | None, half: int, full_scale: float = BAR_FULL_SCALE) ->
 
 def standing(label: bool | None, flagged: bool, log_density: float) -> str:
     """Where a case stands, in words."""
-    if not math.isfinite(log_density):
-        return "not scored (a feature is NaN or infinite)"
+    if math.isnan(log_density):
+        return "not scored (a reading is missing or infinite)"
+    if log_density == -math.inf:
+        return ("outside a feature's domain (undefined on finite readings): flagged" if flagged
+                else "outside a feature's domain (undefined on finite readings)")
     if label is None:
         return "flagged" if flagged else "not flagged"
     if label:

@@ -182,7 +182,7 @@ def near_catch_gap(session: WorkbenchSession) -> float:
     finite normal cases or the median normal case is itself flagged.
     """
     ld = session.scored.log_density
-    normal = ~session.labels & np.isfinite(ld)
+    normal = ~session.labels & np.isfinite(ld)  # the median of scored, in-domain normals
     if not normal.any():
         return 0.0
     return max(0.0, float(np.median(ld[normal])) - float(session.model.threshold))
@@ -199,7 +199,7 @@ def case_rows(session: WorkbenchSession, *, near: bool = False, false_alarms: bo
     rows = [CaseRow(m.case, KIND_MISS, m.log_density, m.margin, m.context) for m in session.missed.misses]
     sc = session.scored
     y = session.labels
-    finite = ~np.isnan(sc.log_density)  # scored; -inf (an overflowing reading) is flagged
+    finite = ~np.isnan(sc.log_density)  # -inf: outside a feature's domain or an overflowing reading, flagged
     margin = sc.margin
     if near:
         gap = near_catch_gap(session)
@@ -229,7 +229,7 @@ def case_counts(session: WorkbenchSession) -> dict:
     """How many rows each toggle of the case list would add."""
     sc = session.scored
     y = session.labels
-    finite = ~np.isnan(sc.log_density)  # scored; -inf (an overflowing reading) is flagged
+    finite = ~np.isnan(sc.log_density)  # scored; -inf (outside a domain, or overflow) is flagged
     gap = near_catch_gap(session)
     return {
         KIND_MISS: len(session.missed.misses),
@@ -271,7 +271,9 @@ def case_evidence(session: WorkbenchSession, case_id: str) -> EvidenceView:
 
     Uses the session's scoring instead of re-scoring every case. ``raw_value``
     is the reading before the recipe's transform (equal to ``value`` for an
-    untransformed feature); z, percentile and share are on the model's scale. ``share`` is
+    untransformed feature); z, percentile and conditional z are signed as the
+    reading (a transform that reverses order flips them, so a high reading
+    never reads "low"). ``share`` is
     ``contribution / sum(contributions)`` in %: how much of the case's
     log-density below the peak this feature accounts for (cross terms of
     the full model can make a share negative or above 100).
@@ -288,8 +290,9 @@ def case_evidence(session: WorkbenchSession, case_id: str) -> EvidenceView:
     for f in result.features_by_cost():
         share = 100.0 * f.contribution / total if total != 0 and math.isfinite(f.contribution) else math.nan
         t = model.recipe.transforms.get(f.name)
-        rows.append(EvidenceRow(f.name, f.value, float(raw[f.name][i]), f.z, f.percentile, f.contribution, share, f.conditional_z,
-                                reading(f.z), relation_words(f.z, f.conditional_z),
+        rows.append(EvidenceRow(f.name, f.value, float(raw[f.name][i]), f.z_reading, f.percentile_reading,
+                                f.contribution, share, f.conditional_z_reading,
+                                reading(f.z_reading), relation_words(f.z_reading, f.conditional_z_reading),
                                 t.describe(f.name) if t is not None else ""))
     return EvidenceView(result, rows, standing(label, result.flagged, result.log_density), result.full_model)
 

@@ -71,6 +71,9 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--transform", action="append", default=[], metavar="COL=EXPR",
                    help="per-feature transform: an expression over COL, boxcox, yeojohnson, boxcox(0.3) (repeatable)")
     p.add_argument("--threshold", help="f1 | rate:R | value:V (default f1 with labelled cases, else rate:0.01)")
+    p.add_argument("--undefined", choices=("flag", "skip"), default="flag",
+                   help="a case whose feature is undefined on finite readings (a zero divisor, a log of a "
+                        "non-positive value): flag it as outside the feature's domain (default) or leave it unscored")
     p.add_argument("--engine", default="memory",
                    help="memory (default), chunked (files larger than memory) or dask (a Dask cluster)")
     p.add_argument("--scheduler", metavar="ADDRESS", help="Dask scheduler address for --engine dask (default: a local cluster)")
@@ -128,7 +131,8 @@ def cmd_fit(args) -> int:
             raise AfterlookError("--scheduler needs --engine dask")
         train = load_table(args.train, **table_options(args))
         model = fitting.fit(train, cases=cases, kind=args.kind, robust=args.robust, shrinkage=args.shrinkage,
-                        derive=derive, transform=transform, threshold=args.threshold, columns=args.columns)
+                            derive=derive, transform=transform, threshold=args.threshold, columns=args.columns,
+                            undefined=args.undefined)
     else:
         if args.engine not in ("chunked", "dask"):
             raise AfterlookError(f"unknown --engine '{args.engine}' (choose: memory, chunked, dask)")
@@ -143,7 +147,7 @@ def cmd_fit(args) -> int:
                                  chunk_rows=args.chunk_rows, cases=cases, kind=args.kind,
                                      shrinkage=args.shrinkage, derive=derive, transform=transform,
                                  threshold=args.threshold, columns=args.columns, id_col=args.id_col,
-                                 label_col=args.label_col)
+                                 label_col=args.label_col, undefined=args.undefined)
     model.save(args.out)
     quality = None
     if cases is not None and cases.labels is not None:
@@ -193,12 +197,12 @@ def cmd_score(args) -> int:
         check_output(args.out, kind="table", inputs=[args.model, args.data], force=args.force)
     model = load_model(args.model)
     table = load_table(args.data, **table_options(args))
-    scored = model.score(table.frame)
+    scored, overflowed = model.score_with_overflow(table.frame)
     warn(table.warnings)
     n_bad = int(scored["log_density"].isna().sum())
     if n_bad:
         warn([f"{n_bad} row(s) have NaN or infinite features: log_density is empty and they are not flagged"])
-    n_overflow = int(np.isneginf(scored["log_density"].to_numpy(dtype=float)).sum())
+    n_overflow = int(overflowed.sum())
     if n_overflow:
         warn([f"{n_overflow} row(s) have readings so extreme that the log-density overflows: "
               "log_density is -inf and they are flagged"])
@@ -220,8 +224,8 @@ def cmd_score(args) -> int:
         if not args.out:
             doc["rows"] = [
                 {"case": str(cid), "log_density": finite_or_none(ld), "flagged": bool(fl),
-                 **({"overflow": True} if ld == -np.inf else {})}
-                for cid, ld, fl in zip(table.ids, scored["log_density"], scored["flagged"])
+                 **({"overflow": True} if over else {})}
+                for cid, ld, fl, over in zip(table.ids, scored["log_density"], scored["flagged"], overflowed)
             ]
         emit_json(doc)
         return EXIT_OK

@@ -125,15 +125,20 @@ def explain_table(result: ExplainResult) -> Group:
     head.append(f"\nlog-density {shown} vs threshold {fmt(result.threshold)}")
     if math.isfinite(result.log_density):
         head.append(f" (margin {result.margin:+.3f})")
-    elif result.log_density == -math.inf:
+    elif result.overflow:
         head.append(" (log-density minus infinity: a reading is so extreme that it overflows; flagged)")
+    elif result.log_density == -math.inf:
+        head.append(" (a feature is undefined on these readings: outside its domain, flagged)")
     else:
         head.append(" (not scored: a feature is missing or undefined)")
     ctx = "  ".join(f"{k}: {v}" for k, v in result.context.items() if v)
     full = result.full_model
     table = Table(box=box.SIMPLE_HEAD, show_edge=False)
     table.add_column("feature", no_wrap=True, overflow="ellipsis", max_width=20)
-    table.add_column("value", justify="right", no_wrap=True)
+    table.add_column("reading", justify="right", no_wrap=True)
+    shaped = any(f.reading is not None and f.value != f.reading for f in result.features)
+    if shaped:
+        table.add_column("model value", justify="right", no_wrap=True)
     table.add_column("z bar", justify="center", no_wrap=True)
     table.add_column("z", justify="right", no_wrap=True)
     table.add_column("pct", justify="right", no_wrap=True)
@@ -143,16 +148,22 @@ def explain_table(result: ExplainResult) -> Group:
     order = result.features_by_cost()
     broken = False
     for f in order:
-        row = [f.name, _short_num(f.value), z_bar(f.z), _signed(f.z), fmt(f.percentile, 1), _signed(f.contribution, "")]
+        reading = f.value if f.reading is None else f.reading
+        row = [f.name, _short_num(reading)]
+        if shaped:
+            row.append(_short_num(f.value) if f.value != reading else "")
+        row += [z_bar(f.z_reading), _signed(f.z_reading), fmt(f.percentile_reading, 1), _signed(f.contribution, "")]
         if full:
-            cz = f.conditional_z
-            mark = _relation_mark(f.z, cz)
+            cz = f.conditional_z_reading
+            mark = _relation_mark(f.z_reading, cz)
             broken = broken or bool(mark)
             row.append((_signed(cz) if cz is not None else "n/a") + mark)
         table.add_row(*row)
     note = Text(
-        f"z: standard deviations from the normal mean (bar: - left, + right, full at {BAR_FULL_SCALE:g}); "
-        "pct: % of normal rows at or below; contrib: nats of log-density below its peak",
+        f"reading: the value before any transform; z: standard deviations from the normal mean, signed as the "
+        f"reading (+ = higher; bar: - left, + right, full at {BAR_FULL_SCALE:g}); "
+        "pct: % of normal rows at or below the reading; contrib: nats of log-density below its peak"
+        + ("; model value: after the feature's transform" if shaped else ""),
         style="dim",
     )
     parts = [head]

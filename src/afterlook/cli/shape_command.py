@@ -44,6 +44,9 @@ def register(sub, add_common, add_table_opts, caution) -> dict:
     p.add_argument("--sample", type=_sample_size, default=5000, metavar="N",
                    help="rows sampled (seeded) for the statistics (default 5000)")
     p.add_argument("--no-hist", action="store_true", help="do not draw the before/after histograms")
+    p.add_argument("--cases", metavar="CASES",
+                   help="labelled cases: judge each transform by how many anomalies the column alone separates "
+                        "at a 1%% false-alarm rate, and never recommend one that separates fewer")
     add_table_opts(p)
     add_common(p)
     return {"shape": run}
@@ -75,7 +78,10 @@ def run(args) -> int:
     from .render import console
 
     table = load_table(args.data, **table_options(args))
-    report = shape(table, columns=args.columns, statistic=args.statistic, sample_size=args.sample)
+    cases = None
+    if args.cases:
+        cases = load_table(args.cases, **table_options(args), require_labels=True)
+    report = shape(table, columns=args.columns, statistic=args.statistic, sample_size=args.sample, cases=cases)
     warn(report.warnings)
     if args.json:
         emit_json(report.to_dict())
@@ -100,8 +106,13 @@ def run(args) -> int:
     grid.add_column("skew\nbefore -> after", justify="right", no_wrap=True)
     grid.add_column(f"{short}\nbefore -> after", justify="right", no_wrap=True)
     for r in report.features:
-        cell = Text(_short_transform(r), style="bold" if r.transform is not None else "dim")
+        cell = Text(_short_transform(r), style="bold" if r.recommended else "dim")
         cell.append("\n" + r.verdict, style="italic")
+        if r.separation_before is not None and r.transform is not None:
+            cell.append(f"\nanomalies separated alone: {r.separation_before:.0%} -> {r.separation_after:.0%}",
+                        style="dim")
+        if r.held_back:
+            cell.append("\n" + r.held_back, style="yellow")
         grid.add_row(
             Text(r.name),
             cell,
@@ -110,9 +121,10 @@ def run(args) -> int:
         )
     out.print(grid)
 
-    chosen = [r for r in report.features if r.transform is not None]
+    chosen = [r for r in report.features if r.recommended]
     if not chosen:
-        out.print("No column needs a transform.")
+        out.print("No transform to recommend." if any(r.held_back for r in report.features)
+                  else "No column needs a transform.")
         return EXIT_OK
     if not args.no_hist:
         for r in chosen:

@@ -40,6 +40,12 @@ def _fmt(x: float) -> str:
     return f"{x:.6g}"
 
 
+def _centred(expression: str, mean: float) -> str:
+    """``(expression - mean)`` written without a double sign (``+ 0.82`` rather than ``- -0.82``)."""
+    sign = "-" if mean >= 0 else "+"
+    return f"(({expression}) {sign} {_fmt(abs(mean))})"
+
+
 def _std_expr(name: str, mean: float, sd: float) -> str:
     q = expressions.quote_name(name)
     sign = "-" if mean >= 0 else "+"
@@ -184,7 +190,7 @@ def shaped_groups(m: Moments, sample, shaped: Mapping[str, str], groups: list) -
         s = -1.0 if rr >= 0 else 1.0
         ea = shaped[na] if na in sh_cols else q[a]
         eb = shaped[nb] if nb in sh_cols else q[b]
-        texts.append(f"(({ea}) - {_fmt(ma)}) / {_fmt(sa)} {'-' if s < 0 else '+'} (({eb}) - {_fmt(mb)}) / {_fmt(sb)}")
+        texts.append(f"{_centred(ea, ma)} / {_fmt(sa)} {'-' if s < 0 else '+'} {_centred(eb, mb)} / {_fmt(sb)}")
         ii.append(a)
         jj.append(b)
         means.append(0.0)

@@ -25,6 +25,8 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 
+import math
+
 import numpy as np
 
 from .gaussian import GaussianModel
@@ -65,16 +67,37 @@ def percentile_from_grid(grid_column: np.ndarray, value: float) -> float:
 
 @dataclass(frozen=True)
 class FeatureEvidence:
-    """The evidence of one feature for one case (see the module docstring for each number)."""
+    """The evidence of one feature for one case (see the module docstring for each number).
+
+    ``value``, ``z`` and ``percentile`` are on the model's scale (after the
+    recipe's transform). ``reading`` is the value before the transform, and
+    ``direction`` is -1 when the transform reverses order at this reading
+    (e.g. ``x ** -0.5``), so that ``z_reading`` and ``percentile_reading``
+    say how high or low the *reading* is: a high reading never reads "low".
+    """
     name: str
     value: float
     z: float
     percentile: float
     contribution: float
     conditional_z: float | None
+    reading: float | None = None
+    direction: int = 1
+
+    @property
+    def z_reading(self) -> float:
+        return self.direction * self.z
+
+    @property
+    def percentile_reading(self) -> float:
+        return self.percentile if self.direction > 0 else 100.0 - self.percentile
+
+    @property
+    def conditional_z_reading(self) -> float | None:
+        return None if self.conditional_z is None else self.direction * self.conditional_z
 
     def to_dict(self) -> dict:
-        return {
+        doc = {
             "name": self.name,
             "value": finite_or_none(self.value),
             "z": finite_or_none(self.z),
@@ -82,6 +105,26 @@ class FeatureEvidence:
             "contribution": finite_or_none(self.contribution),
             "conditional_z": None if self.conditional_z is None else finite_or_none(self.conditional_z),
         }
+        if self.reading is not None:
+            doc.update(reading=finite_or_none(self.reading), order_reversed=self.direction < 0,
+                       z_reading=finite_or_none(self.z_reading),
+                       percentile_reading=finite_or_none(self.percentile_reading))
+        return doc
+
+
+def transform_direction(transform_of, reading: float) -> int:
+    """+1 when ``transform_of`` (a function of one reading) increases at ``reading``, -1 when it decreases.
+
+    Judged by a small step on each side of the reading; +1 when undecided
+    (a non-finite reading or a flat transform).
+    """
+    if reading is None or not math.isfinite(reading):
+        return 1
+    h = max(abs(reading), 1.0) * 1e-6
+    lo, hi = transform_of(np.array([reading - h, reading + h]))
+    if not (math.isfinite(lo) and math.isfinite(hi)):
+        lo, hi = transform_of(np.array([reading, reading + h]))
+    return -1 if math.isfinite(lo) and math.isfinite(hi) and hi < lo else 1
 
 
 def evidence(model: GaussianModel, x: np.ndarray, grid: np.ndarray | None = None) -> list[FeatureEvidence]:

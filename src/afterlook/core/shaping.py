@@ -10,7 +10,9 @@ one column and keeps the one under which the column looks most Gaussian:
 * none (the identity);
 * ``log(x + c)`` over a small grid of shifts ``c >= 0`` (see :func:`shift_grid`);
 * powers ``x ** p`` for ``p`` in :data:`POWERS` (``-1 <= p < 1``, small
-  powers included), where the column's domain allows them;
+  powers included), where the column's domain allows them, written
+  ``-(x ** p)`` for ``p < 0`` so that every proposal keeps the order of the
+  readings (the fitted Box-Cox form ``(x ** p - 1) / p`` is increasing too);
 * Box-Cox (positive columns) and Yeo-Johnson (any column), with lambda the
   maximum-likelihood value of ``scipy.stats.boxcox`` /
   ``scipy.stats.yeojohnson`` on the sample.
@@ -187,6 +189,14 @@ class ShapeResult:
     n_values: int = 0
     n_nonfinite: int = 0
     note: str = ""
+    separation_before: float | None = None  # share of labelled anomalies beyond the 1% normal tail, raw column
+    separation_after: float | None = None  # the same with the transform
+    held_back: str = ""  # why a transform that looks more Gaussian is not recommended (it hides anomalies)
+
+    @property
+    def recommended(self) -> bool:
+        """A transform that makes the column more Gaussian and does not hide labelled anomalies."""
+        return self.transform is not None and not self.held_back
 
     @property
     def transform_text(self) -> str | None:
@@ -199,7 +209,7 @@ class ShapeResult:
         return None if self.transform is None else f"{self.name}={self.description}"
 
     def to_dict(self) -> dict:
-        return {
+        doc = {
             "name": self.name,
             "transform": self.transform_text,
             "skew_before": finite_or_none(self.skew_before),
@@ -208,6 +218,10 @@ class ShapeResult:
             "normality_after": finite_or_none(self.normality_after),
             "statistic": self.statistic,
         }
+        if self.separation_before is not None or self.held_back:
+            doc.update(separation_before=self.separation_before, separation_after=self.separation_after,
+                       recommended=self.recommended, held_back=self.held_back or None)
+        return doc
 
 
 # --------------------------------------------------------------------------
@@ -277,6 +291,11 @@ def _log_text(col: str, c: float, c_text: str) -> str:
 
 
 def _power_text(col: str, p: float) -> str:
+    """``col ** p``, negated for ``p < 0`` so that every proposed power keeps the readings' order
+    (a higher reading stays higher after the transform; an affine change, so the
+    normality statistics are those of ``col ** p``)."""
+    if p < 0:
+        return f"-({col} ** {_number_text(p)})"
     return f"{col} ** {_number_text(p)}"
 
 

@@ -93,6 +93,28 @@ class Confusion:
         }
 
 
+#: what a case gets when a feature is undefined although its readings are finite
+#: (a zero divisor, a log of a non-positive value): "flag" scores it -inf, i.e.
+#: outside the feature's domain, flagged; "skip" leaves it unscored (NaN).
+UNDEFINED_POLICIES = ("flag", "skip")
+
+
+def outside_domain(log_density: np.ndarray, inputs_finite: np.ndarray) -> np.ndarray:
+    """Cases whose log-density is undefined although every reading the recipe uses is finite."""
+    ld = np.asarray(log_density, dtype=np.float64)
+    return np.isnan(ld) & np.asarray(inputs_finite, dtype=bool)
+
+
+def apply_undefined_policy(log_density: np.ndarray, inputs_finite: np.ndarray, policy: str) -> np.ndarray:
+    """``log_density`` with cases outside a feature's domain at -inf (policy "flag") or left NaN ("skip")."""
+    if policy not in UNDEFINED_POLICIES:
+        raise AfterlookError(f"unknown undefined-value policy {policy!r} (choose: {', '.join(UNDEFINED_POLICIES)})")
+    ld = np.asarray(log_density, dtype=np.float64)
+    if policy == "skip":
+        return ld
+    return np.where(outside_domain(ld, inputs_finite), -np.inf, ld)
+
+
 def flag(log_density: np.ndarray, threshold: float) -> np.ndarray:
     """Flagged = log-density strictly below the threshold (NaN: not flagged)."""
     with np.errstate(invalid="ignore"):
@@ -129,13 +151,16 @@ def best_f1_threshold(log_density: np.ndarray, is_anomaly: np.ndarray) -> tuple[
         raise AfterlookError("best-F1 threshold needs labelled anomalies among the cases; none are labelled anomaly")
     if not ok.any():
         raise AfterlookError("no case has a finite log-density")
+    # Cases at -inf (outside a feature's domain) are flagged by every threshold.
+    always = np.isneginf(ld)
+    tp0, fp0 = int((always & y).sum()), int((always & ~y).sum())
     s, yy = ld[ok], y[ok]
     order = np.argsort(s, kind="mergesort")
     s, yy = s[order], yy[order]
     # Cut after position k (flag s[0..k]); only where the next score differs.
     last_of_run = np.r_[s[1:] != s[:-1], True]
-    tp = np.cumsum(yy)[last_of_run]
-    fp = np.cumsum(~yy)[last_of_run]
+    tp = np.cumsum(yy)[last_of_run] + tp0
+    fp = np.cumsum(~yy)[last_of_run] + fp0
     f1 = 2 * tp / (n_pos + tp + fp)  # fn = n_pos - tp, so 2tp + fp + fn = n_pos + tp + fp
     best = int(np.flatnonzero(f1 == f1.max())[-1])
     cuts = s[last_of_run]
@@ -153,13 +178,16 @@ def rate_threshold(normal_log_density: np.ndarray, rate: float) -> float:
 
     With ``k = floor(rate * n)``, the threshold is the (k+1)-th smallest
     normal log-density: exactly the k lowest are strictly below it (fewer
-    when scores tie).
+    when scores tie). Normal rows at -inf (outside a feature's domain) are
+    flagged by any threshold and count against the budget; NaN rows do not.
     """
     ld = np.asarray(normal_log_density, dtype=np.float64)
+    always = int(np.isneginf(ld).sum())  # outside a feature's domain: flagged whatever the threshold
+    n_scored = int((~np.isnan(ld)).sum())
     ld = np.sort(ld[np.isfinite(ld)])
     if ld.size == 0:
         raise AfterlookError("false-alarm budget needs normal rows with a finite log-density")
-    k = int(math.floor(rate * ld.size + 1e-9))
+    k = max(int(math.floor(rate * n_scored + 1e-9)) - always, 0)
     if k >= ld.size:
         return float(np.nextafter(ld[-1], np.inf))
     return float(ld[k])
