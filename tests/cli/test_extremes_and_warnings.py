@@ -153,3 +153,20 @@ def test_overflow_is_told_apart_from_a_feature_outside_its_domain(demo_written, 
     assert code == 0 and json.loads(out)["overflow"] is False, err
     code, out, err = run_cli("explain", model, cases, rows[2][0])
     assert "outside its domain" in out and "overflows" not in out
+
+
+def test_python_warnings_become_one_afterlook_line_each():
+    import warnings
+
+    from afterlook.cli.main import python_warnings
+
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        np.square(np.array([1e300]))  # numpy: "overflow encountered in square"
+        np.square(np.array([1e300]))
+        warnings.warn("old api", DeprecationWarning)
+        warnings.warn("a\nsecond line", UserWarning)
+    lines = python_warnings(caught)
+    assert len(lines) == 2
+    assert lines[0].startswith("numeric overflow")
+    assert lines[1] == "UserWarning: a second line"

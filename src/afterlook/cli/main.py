@@ -299,7 +299,7 @@ def main(argv: list[str] | None = None) -> int:
         # are recorded and, if the command succeeds, said once each in afterlook's words. A failed command
         # prints its one error line and nothing else.
         with warnings.catch_warnings(record=True) as caught:
-            warnings.simplefilter("always")
+            warnings.simplefilter("always", RuntimeWarning)  # every overflow counts, wherever it happens
             code = COMMANDS[args.command](args)
         warn(python_warnings(caught))
         return code
@@ -331,6 +331,8 @@ def python_warnings(caught) -> list[str]:
     """Recorded Python warnings as afterlook's one-line messages, each kind once."""
     out: list[str] = []
     for w in caught:
+        if issubclass(w.category, (DeprecationWarning, PendingDeprecationWarning, FutureWarning, ResourceWarning)):
+            continue  # about library versions, not the user's data: nothing a user can act on
         text = " ".join(str(w.message).split())
         if issubclass(w.category, RuntimeWarning) and "overflow" in text:
             line = ("numeric overflow: some values are too large to compute with (beyond about 1e154 squared); "
