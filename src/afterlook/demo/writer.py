@@ -48,7 +48,8 @@ def check_demo_folder(folder: Path) -> None:
         return
     clash = sorted(present & set(DEMO_FILES))
     what = f"it already holds {', '.join(clash)}" if clash else "it is not empty"
-    raise AfterlookError(f"--dir {shown} was not made by the demo and {what}; choose a new or empty folder")
+    raise AfterlookError(f"--dir {shown} was not made by the demo and {what}; choose a new or empty folder "
+                         f"(a folder an older afterlook demo made has no {DEMO_MARK} mark: delete it first)")
 
 
 def write_demo(folder: Path, seed: int = 7):
