@@ -251,7 +251,7 @@ def _targets(session: Session, case_ids, miss_mask: np.ndarray) -> tuple[list[in
     else:
         idx = list(np.flatnonzero(miss_mask))
         if not idx:
-            raise AfterlookError("there are no misses to explain: every labelled anomaly is flagged")
+            raise AfterlookError("no misses to explain among the scored cases ('misses' lists anomalies not scored)")
     warnings = []
     for i in idx:
         if not table.labels[i]:

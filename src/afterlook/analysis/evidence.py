@@ -47,11 +47,31 @@ class MissesResult:
     outside_domain_anomalies: list[str] = field(default_factory=list)
     outside_domain_normals: list[str] = field(default_factory=list)
 
+    @property
+    def n_flagged_anomalies(self) -> int:
+        """Labelled anomalies that were scored and flagged."""
+        return self.n_anomalies - len(self.misses) - len(self.unscored)
+
+    def coverage(self) -> str:
+        """What the misses list covers, in one sentence: never an all-clear for anomalies that were not scored."""
+        if self.n_anomalies == 0:
+            return "no labelled anomalies among the cases: there is nothing to miss or catch"
+        missed, unscored, flagged = len(self.misses), len(self.unscored), self.n_flagged_anomalies
+        if unscored == 0:
+            if missed == 0:
+                return f"no misses: all {flagged} labelled anomalies are flagged"
+            return f"{flagged} of {self.n_anomalies} labelled anomalies flagged, {missed} missed"
+        return (f"of {self.n_anomalies} labelled anomalies: {flagged} flagged, {missed} missed, {unscored} not scored "
+                "(missing or undefined features): nothing can be concluded about the ones not scored")
+
     def to_dict(self) -> dict:
         return {
             "threshold": self.threshold,
             "n_cases": self.n_cases,
             "n_anomalies": self.n_anomalies,
+            "n_flagged_anomalies": self.n_flagged_anomalies,
+            "n_unscored_anomalies": len(self.unscored),
+            "coverage": self.coverage(),
             "n_misses": len(self.misses),
             "misses": [m.to_dict() for m in self.misses],
             "metrics": self.metrics.to_dict(),
@@ -78,7 +98,7 @@ def misses(model, cases=None) -> MissesResult:
     if table.labels is None:
         raise AfterlookError(f"{table_name(table)} has no label column; misses need labelled cases (--label-col)")
     y = table.labels
-    finite = ~np.isnan(sc.log_density)  # scored; -inf (outside a feature's domain) is scored and flagged
+    finite = ~np.isnan(sc.log_density)  # scored; -inf (outside a feature's domain, or overflow) is flagged
     is_miss = y & ~sc.flagged & finite
     idx = np.flatnonzero(is_miss)
     idx = idx[np.argsort(-sc.margin[idx], kind="mergesort")]
@@ -93,12 +113,24 @@ def misses(model, cases=None) -> MissesResult:
                else "left unscored (the model's undefined-value policy is skip)")
         warnings.append(f"{len(domain)} case(s) have a feature that is undefined on finite readings (e.g. a zero "
                         f"divisor or the log of a non-positive value): {how}")
+    overflowed = int(overflow_mask(sc).sum())
+    if overflowed:
+        warnings.append(f"{overflowed} case(s) have readings so extreme that the log-density overflows: "
+                        "scored as minus infinity and flagged")
     quality = ranking_quality(sc.log_density, y, model.threshold)
     warnings += quality.warnings()
     never_seen = never_seen_values(model, table)  # a finding: in the result, not a warning
     return MissesResult(model.threshold, int(len(y)), int(y.sum()), rows, sc.confusion(), unscored,
                         model.describe_kind(), warnings, quality, never_seen,
                         sc.domain_ids(labelled=True), sc.domain_ids(labelled=False))
+
+
+def overflow_mask(sc) -> np.ndarray:
+    """Cases at -inf because a finite reading overflowed (not because a feature is outside its domain)."""
+    mask = np.isneginf(sc.log_density)
+    if getattr(sc, "outside_domain", None) is not None:
+        mask &= ~sc.outside_domain
+    return mask
 
 
 def never_seen_values(model, table) -> list[UnseenValue]:
@@ -123,6 +155,12 @@ class ExplainResult:
     label: bool | None
     context: dict
     model_kind: str
+    outside_domain: bool = False  # -inf because a feature is undefined on finite readings (not an overflow)
+
+    @property
+    def overflow(self) -> bool:
+        """-inf because a finite reading is so extreme that its log-density overflows."""
+        return bool(np.isneginf(self.log_density)) and not self.outside_domain
 
     @property
     def margin(self) -> float:
@@ -134,8 +172,8 @@ class ExplainResult:
         return any(f.conditional_z is not None for f in self.features)
 
     def features_by_cost(self) -> list[FeatureEvidence]:
-        """The features, largest cost (most negative contribution) first; NaN counts as 0, ties keep recipe order."""
-        return sorted(self.features, key=lambda f: f.contribution if math.isfinite(f.contribution) else 0.0)
+        """The features, largest cost (most negative contribution, -inf on overflow) first; NaN counts as 0, ties keep recipe order."""
+        return sorted(self.features, key=lambda f: 0.0 if math.isnan(f.contribution) else f.contribution)
 
     def to_dict(self) -> dict:
         ld = self.log_density if np.isfinite(self.log_density) else None
@@ -144,6 +182,7 @@ class ExplainResult:
             "log_density": ld,
             "threshold": self.threshold,
             "margin": None if ld is None else self.margin,
+            "overflow": self.overflow,
             "flagged": bool(self.flagged),
             "label": None if self.label is None else ("anomaly" if self.label else "normal"),
             "model_kind": self.model_kind,
@@ -185,5 +224,6 @@ def explain_case(session: Session, case_id) -> ExplainResult:
     ev = evidence(model.density, sc.features[i], model.quantiles)
     ev = oriented_to_readings(model, ev, session.raw_features("cases"), i)
     label = None if sc.labels is None else bool(sc.labels[i])
+    domain = sc.outside_domain is not None and bool(sc.outside_domain[i])
     return ExplainResult(str(sc.table.ids[i]), float(sc.log_density[i]), model.threshold, ev,
-                         bool(sc.flagged[i]), label, case_context(sc.table, i), model.describe_kind())
+                         bool(sc.flagged[i]), label, case_context(sc.table, i), model.describe_kind(), domain)

@@ -106,6 +106,16 @@ class Model:
         out["flagged"] = flag(ld, self.threshold)
         return out
 
+    def score_with_overflow(self, df: pd.DataFrame) -> tuple[pd.DataFrame, np.ndarray]:
+        """:meth:`score` and the rows at -inf because a finite reading overflowed (not a feature's domain)."""
+        cols = _columns_of(df)
+        raw = self.density.log_density(self.recipe.apply(cols).values)  # -inf only on overflow
+        ld = self.with_undefined_policy(raw, cols)
+        out = df.copy()
+        out["log_density"] = ld
+        out["flagged"] = flag(ld, self.threshold)
+        return out, np.isneginf(raw)
+
     def fingerprint(self) -> str:
         """16 hex digits that identify this fit on any machine (see :mod:`afterlook.core.fingerprint`).
 

@@ -24,6 +24,7 @@ import re
 from collections import Counter
 from typing import Iterable
 
+from ..core.printable import printable
 from ..store.casebook_file import STATUSES, Casebook
 
 __all__ = ["render_markdown", "render_html", "render_entry_markdown", "histogram_svg", "caution_text", "FORMATS"]
@@ -168,12 +169,12 @@ _MD_SPECIAL = re.compile(r"([\\`*_\[\]<>#+|~&])")
 
 def md_text(text) -> str:
     """User text for Markdown: one line, punctuation backslash-escaped (CommonMark)."""
-    return _MD_SPECIAL.sub(r"\\\1", " ".join(str(text).split()))
+    return _MD_SPECIAL.sub(r"\\\1", printable(" ".join(str(text).split())))
 
 
 def md_code(text) -> str:
     """A code span that survives backticks and table pipes inside ``text``."""
-    text = " ".join(str(text).split())
+    text = printable(" ".join(str(text).split()))
     runs = [len(r) for r in re.findall(r"`+", text)]
     fence = "`" * ((max(runs) + 1) if runs else 1)
     pad = " " if text.startswith("`") or text.endswith("`") or runs else ""
@@ -303,7 +304,7 @@ footer { color: #45505b; font-size: 0.85rem; border-top: 1px solid #d5d8d0; marg
 
 
 def _e(text) -> str:
-    return html.escape("" if text is None else str(text), quote=True)
+    return html.escape("" if text is None else printable(text), quote=True)
 
 
 def _html_table(head: list[str], rows: Iterable[list[str]], row_classes: Iterable[str] | None = None) -> str:

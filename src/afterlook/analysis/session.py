@@ -68,9 +68,19 @@ def case_context(table: Table, i: int) -> dict:
     """The context (non-numeric, non-id, non-label) columns of row ``i`` as text (None when empty)."""
     out = {}
     for col in table.context_columns:
-        v = table.frame[col].iloc[i]
-        out[col] = None if pd.isna(v) else str(v)
+        out[col] = context_text(table.frame[col].iloc[i])
     return out
+
+
+def context_text(value) -> str | None:
+    """A context cell as text (None when empty); a list, array or mapping cell (Parquet) as its text."""
+    if pd.api.types.is_scalar(value):
+        return None if pd.isna(value) else str(value)
+    if isinstance(value, (bytes, bytearray)):
+        return value.decode("utf-8", errors="replace")
+    if hasattr(value, "tolist"):
+        return str(value.tolist())
+    return str(value)
 
 
 def derive_pairs(derive, what: str = "--derive") -> list[tuple[str, str]]:

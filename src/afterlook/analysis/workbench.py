@@ -86,15 +86,15 @@ def default_casebook(cases_path) -> str:
 
 
 def open_session(model_path, cases_path, *, train_path=None, casebook=None, id_col: str | None = None,
-                 label_col: str | None = None) -> WorkbenchSession:
+                 label_col: str | None = None, **table) -> WorkbenchSession:
     """Load the model and cases, resolve the normal population, score the cases once.
 
     Raises :class:`AfterlookError` (one line) for any bad input, before any
     screen is drawn.
     """
     model = load_model(model_path)
-    cases = load_table(cases_path, id_col=id_col, label_col=label_col, require_labels=True)
-    train = load_table(train_path, id_col=id_col, label_col=label_col) if train_path else None
+    cases = load_table(cases_path, id_col=id_col, label_col=label_col, require_labels=True, **table)
+    train = load_table(train_path, id_col=id_col, label_col=label_col, **table) if train_path else None
     book = str(casebook) if casebook else default_casebook(cases_path)
     session = WorkbenchSession(model, cases, train, model_path=str(model_path), cases_path=str(cases_path),
                                casebook_path=book)
@@ -205,7 +205,7 @@ def case_rows(session: WorkbenchSession, *, near: bool = False, false_alarms: bo
     rows = [CaseRow(m.case, KIND_MISS, m.log_density, m.margin, m.context) for m in session.missed.misses]
     sc = session.scored
     y = session.labels
-    finite = ~np.isnan(sc.log_density)  # -inf: outside a feature's domain, flagged
+    finite = ~np.isnan(sc.log_density)  # -inf: outside a feature's domain or an overflowing reading, flagged
     margin = sc.margin
     if near:
         gap = near_catch_gap(session)
@@ -235,7 +235,7 @@ def case_counts(session: WorkbenchSession) -> dict:
     """How many rows each toggle of the case list would add."""
     sc = session.scored
     y = session.labels
-    finite = ~np.isnan(sc.log_density)
+    finite = ~np.isnan(sc.log_density)  # scored; -inf (outside a domain, or overflow) is flagged
     gap = near_catch_gap(session)
     return {
         KIND_MISS: len(session.missed.misses),

@@ -6,12 +6,11 @@ The entry is built by :mod:`afterlook.analysis.review`, the file is handled by
 
 from __future__ import annotations
 
-import json
-import os
 import sys
 from pathlib import Path
 
 from ..core.errors import AfterlookError
+from ..core.printable import printable, printable_lines
 from ..core.errors import EXIT_CHECK_FAILED, EXIT_OK
 from .output import emit_json, warn
 
@@ -60,6 +59,7 @@ def register(sub, add_common, add_table_opts, caution) -> dict:
     a.add_argument("book", metavar="BOOK")
     a.add_argument("--format", choices=("md", "html"), help="md or html (default: from --out's extension, else md)")
     a.add_argument("--out", metavar="FILE", help="write the report here (default: stdout)")
+    a.add_argument("--force", action="store_true", help="replace an existing casebook report at --out")
     a.add_argument("--title", help="report title (default: from the book's file name)")
     add_common(a)
 
@@ -99,7 +99,10 @@ def run_add(args) -> int:
     from ..store.casebook_file import Casebook, check_status
     from .inputs import open_session
 
+    from ..store.outputs import refuse_input_as_book
+
     check_status(args.status)
+    refuse_input_as_book(args.book, [args.model, args.cases, args.train])
     pairs = [parse_assignment(d, "--derive") for d in args.derive]
     existing = Casebook.open(args.book, create=True)  # refuse a bad book before the (slower) review
     previous = existing.entries.get(str(args.case))
@@ -157,10 +160,10 @@ def run_list(args) -> int:
     table = Table(box=box.SIMPLE_HEAD, show_edge=False, pad_edge=False)
     # Feature, reviewer and date become columns only when every column fits whole.
     rows = [_list_row(e) for e in entries]
-    cols = [[r["case"] or "" for r in rows], [r["status"] or "" for r in rows],
-            [r["deciding_feature"] or "n/a" for r in rows], [_versus(e.get("before")) for e in entries],
-            [_versus(e.get("after")) for e in entries], [r["reviewer"] or "" for r in rows],
-            [r["updated"] or "" for r in rows]]
+    cols = [[printable(r["case"] or "") for r in rows], [printable(r["status"] or "") for r in rows],
+            [printable(r["deciding_feature"] or "n/a") for r in rows], [_versus(e.get("before")) for e in entries],
+            [_versus(e.get("after")) for e in entries], [printable(r["reviewer"] or "") for r in rows],
+            [printable(r["updated"] or "") for r in rows]]
     heads = ["case", "status", "deciding feature", "before", "after", "reviewer", "updated"]
     need = sum(max([len(h)] + [len(v) for v in col]) + 3 for h, col in zip(heads, cols))
     wide = need <= out.width
@@ -175,12 +178,12 @@ def run_list(args) -> int:
         table.add_column("updated", no_wrap=True)
     for e in entries:
         row = _list_row(e)
-        cells = [Text(row["case"]), Text(row["status"], style=_STATUS_STYLE.get(row["status"], ""))]
+        cells = [_plain(row["case"]), _plain(row["status"], style=_STATUS_STYLE.get(row["status"], ""))]
         if wide:
-            cells.append(Text(row["deciding_feature"] or "n/a"))
+            cells.append(_plain(row["deciding_feature"] or "n/a"))
         cells += [Text(_versus(e.get("before"))), Text(_versus(e.get("after")))]
         if wide:
-            cells += [Text(row["reviewer"] or ""), Text(row["updated"] or "")]
+            cells += [_plain(row["reviewer"] or ""), _plain(row["updated"] or "")]
         table.add_row(*cells)
     if not wide:
         features = Text("deciding feature: ", style="dim")
@@ -192,6 +195,13 @@ def run_list(args) -> int:
         out.print(features)
     out.print(Text("log-density vs threshold: '<' flagged, '>=' unflagged", style="dim"))
     return EXIT_OK
+
+
+def _plain(value, style: str = "") -> "Text":
+    """Data from the book as a Rich Text cell: never markup, every control character escaped."""
+    from rich.text import Text
+
+    return Text(printable("" if value is None else value), style=style)
 
 
 _STATUS_STYLE = {"explained": "green", "needs-signal": "yellow", "label-disputed": "magenta",
@@ -250,9 +260,12 @@ def run_report(args) -> int:
     fmt = args.format
     if fmt is None:
         fmt = "html" if args.out and Path(args.out).suffix.lower() in (".html", ".htm") else "md"
-    book = Casebook.open(args.book, create=False)
     if args.out:
-        _refuse_overwriting_a_book(Path(args.out), book.path)
+        from ..store.casebook_file import backup_path
+        from ..store.outputs import check_output
+
+        check_output(args.out, kind="report", inputs=[args.book, backup_path(Path(args.book))], force=args.force)
+    book = Casebook.open(args.book, create=False)
     text = (report.render_html if fmt == "html" else report.render_markdown)(book, title=args.title)
     if args.out:
         write_bytes_atomic(args.out, text.encode("utf-8"))
@@ -263,29 +276,10 @@ def run_report(args) -> int:
         emit_json(doc)
         return EXIT_OK
     if args.out:
-        print(f"wrote {args.out} ({fmt}, {len(book.entries)} case(s))")
+        print(printable(f"wrote {args.out} ({fmt}, {len(book.entries)} case(s))"))
     else:
-        sys.stdout.write(text)
+        sys.stdout.write(printable_lines(text))
     return EXIT_OK
-
-
-def _refuse_overwriting_a_book(out: Path, book: Path) -> None:
-    """A report must never replace a casebook (this one, its backup, or any other), nor a model file."""
-    from ..store.casebook_file import FORMAT, backup_path
-
-    for protected in (book, backup_path(book)):
-        if out.exists() and protected.exists() and os.path.samefile(out, protected):
-            raise AfterlookError(f"--out {out} is the casebook (or its backup) itself; choose another file")
-    if out.is_file():
-        try:
-            doc = json.loads(out.read_bytes().decode("utf-8"))
-        except (OSError, ValueError):
-            return  # not JSON (or unreadable; the write will say so): not a casebook
-        kind = doc.get("format") if isinstance(doc, dict) else None
-        if kind == FORMAT:
-            raise AfterlookError(f"--out {out} is an afterlook casebook; a report will not overwrite it")
-        if isinstance(kind, str) and kind.startswith("afterlook-"):
-            raise AfterlookError(f"--out {out} is an afterlook file ({kind}); a report will not overwrite it")
 
 
 # --------------------------------------------------------------------------
@@ -321,7 +315,7 @@ def run_check(args) -> int:
     for d in result.details:
         verdict = Text("regressed", style="bold red") if d["regressed"] else Text("ok", style="green")
         where = " (from snapshot)" if d["source"] == "snapshot" else ""
-        table.add_row(Text(d["case"]), Text(str(d["status"])), _fmt(d["log_density"]), _fmt(d["threshold"]),
+        table.add_row(_plain(d["case"]), _plain(d["status"]), _fmt(d["log_density"]), _fmt(d["threshold"]),
                       Text(("flagged" if d["flagged"] else "unflagged") + where), verdict)
     out.print(table)
     if result.ok:

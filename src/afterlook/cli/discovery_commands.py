@@ -11,6 +11,7 @@ from rich.text import Text
 from ..core.errors import AfterlookError
 from ..analysis.wording import candidate_verdict, flip_words, heldout_gain_text, stability_text
 from ..core.errors import EXIT_OK
+from .inputs import table_options
 from .output import emit_json, warn
 
 
@@ -37,6 +38,7 @@ def register(sub, add_common, add_table_opts, caution) -> dict:
     p.add_argument("--train", metavar="TRAIN", help="normal population (default: the model's recorded training file)")
     p.add_argument("--case", action="append", default=[], metavar="CASE_ID", help="always list this case (repeatable)")
     p.add_argument("--out", metavar="NEW_MODEL", help="write the re-fitted model with the feature in its recipe")
+    p.add_argument("--force", action="store_true", help="replace an existing afterlook model file at --out")
     p.add_argument("--holdout", metavar="TABLE",
                    help="labelled cases kept apart: threshold picked on CASES, held-out metrics counted here "
                         "(default: stratified 5-fold over CASES)")
@@ -122,9 +124,10 @@ def run_try(args) -> int:
 
     pairs = [parse_assignment(d, "--derive") for d in args.derive]
     if args.out:
-        from ..store.atomic import check_writable
+        from ..store.outputs import check_output
 
-        check_writable(args.out)
+        check_output(args.out, kind="model", inputs=[args.model, args.cases, args.train, args.holdout],
+                     force=args.force)
     session = open_session(args)
     if args.folds < 2:
         raise AfterlookError(f"--folds must be at least 2, got {args.folds}")
@@ -132,7 +135,7 @@ def run_try(args) -> int:
     if args.holdout:
         from ..store.tables import load_table
 
-        holdout = load_table(args.holdout, id_col=args.id_col, label_col=args.label_col, require_labels=True)
+        holdout = load_table(args.holdout, **table_options(args), require_labels=True)
     result = try_features(session, None, pairs, focus=args.case, holdout=holdout, folds=args.folds)
     warn(result.warnings)
     if args.out:

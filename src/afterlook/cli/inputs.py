@@ -2,15 +2,22 @@
 
 from __future__ import annotations
 
-from ..analysis.model import load_model
-from ..analysis.session import Session
-from ..store.tables import load_table
+TABLE_OPTIONS = ("id_col", "label_col", "encoding", "delimiter", "decimal")
 
 
-def open_session(args, *, require_labels: bool = True) -> Session:
-    """The session of ``MODEL CASES [--train TRAIN]`` with the shared table options."""
+def table_options(args) -> dict:
+    """The shared table options of a command (--id-col, --label-col, --encoding, --delimiter, --decimal)."""
+    return {name: getattr(args, name, None) for name in TABLE_OPTIONS}
+
+
+def open_session(args, *, require_labels: bool = True):
+    """The :class:`~afterlook.analysis.session.Session` of ``MODEL CASES [--train TRAIN]`` with the table options."""
+    from ..analysis.model import load_model
+    from ..analysis.session import Session
+    from ..store.tables import load_table
+
     model = load_model(args.model)
-    cases = load_table(args.cases, id_col=args.id_col, label_col=args.label_col, require_labels=require_labels)
+    cases = load_table(args.cases, **table_options(args), require_labels=require_labels)
     train = getattr(args, "train", None)
-    train = load_table(train, id_col=args.id_col, label_col=args.label_col) if train else None
+    train = load_table(train, **table_options(args)) if train else None
     return Session(model, cases, train)

@@ -10,12 +10,15 @@ from __future__ import annotations
 import argparse
 import os
 import sys
+import warnings
 
 from .. import _version
 from ..cautions import CAUTION
 from ..core.errors import EXIT_BAD_INPUT, EXIT_CHECK_FAILED, EXIT_INTERNAL, EXIT_INTERRUPTED, EXIT_OK, AfterlookError
 from ..core.numbers import finite_or_none
-from ..store.atomic import check_writable
+from ..core.printable import printable, printable_lines
+from ..store.outputs import check_output
+from .inputs import table_options
 from .output import emit_json, error_line, warn
 
 
@@ -34,6 +37,9 @@ def _add_common(p: argparse.ArgumentParser) -> None:
 def _add_table_opts(p: argparse.ArgumentParser) -> None:
     p.add_argument("--id-col", help="id column (default: 'id' if present, else row number)")
     p.add_argument("--label-col", help="label column (default: 'label'; values 1/0, true/false, anomaly/normal, yes/no)")
+    p.add_argument("--encoding", help="text encoding of CSV tables (default utf-8; e.g. latin-1, cp1252)")
+    p.add_argument("--delimiter", help="CSV field separator (default: by extension, ',' or tab for .tsv; e.g. ';')")
+    p.add_argument("--decimal", choices=(".", ","), help="decimal mark of numbers written as text (',' reads 10,5)")
 
 
 def build_parser() -> argparse.ArgumentParser:
@@ -55,6 +61,7 @@ def build_parser() -> argparse.ArgumentParser:
     p = sub.add_parser("fit", help="fit a model on the normal rows of a table", epilog=CAUTION)
     p.add_argument("train", metavar="TRAIN", help="training table (CSV or Parquet)")
     p.add_argument("--out", required=True, metavar="MODEL", help="model file to write (JSON)")
+    p.add_argument("--force", action="store_true", help="replace an existing afterlook model file at --out")
     p.add_argument("--cases", metavar="CASES", help="labelled cases on which to pick the threshold")
     p.add_argument("--kind", default="full", help="independent or full (default full)")
     p.add_argument("--robust", action="store_true", help="minimum covariance determinant fit (resists masking)")
@@ -78,6 +85,7 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("model", metavar="MODEL")
     p.add_argument("data", metavar="DATA")
     p.add_argument("--out", metavar="FILE", help="write the scored table (CSV or Parquet by extension)")
+    p.add_argument("--force", action="store_true", help="replace an existing table scored by afterlook at --out")
     _add_table_opts(p)
     _add_common(p)
 
@@ -116,12 +124,12 @@ def cmd_fit(args) -> int:
 
     derive = [parse_assignment(d, "--derive") for d in args.derive]
     transform = [parse_assignment(t, "--transform") for t in args.transform]
-    check_writable(args.out)
-    cases = load_table(args.cases, id_col=args.id_col, label_col=args.label_col, require_labels=True) if args.cases else None
+    check_output(args.out, kind="model", inputs=[args.train, args.cases], force=args.force)
+    cases = load_table(args.cases, **table_options(args), require_labels=True) if args.cases else None
     if args.engine == "memory":
         if args.scheduler:
             raise AfterlookError("--scheduler needs --engine dask")
-        train = load_table(args.train, id_col=args.id_col, label_col=args.label_col)
+        train = load_table(args.train, **table_options(args))
         model = fitting.fit(train, cases=cases, kind=args.kind, robust=args.robust, shrinkage=args.shrinkage,
                             derive=derive, transform=transform, threshold=args.threshold, columns=args.columns,
                             undefined=args.undefined)
@@ -130,6 +138,9 @@ def cmd_fit(args) -> int:
             raise AfterlookError(f"unknown --engine '{args.engine}' (choose: memory, chunked, dask)")
         if args.robust:
             raise AfterlookError("--robust needs every row in memory; drop --engine or --robust")
+        if args.encoding or args.delimiter or args.decimal:
+            raise AfterlookError("--encoding, --delimiter and --decimal need the memory engine (the streamed "
+                                 "engines read UTF-8 CSV with its usual separator); drop --engine or save as UTF-8")
         if args.chunk_rows < 1:
             raise AfterlookError("--chunk-rows must be at least 1")
         model = fitting.fit_streamed(args.train, engine=args.engine, scheduler=args.scheduler,
@@ -177,18 +188,24 @@ def cmd_fit(args) -> int:
 
 
 def cmd_score(args) -> int:
+    import numpy as np
+
     from ..analysis.model import load_model
     from ..store.tables import load_table
 
-    model = load_model(args.model)
-    table = load_table(args.data, id_col=args.id_col, label_col=args.label_col)
     if args.out:
-        check_writable(args.out)
-    scored = model.score(table.frame)
+        check_output(args.out, kind="table", inputs=[args.model, args.data], force=args.force)
+    model = load_model(args.model)
+    table = load_table(args.data, **table_options(args))
+    scored, overflowed = model.score_with_overflow(table.frame)
     warn(table.warnings)
     n_bad = int(scored["log_density"].isna().sum())
     if n_bad:
         warn([f"{n_bad} row(s) have NaN or infinite features: log_density is empty and they are not flagged"])
+    n_overflow = int(overflowed.sum())
+    if n_overflow:
+        warn([f"{n_overflow} row(s) have readings so extreme that the log-density overflows: "
+              "log_density is -inf and they are flagged"])
     if args.out:
         from ..store.tables import write_table
 
@@ -200,21 +217,25 @@ def cmd_score(args) -> int:
         "n_rows": int(len(scored)),
         "n_flagged": int(scored["flagged"].sum()),
         "n_unscored": n_bad,
+        "n_overflow": n_overflow,
         "out": args.out,
     }
     if args.json:
         if not args.out:
             doc["rows"] = [
-                {"case": str(cid), "log_density": finite_or_none(ld), "flagged": bool(fl)}
-                for cid, ld, fl in zip(table.ids, scored["log_density"], scored["flagged"])
+                {"case": str(cid), "log_density": finite_or_none(ld), "flagged": bool(fl),
+                 **({"overflow": True} if over else {})}
+                for cid, ld, fl, over in zip(table.ids, scored["log_density"], scored["flagged"], overflowed)
             ]
         emit_json(doc)
         return EXIT_OK
     if not args.out:
         cols = ([table.id_col] if table.id_col else []) + ["log_density", "flagged"]
-        sys.stdout.write(scored[cols].to_csv(index=table.id_col is None))
+        # The terminal view: control characters in ids are escaped; --out and --json keep them exact.
+        sys.stdout.write(printable_lines(scored[cols].to_csv(index=table.id_col is None)))
     else:
-        print(f"wrote {args.out}: {doc['n_rows']} rows, {doc['n_flagged']} flagged (threshold {model.threshold:.6g})")
+        print(printable(f"wrote {args.out}: {doc['n_rows']} rows, {doc['n_flagged']} flagged "
+                        f"(threshold {model.threshold:.6g})"))
     return EXIT_OK
 
 
@@ -274,7 +295,14 @@ def main(argv: list[str] | None = None) -> int:
         if not args.command:
             parser.print_help()
             return EXIT_BAD_INPUT
-        return COMMANDS[args.command](args)
+        # Python's own warnings (numpy overflow, SyntaxWarning ...) never reach stderr as they are: they
+        # are recorded and, if the command succeeds, said once each in afterlook's words. A failed command
+        # prints its one error line and nothing else.
+        with warnings.catch_warnings(record=True) as caught:
+            warnings.simplefilter("always", RuntimeWarning)  # every overflow counts, wherever it happens
+            code = COMMANDS[args.command](args)
+        warn(python_warnings(caught))
+        return code
     except AfterlookError as exc:
         error_line(exc.message)
         return exc.exit_code
@@ -297,6 +325,25 @@ def main(argv: list[str] | None = None) -> int:
         error_line(f"{type(exc).__name__}: {exc} (please report it; set AFTERLOOK_DEBUG=1 for the traceback)",
                    "internal error")
         return EXIT_INTERNAL
+
+
+def python_warnings(caught) -> list[str]:
+    """Recorded Python warnings as afterlook's one-line messages, each kind once."""
+    out: list[str] = []
+    for w in caught:
+        if issubclass(w.category, (DeprecationWarning, PendingDeprecationWarning, FutureWarning, ResourceWarning)):
+            continue  # about library versions, not the user's data: nothing a user can act on
+        text = " ".join(str(w.message).split())
+        if issubclass(w.category, RuntimeWarning) and "overflow" in text:
+            line = ("numeric overflow: some values are too large to compute with (beyond about 1e154 squared); "
+                    "the cases they touch are scored as extreme")
+        elif issubclass(w.category, RuntimeWarning) and ("invalid value" in text or "divide by zero" in text):
+            line = "some values could not be computed (an invalid operation on a value); they are treated as missing"
+        else:
+            line = f"{w.category.__name__}: {text}"
+        if line not in out:
+            out.append(line)
+    return out
 
 
 def entry() -> None:

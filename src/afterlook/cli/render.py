@@ -6,11 +6,13 @@ import math
 
 from rich import box
 from rich.console import Console, Group
+from rich.segment import Segment
 from rich.table import Table
 from rich.text import Text
 
 from ..analysis.evidence import ExplainResult, MissesResult
 from ..analysis.model import Model
+from ..core.printable import printable
 from ..analysis.wording import BAR_FULL_SCALE, RELATION_RULE, bar_cells, relation_broken
 
 BAR_HALF = 5  # characters each side of zero in a z bar
@@ -105,8 +107,9 @@ def misses_table(result: MissesResult, limit: int | None = None, width: int | No
                           f"{q.normal_flagged_share:.1%} of the labelled normal cases", style="dim"))
     for u in result.never_seen:
         parts.append(Text(u.describe(), style="yellow"))
-    if not result.misses:
-        parts.append(Text("no misses: every labelled anomaly is flagged", style="green"))
+    if not result.misses or result.unscored:
+        clear = not result.misses and not result.unscored and result.n_anomalies > 0
+        parts.append(Text(result.coverage(), style="green" if clear else "yellow"))
     return Group(*parts)
 
 
@@ -118,9 +121,16 @@ def explain_table(result: ExplainResult) -> Group:
     verdict = "FLAGGED" if result.flagged else "not flagged"
     head.append(f"  {verdict}", style="bold red" if result.flagged else "bold")
     head.append(f"  ({result.model_kind} model)", style="dim")
-    head.append(f"\nlog-density {fmt(result.log_density)} vs threshold {fmt(result.threshold)}")
+    shown = "-inf" if result.log_density == -math.inf else fmt(result.log_density)
+    head.append(f"\nlog-density {shown} vs threshold {fmt(result.threshold)}")
     if math.isfinite(result.log_density):
         head.append(f" (margin {result.margin:+.3f})")
+    elif result.overflow:
+        head.append(" (log-density minus infinity: a reading is so extreme that it overflows; flagged)")
+    elif result.log_density == -math.inf:
+        head.append(" (a feature is undefined on these readings: outside its domain, flagged)")
+    else:
+        head.append(" (not scored: a feature is missing or undefined)")
     ctx = "  ".join(f"{k}: {v}" for k, v in result.context.items() if v)
     full = result.full_model
     table = Table(box=box.SIMPLE_HEAD, show_edge=False)
@@ -142,12 +152,12 @@ def explain_table(result: ExplainResult) -> Group:
         row = [f.name, _short_num(reading)]
         if shaped:
             row.append(_short_num(f.value) if f.value != reading else "")
-        row += [z_bar(f.z_reading), f"{f.z_reading:+.2f}", fmt(f.percentile_reading, 1), f"{f.contribution:.2f}"]
+        row += [z_bar(f.z_reading), _signed(f.z_reading), fmt(f.percentile_reading, 1), _signed(f.contribution, "")]
         if full:
             cz = f.conditional_z_reading
             mark = _relation_mark(f.z_reading, cz)
             broken = broken or bool(mark)
-            row.append((f"{cz:+.2f}" if cz is not None else "n/a") + mark)
+            row.append((_signed(cz) if cz is not None else "n/a") + mark)
         table.add_row(*row)
     note = Text(
         f"reading: the value before any transform; z: standard deviations from the normal mean, signed as the "
@@ -166,6 +176,15 @@ def explain_table(result: ExplainResult) -> Group:
     return Group(*parts)
 
 
+def _signed(x: float | None, sign: str = "+") -> str:
+    """Two decimals, or three significant digits in e-notation once a number is too long to read."""
+    if x is None or math.isnan(x):
+        return "n/a"
+    if math.isinf(x):
+        return "+inf" if x > 0 and sign else ("inf" if x > 0 else "-inf")
+    return f"{x:{sign}.2f}" if abs(x) < 1e5 else f"{x:{sign}.2e}"
+
+
 def _short_num(x: float) -> str:
     if x is None or not math.isfinite(x):
         return "n/a"
@@ -176,5 +195,29 @@ def _relation_mark(z: float, cz: float | None) -> str:
     return "!" if relation_broken(z, cz) else " "
 
 
+class PlainConsole(Console):
+    """A Console that never reads data as markup and never lets a control character through.
+
+    Strings are plain text (``markup=False``, ``emoji=False``: a case id
+    ``[bold]x[/]`` or ``:fire:`` shows as written), and every segment of text
+    is made printable just before it is written (:func:`afterlook.core.printable.printable`),
+    whether it came in as a ``str``, a ``Text`` or inside a table or Markdown.
+    Rich's own control segments (cursor moves, hyperlinks it was asked for)
+    are left alone; afterlook asks for none.
+    """
+
+    def render_str(self, text: str, **kwargs) -> Text:
+        kwargs["markup"] = False
+        kwargs["emoji"] = False
+        return super().render_str(printable(text, keep_newlines=True), **kwargs)
+
+    def render(self, renderable, options=None):
+        for segment in super().render(renderable, options):
+            if segment.control or segment.text.isprintable() or segment.text == "\n":
+                yield segment
+            else:
+                yield Segment(printable(segment.text, keep_newlines=True), segment.style, segment.control)
+
+
 def console(stderr: bool = False) -> Console:
-    return Console(stderr=stderr, highlight=False, soft_wrap=False)
+    return PlainConsole(stderr=stderr, highlight=False, soft_wrap=False, markup=False, emoji=False)

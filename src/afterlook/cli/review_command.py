@@ -38,8 +38,11 @@ def register(sub, add_common, add_table_opts, caution) -> dict:
 def run(args) -> int:
     from ..tui import create_app
 
-    app = create_app(args.model, args.cases, train_path=args.train, casebook=args.casebook,
-                     id_col=args.id_col, label_col=args.label_col)
+    from ..store.outputs import refuse_input_as_book
+    from .inputs import table_options
+
+    refuse_input_as_book(args.casebook, [args.model, args.cases, args.train])
+    app = create_app(args.model, args.cases, train_path=args.train, casebook=args.casebook, **table_options(args))
     if args.json:
         from ..analysis.workbench import status_summary
 

@@ -12,6 +12,7 @@ import shlex
 
 from ..core.errors import AfterlookError
 from ..core.errors import EXIT_OK
+from .inputs import table_options
 from .output import emit_json, warn
 
 DESCRIPTION = (
@@ -76,10 +77,10 @@ def run(args) -> int:
     from ..store.tables import load_table
     from .render import console
 
-    table = load_table(args.data, id_col=args.id_col, label_col=args.label_col)
+    table = load_table(args.data, **table_options(args))
     cases = None
     if args.cases:
-        cases = load_table(args.cases, id_col=args.id_col, label_col=args.label_col, require_labels=True)
+        cases = load_table(args.cases, **table_options(args), require_labels=True)
     report = shape(table, columns=args.columns, statistic=args.statistic, sample_size=args.sample, cases=cases)
     warn(report.warnings)
     if args.json:

@@ -17,6 +17,8 @@ exception or an infinity: callers count the NaN rows and report them.
 from __future__ import annotations
 
 import ast
+import keyword
+import warnings
 import difflib
 import re
 from dataclasses import dataclass, field
@@ -140,7 +142,10 @@ def parse(text: str, known_columns: list[str] | tuple[str, ...] | None = None) -
         raise AfterlookError(f"unbalanced backtick in expression '{source}'")
     prepared = _BACKTICK.sub(_sub, source)
     try:
-        tree = ast.parse(prepared.strip(), mode="eval")
+        with warnings.catch_warnings():
+            # e.g. "1if x else 2" warns about the literal; the whitelist below decides, silently.
+            warnings.simplefilter("ignore")
+            tree = ast.parse(prepared.strip(), mode="eval")
     except (SyntaxError, ValueError, RecursionError, MemoryError, OverflowError) as exc:
         detail = getattr(exc, "msg", None) or type(exc).__name__
         raise AfterlookError(f"cannot parse expression '{_short(source)}': {detail}") from None
@@ -166,8 +171,15 @@ def evaluate(text: str, columns: Mapping[str, np.ndarray]) -> tuple[np.ndarray, 
 
 
 def quote_name(name: str) -> str:
-    """A column name as it must be written in an expression."""
-    if _IDENTIFIER.match(name) and name not in FUNCTIONS:
+    """A column name as it must be written in an expression.
+
+    Bare only when the parser reads it back as that column: an ASCII
+    identifier that is not a function, a Python keyword (``class``,
+    ``None``, ``True``), a soft keyword, or a name starting with ``_`` (the
+    parser's placeholders and dunder names). Everything else is backticked.
+    """
+    if (_IDENTIFIER.match(name) and name not in FUNCTIONS and not keyword.iskeyword(name)
+            and not keyword.issoftkeyword(name) and not name.startswith("_")):
         return name
     if "`" in name:
         raise AfterlookError(f"column name {name!r} contains a backtick and cannot be used in expressions")

@@ -30,6 +30,7 @@ import numpy as np
 from scipy import linalg
 
 from .errors import AfterlookError
+from .numbers import refuse_overflow
 
 LOG_2PI = float(np.log(2.0 * np.pi))
 KINDS = ("independent", "full")
@@ -256,6 +257,7 @@ class GaussianModel:
             raise AfterlookError(f"nothing to fit on: {n} normal row(s) with finite values; need at least 2")
         if not np.all(np.isfinite(X)):
             raise AfterlookError("training rows contain NaN or infinite values")
+        refuse_overflow(np.abs(X).max(axis=0), self.names)
         if self.kind == "independent" and not self.robust:
             # Only the variances are needed: O(n d), not the O(n d^2) scatter matrix.
             mean, var, support = X.mean(axis=0), X.var(axis=0), None
@@ -304,7 +306,10 @@ class GaussianModel:
         if stats.n < 2:
             raise AfterlookError(f"nothing to fit on: {stats.n} normal row(s) with finite values; need at least 2")
         self.mean_ = stats.mean.copy()
-        cov = stats.covariance()
+        with np.errstate(over="ignore", invalid="ignore"):
+            cov = stats.covariance()
+        refuse_overflow(np.where(np.isfinite(np.diag(cov)) & np.isfinite(self.mean_), np.abs(self.mean_), np.inf),
+                         self.names)
         if self.kind == "independent":
             return self._set_variances(np.diag(cov).copy())
         if isinstance(self.shrinkage, float) and self.shrinkage > 0:
@@ -349,17 +354,19 @@ class GaussianModel:
         return np.diag(self.covariance_)
 
     def log_density(self, X: np.ndarray) -> np.ndarray:
-        """Log-density of each row; NaN for rows with non-finite values."""
+        """Log-density of each row: NaN where a value is missing (NaN/inf), -inf where a finite
+        reading is so extreme (-4.5e205) that its squared distance overflows: flagged, not missing."""
         self._check_fitted()
         X = np.asarray(X, dtype=np.float64)
         if X.ndim != 2 or X.shape[1] != len(self.mean_):
             raise AfterlookError(f"expected {len(self.mean_)} feature columns, got {X.shape[-1] if X.ndim else 0}")
-        if self.kind == "independent":
-            out = independent_log_density(X, self.mean_, self.var_)
-        else:
-            out = full_log_density(X, self.mean_, self.chol_)
-        out[~np.isfinite(out)] = np.nan
-        return out
+        with np.errstate(over="ignore", invalid="ignore"):
+            if self.kind == "independent":
+                out = independent_log_density(X, self.mean_, self.var_)
+            else:
+                out = full_log_density(X, self.mean_, self.chol_)
+        finite_inputs = np.isfinite(X).all(axis=1)
+        return np.where(finite_inputs, np.where(np.isfinite(out), out, -np.inf), np.nan)
 
     def precision(self) -> np.ndarray:
         """Inverse covariance, from the Cholesky factor."""

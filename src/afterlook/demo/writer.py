@@ -20,18 +20,59 @@ DEMO_DERIVE = {"hydraulic_power": "flow_m3h * (discharge_bar - suction_bar)"}
 DEMO_TRANSFORM = {"hours_since_service": "log(hours_since_service + 1)"}
 
 
+# The demo leaves this mark in its folder: only a marked (or empty) folder is written into again,
+# so `demo --dir` can never replace a user's own train.csv, cases.csv or model.json.
+DEMO_MARK = ".afterlook-demo"
+DEMO_FILES = ("train.csv", "cases.csv", "model.json")
+
+
+def check_demo_folder(folder: Path) -> None:
+    """Refuse a folder that is neither missing, empty nor made by the demo (one line, exit 2)."""
+    from ..core.printable import printable
+
+    shown = printable(str(folder))
+    if os.path.lexists(folder) and not folder.is_dir():
+        raise AfterlookError(f"--dir {shown} exists and is not a folder; choose a new or empty folder")
+    if not folder.is_dir():
+        return
+    try:
+        present = set(os.listdir(folder))
+    except OSError as exc:
+        raise AfterlookError(f"cannot read demo folder {shown}: {exc.strerror or exc}") from None
+    if not present or DEMO_MARK in present:
+        for name in DEMO_FILES:
+            p = folder / name
+            if os.path.lexists(p) and (p.is_symlink() or not p.is_file()):
+                raise AfterlookError(f"--dir {shown}: {name} is not a plain file the demo wrote; "
+                                     "choose a new or empty folder")
+        return
+    clash = sorted(present & set(DEMO_FILES))
+    what = f"it already holds {', '.join(clash)}" if clash else "it is not empty"
+    raise AfterlookError(f"--dir {shown} was not made by the demo and {what}; choose a new or empty folder "
+                         f"(a folder an older afterlook demo made has no {DEMO_MARK} mark: delete it first)")
+
+
 def write_demo(folder: Path, seed: int = 7):
-    """Write train.csv, cases.csv and model.json into ``folder``; return the paths."""
+    """Write train.csv, cases.csv and model.json into ``folder``; return the paths.
+
+    ``folder`` must be missing, empty or one the demo wrote before (:func:`check_demo_folder`).
+    """
     from ..analysis.fitting import fit
     from ..store.tables import load_table, write_table
     from .scenario import generate
 
+    folder = Path(folder)
+    check_demo_folder(folder)
     try:
         folder.mkdir(parents=True, exist_ok=True)
     except OSError as exc:
         raise AfterlookError(f"cannot create demo folder {folder}: {exc.strerror or exc}") from None
     if not os.access(folder, os.W_OK):
         raise AfterlookError(f"cannot write into demo folder {folder}: permission denied")
+    try:
+        (folder / DEMO_MARK).write_text("written by afterlook demo; the demo may write here again\n")
+    except OSError as exc:
+        raise AfterlookError(f"cannot write into demo folder {folder}: {exc.strerror or exc}") from None
     scenario = generate(seed=seed)
     train_path, cases_path, model_path = folder / "train.csv", folder / "cases.csv", folder / "model.json"
     write_table(scenario.train, train_path)

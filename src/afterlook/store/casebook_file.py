@@ -54,7 +54,8 @@ from typing import Iterator
 
 from ..core.errors import AfterlookError
 from .atomic import _write_atomic, write_bytes_atomic  # noqa: F401 (re-exported)
-from .documents import check_document
+from ..core.printable import printable
+from .documents import check_document, first_bad_number
 
 __all__ = [
     "FORMAT",
@@ -248,8 +249,13 @@ def parse_document(raw: bytes, p: Path) -> tuple[dict[str, dict], dict]:
         raise AfterlookError(
             f"casebook {p} is not valid JSON (line {exc.lineno}, column {exc.colno}: {exc.msg}); "
             f"it was left as it is (a previous version may be in {backup_path(p).name})") from None
+    except RecursionError:
+        raise AfterlookError(f"casebook {p} is nested too deeply to be a casebook; it was left as it is") from None
     except ValueError as exc:
-        raise AfterlookError(f"casebook {p} is not valid JSON ({exc}); it was left as it is") from None
+        raise AfterlookError(f"casebook {p} is not valid JSON ({str(exc)[:100]}); it was left as it is") from None
+    bad = first_bad_number(doc)
+    if bad is not None:
+        raise AfterlookError(f"casebook {p} has a number out of range at {printable(bad)}; it was left as it is")
     check_document(doc, format_name=FORMAT, version=VERSION, kind="casebook", path=p,
                    expected="an afterlook casebook")
     items = doc.get("entries")
@@ -271,9 +277,21 @@ def parse_document(raw: bytes, p: Path) -> tuple[dict[str, dict], dict]:
         history = item.get("history", [])
         if not isinstance(history, list):
             raise AfterlookError(f"casebook {p}: case {case!r} has a \"history\" that is not a list")
+        _check_histogram(item, p, case)
         entries[case] = item
     extra = {k: v for k, v in doc.items() if k not in ("format", "version", "entries")}
     return entries, extra
+
+
+def _check_histogram(item: dict, p: Path, case: str) -> None:
+    """A stored histogram draws: one more edge than counts, edges in ascending order (the schema checked types)."""
+    hist = (item.get("deciding_feature") or {}).get("histogram")
+    if not hist:
+        return
+    counts, edges = hist["counts"], hist["edges"]
+    if len(edges) != len(counts) + 1 or any(b <= a for a, b in zip(edges, edges[1:])):
+        raise AfterlookError(f"casebook {p}: case {printable(repr(case))} has a histogram whose edges do not "
+                             "match its counts (one more edge than counts, ascending)")
 
 
 def _no_constant(name: str):

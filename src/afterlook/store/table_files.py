@@ -157,15 +157,61 @@ def _read_parquet(name: str, head: bytes, size: int) -> pa.Table:
 _FIXABLE_TYPES = (pa.float64(), pa.int64(), pa.string(), pa.bool_())
 
 
-def _csv_options(delimiter: str, newlines_in_values: bool, types: dict[str, pa.DataType] | None) -> dict[str, Any]:
+# pyarrow reads CSV in blocks and a single value may not straddle two of them: a file whose longest
+# field exceeds the default block is read again with blocks up to this size, then refused in words.
+_MAX_BLOCK = 64 << 20
+
+
+def _csv_options(delimiter: str, newlines_in_values: bool, types: dict[str, pa.DataType] | None,
+                 encoding: str = "utf8", block_size: int | None = None) -> dict[str, Any]:
+    read = {"use_threads": True, "encoding": encoding}
+    if block_size:
+        read["block_size"] = block_size
     return {
-        "read_options": pacsv.ReadOptions(use_threads=True),
+        "read_options": pacsv.ReadOptions(**read),
         "parse_options": pacsv.ParseOptions(delimiter=delimiter, newlines_in_values=newlines_in_values),
         "convert_options": pacsv.ConvertOptions(strings_can_be_null=True, column_types=types or {}),
     }
 
 
-def _probe_csv_types(name: str, delimiter: str) -> dict[str, pa.DataType] | None:
+def check_encoding(encoding: str | None) -> str:
+    """The codec name for ``--encoding`` (default UTF-8); an unknown name is one clear line."""
+    import codecs
+
+    if encoding is None:
+        return "utf8"
+    try:
+        return codecs.lookup(encoding).name
+    except (LookupError, TypeError):
+        raise _fail(f"unknown --encoding {_short(encoding)} (e.g. utf-8, latin-1, cp1252)") from None
+
+
+def check_delimiter(delimiter: str | None) -> str | None:
+    """The one-character ``--delimiter`` (``tab`` and ``\\t`` name the tab), or None to decide by extension."""
+    if delimiter is None:
+        return None
+    d = {"tab": "\t", "\\t": "\t"}.get(delimiter, delimiter)
+    if len(d) != 1 or d in "\r\n\"":
+        raise _fail(f"--delimiter must be one character such as ',' ';' '|' or 'tab', got {_short(delimiter)}")
+    return d
+
+
+def _legacy_text(head: bytes) -> bool:
+    """Bytes that are not UTF-8 but read as text in a single-byte code page (Latin-1, Windows-1252)."""
+    if b"\x00" in head:
+        return False
+    try:
+        head[:4096].decode("utf-8")
+        return False
+    except UnicodeDecodeError as exc:
+        if exc.start >= len(head[:4096]) - 3:
+            return False  # only a character cut at the end of the sample
+    text = head[:4096].decode("latin-1")
+    bad = sum(1 for ch in text if not ch.isprintable() and ch not in "\r\n\t")
+    return bad <= max(8, len(text) // 20)
+
+
+def _probe_csv_types(name: str, delimiter: str, encoding: str = "utf8") -> dict[str, pa.DataType] | None:
     """Column types pyarrow infers from the first block, or None.
 
     Reading with these types fixed is about twice as fast as letting every
@@ -173,7 +219,7 @@ def _probe_csv_types(name: str, delimiter: str) -> dict[str, pa.DataType] | None
     file again with full inference, so the result is the same either way.
     """
     try:
-        reader = pacsv.open_csv(name, **_csv_options(delimiter, False, None))
+        reader = pacsv.open_csv(name, **_csv_options(delimiter, False, None, encoding))
         schema = reader.schema
         reader.close()
     except (pa.ArrowException, OSError, ValueError):
@@ -186,18 +232,29 @@ def _probe_csv_types(name: str, delimiter: str) -> dict[str, pa.DataType] | None
             for n, f in zip(names, schema) if f.type in _FIXABLE_TYPES or pa.types.is_temporal(f.type)}
 
 
-def _read_csv(name: str, head: bytes, delimiter: str, compressed: bool) -> pa.Table:
-    if not compressed and _looks_binary(head):
-        raise _fail(f"cannot read {name}: it looks like a binary file, not CSV text")
-    types = _probe_csv_types(name, delimiter)
+def _read_csv(name: str, head: bytes, delimiter: str, compressed: bool, encoding: str = "utf8") -> pa.Table:
+    if encoding == "utf-8" or encoding == "utf8":
+        encoding = "utf8"
+        if not compressed and _legacy_text(head):
+            raise _fail(f"cannot read {name}: it is not UTF-8 text but looks like a single-byte encoding "
+                        "(Latin-1, Windows-1252); pass --encoding latin-1 (or cp1252), or save it as UTF-8")
+        if not compressed and _looks_binary(head):
+            raise _fail(f"cannot read {name}: it looks like a binary file, not CSV text")
+    types = _probe_csv_types(name, delimiter, encoding)
     newlines = False
+    block = None
     try:
         while True:
             try:
-                return pacsv.read_csv(name, **_csv_options(delimiter, newlines, types))
+                return pacsv.read_csv(name, **_csv_options(delimiter, newlines, types, encoding, block))
             except pa.ArrowInvalid as exc:
                 text = str(exc)
-                if "CSV parse error" in text and not newlines:
+                if "straddl" in text:
+                    if (block or 1 << 20) >= _MAX_BLOCK:
+                        raise _fail(f"cannot read {name}: a single value is longer than {_MAX_BLOCK >> 20} MB; "
+                                    "afterlook reads values up to that size (is a quote left open?)") from None
+                    block = min(_MAX_BLOCK, (block or 1 << 20) * 8)  # a long field: larger blocks
+                elif "CSV parse error" in text and not newlines:
                     newlines = True  # a quoted value spans lines: slower mode
                 elif "conversion error" in text and any(t != pa.string() for t in types.values()):
                     # a later row does not fit the first block's types; keep text as text
@@ -209,8 +266,12 @@ def _read_csv(name: str, head: bytes, delimiter: str, compressed: bool) -> pa.Ta
         if "Empty CSV file" in text:
             raise _fail(f"cannot read {name}: the file has no header line") from None
         if "UTF8" in text or "UTF-8" in text:
-            raise _fail(f"cannot read {name}: it is not UTF-8 text; save it as UTF-8 CSV") from None
-        raise _fail(f"cannot read {name} as CSV: {_arrow_message(exc)}") from None
+            raise _fail(f"cannot read {name}: it is not UTF-8 text; save it as UTF-8 CSV or pass --encoding "
+                        "(e.g. latin-1)") from None
+        first = head.split(b"\n", 1)[0]
+        hint = next((f" (is it separated by {sep.decode()!r}? pass --delimiter '{sep.decode()}')"
+                     for sep in (b";", b"|", b"\t") if sep in first and delimiter.encode() not in first), "")
+        raise _fail(f"cannot read {name} as CSV: {_arrow_message(exc)}{hint}") from None
 
 
 def _schema_names(name: str, schema: pa.Schema) -> list[str]:
@@ -256,3 +317,37 @@ def _arrow_to_pandas(name: str, table: pa.Table, kind: str) -> pd.DataFrame:
     except (pa.ArrowException, ValueError, TypeError, OverflowError, MemoryError) as exc:
         raise _fail(f"cannot read {name}: {_arrow_message(exc)}") from None
     return frame.reset_index(drop=True)
+
+
+_DECIMAL_COMMA = re.compile(r"^\s*[-+]?(\d+|\d{1,3}(\.\d{3})+)?,\d+([eE][-+]?\d+)?\s*$")
+
+
+def _read_decimal_commas(frame: pd.DataFrame) -> pd.DataFrame:
+    """Text columns whose every value is a decimal-comma number (``10,5``, ``1.234,5``) as floats."""
+    for col in frame.columns:
+        series = frame[col]
+        if not (pd.api.types.is_string_dtype(series) or series.dtype == object):
+            continue
+        values = series.dropna()
+        if values.empty or not values.map(lambda v: isinstance(v, str) and bool(_DECIMAL_COMMA.match(v)) or
+                                          (isinstance(v, str) and v.strip().lstrip("+-").isdigit())).all():
+            continue
+        text = values.str.replace(".", "", regex=False).str.replace(",", ".", regex=False)
+        converted = pd.to_numeric(text, errors="coerce")
+        if converted.notna().all():
+            frame[col] = pd.to_numeric(series.str.replace(".", "", regex=False).str.replace(",", ".", regex=False),
+                                       errors="coerce")
+    return frame
+
+
+def _text_kind(series: pd.Series) -> str | None:
+    """'numbers' when every value of a text column is a plain number, 'decimal-comma' for ``10,5``."""
+    values = series.dropna()
+    if values.empty or not values.map(lambda v: isinstance(v, str)).all():
+        return None
+    sample = values.iloc[:2000]
+    if pd.to_numeric(sample, errors="coerce").notna().all() and pd.to_numeric(values, errors="coerce").notna().all():
+        return "numbers"
+    if sample.map(lambda v: bool(_DECIMAL_COMMA.match(v))).mean() >= 0.9:
+        return "decimal-comma"
+    return None

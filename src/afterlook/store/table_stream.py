@@ -26,6 +26,7 @@ from afterlook.store.table_files import (
     _check_file,
     _fail,
     _format_of,
+    _legacy_text,
     _looks_binary,
     _quote_list,
     _schema_names,
@@ -67,6 +68,9 @@ def load_head(
             batch = next(pfile.iter_batches(batch_size=rows), None)
             arrow = pa.Table.from_batches([batch]) if batch is not None else pfile.schema_arrow.empty_table()
         else:
+            if not compressed and _legacy_text(head):
+                raise _fail(f"cannot read {name}: it is not UTF-8 text but looks like a single-byte encoding "
+                            "(Latin-1, Windows-1252); save it as UTF-8 (the chunked engine reads UTF-8 only)")
             if not compressed and _looks_binary(head):
                 raise _fail(f"cannot read {name}: it looks like a binary file, not CSV text")
             reader = pacsv.open_csv(name, read_options=pacsv.ReadOptions(block_size=1 << 20),

@@ -55,6 +55,10 @@ from afterlook.store.table_files import (
     _check_column_names,
     _check_file,
     _fail,
+    _read_decimal_commas,
+    _text_kind,
+    check_delimiter,
+    check_encoding,
     _format_of,
     _quote_list,
     _read_csv,
@@ -300,18 +304,29 @@ def load_table(
     label_col: str | None = None,
     require_labels: bool = False,
     require_unique_ids: bool = False,
+    encoding: str | None = None,
+    delimiter: str | None = None,
+    decimal: str | None = None,
 ) -> Table:
     """Read a CSV/TSV/Parquet table of cases.
 
-    Raises :class:`~afterlook.core.errors.AfterlookError` (one line naming
-    the file) for any file or content problem.
+    ``encoding`` (default UTF-8) and ``delimiter`` (default by extension)
+    apply to CSV text; ``decimal=","`` reads text columns such as ``10,5``
+    as numbers. Raises :class:`~afterlook.core.errors.AfterlookError` (one
+    line naming the file) for any file or content problem.
     """
+    codec = check_encoding(encoding)
+    chosen = check_delimiter(delimiter)
+    if decimal not in (None, ".", ","):
+        raise _fail(f"--decimal must be '.' or ',', got {_short(decimal)!r}")
     name, head, size = _check_file(path)
-    kind, delimiter, compressed = _format_of(name, head)
+    kind, found, compressed = _format_of(name, head)
     if kind == "parquet":
         arrow = _read_parquet(name, head, size)
     else:
-        arrow = _read_csv(name, head, delimiter, compressed)
+        if chosen is not None and chosen == decimal:
+            raise _fail("--delimiter and --decimal cannot both be ','")
+        arrow = _read_csv(name, head, chosen or found, compressed, codec)
     names = _schema_names(name, arrow.schema)
     _check_column_names(name, names)
     if arrow.num_columns == 0:
@@ -320,6 +335,8 @@ def load_table(
         raise _fail(f"{name} has a header but no rows")
     frame = _arrow_to_pandas(name, arrow, kind)
     del arrow
+    if decimal == ",":
+        frame = _read_decimal_commas(frame)
     return _build_table(frame, name, id_col=id_col, label_col=label_col,
                         require_labels=require_labels, require_unique_ids=require_unique_ids)
 
@@ -399,7 +416,16 @@ def _build_table(frame: pd.DataFrame, name: str, *, id_col, label_col, require_l
                 warnings.append(f"column {col!r} in {name} is empty; kept as context, not modelled")
             elif pd.api.types.is_string_dtype(series) or series.dtype == object:
                 found = _looks_numeric_text(series)
-                if found is not None:
+                text_kind = _text_kind(series)
+                if text_kind == "numbers":
+                    warnings.append(f"column {col!r} in {name} holds numbers stored as text (e.g. "
+                                    f"{_short(series.dropna().iloc[0], 24)}); kept as context, not modelled: "
+                                    "store it as a numeric column to model it")
+                elif text_kind == "decimal-comma":
+                    warnings.append(f"column {col!r} in {name} looks like numbers with a decimal comma (e.g. "
+                                    f"{_short(series.dropna().iloc[0], 24)}); kept as context, not modelled: "
+                                    "read it with --decimal ','")
+                elif found is not None:
                     n_bad, example = found
                     warnings.append(
                         f"column {col!r} in {name} is mostly numbers but {n_bad} value(s) are not "
@@ -409,7 +435,10 @@ def _build_table(frame: pd.DataFrame, name: str, *, id_col, label_col, require_l
     if not numeric_columns:
         hint = ""
         if len(frame.columns) == 1 and any(sep in str(frame.columns[0]) for sep in (";", "\t", "|")):
-            hint = " (is it separated by ';', tab or '|' rather than commas?)"
+            hint = " (is it separated by ';', tab or '|' rather than commas? pass --delimiter)"
+        commas = [c for c in context_columns if _text_kind(frame[c]) == "decimal-comma"]
+        if commas:
+            hint = f" ({_quote_list(commas)} look like numbers with a decimal comma: add --decimal ',')"
         raise _fail(f"{name} has no numeric columns (columns: {_quote_list(frame.columns)}){hint}")
 
     values = frame[numeric_columns]

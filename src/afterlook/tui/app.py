@@ -25,6 +25,7 @@ from textual.worker import get_current_worker
 
 from ..analysis import workbench as wd
 from ..core.errors import AfterlookError
+from . import format as fmt
 from . import messages as msg
 from .casebook_flow import CasebookFlow
 from .histogram_flow import HistogramFlow
@@ -107,6 +108,11 @@ class WorkbenchApp(CasebookFlow, HistogramFlow, App[int]):
         self.zoomed = False
         self.register_theme(THEME)
         self.theme = "afterlook"
+
+    def notify(self, message: str, *, title: str = "", severity="information", timeout: float | None = None,
+               markup: bool = False) -> None:
+        """Every notification is plain text made printable: messages quote case ids, names and file paths."""
+        super().notify(fmt.plain(message), title=fmt.plain(title), severity=severity, timeout=timeout, markup=False)
 
     def get_default_screen(self) -> WorkbenchScreen:
         # the case column fits the longest id, within reason (formatting, not statistics)

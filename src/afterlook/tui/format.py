@@ -9,7 +9,14 @@ from __future__ import annotations
 
 import math
 
+from ..core.printable import printable
+
 MISSING = "n/a"
+
+
+def plain(text) -> str:
+    """Data (a case id, a name, a note) made printable for the screen: control characters escaped."""
+    return printable("" if text is None else text)
 
 
 def _bad(x) -> bool:
@@ -17,7 +24,9 @@ def _bad(x) -> bool:
 
 
 def num(x, digits: int = 3) -> str:
-    """Fixed decimals, scientific notation for very large or very small magnitudes."""
+    """Fixed decimals, scientific notation for very large or very small magnitudes; -inf as is (overflow)."""
+    if isinstance(x, float) and x == -math.inf:
+        return "-inf"
     if _bad(x):
         return MISSING
     if isinstance(x, float):
@@ -61,8 +70,8 @@ def count_change(n) -> str:
 
 
 def clip(text: str, width: int) -> str:
-    """Cut ``text`` to ``width`` characters with an ellipsis."""
-    text = str(text)
+    """``text`` made printable (:func:`plain`), cut to ``width`` characters with an ellipsis."""
+    text = plain(text)
     if width <= 0:
         return ""
     return text if len(text) <= width else text[: max(width - 1, 0)] + "…"

@@ -4,11 +4,14 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 
+from rich.text import Text
 from textual.app import ComposeResult
 from textual.binding import Binding
 from textual.containers import Horizontal, Vertical
 from textual.screen import ModalScreen
 from textual.widgets import Button, Checkbox, Input, Label, Select
+
+from ...core.printable import printable
 
 
 @dataclass(frozen=True)
@@ -35,7 +38,7 @@ class SaveCaseScreen(ModalScreen[SaveRequest | None]):
 
     def compose(self) -> ComposeResult:
         with Vertical(id="save-box"):
-            yield Label(f"save {self.case_id} to {self.book_file}", id="save-title")
+            yield Label(Text(printable(f"save {self.case_id} to {self.book_file}")), id="save-title")
             if self.already:
                 yield Label("this case is already in the casebook; saving updates its entry", id="save-already")
             yield Label("status")
@@ -43,7 +46,7 @@ class SaveCaseScreen(ModalScreen[SaveRequest | None]):
                          compact=True)
             if self.derive is not None:
                 name, expr = self.derive
-                yield Checkbox(f"record the tried feature {name} = {expr}", value=True, id="save-derive",
+                yield Checkbox(Text(printable(f"record the tried feature {name} = {expr}")), value=True, id="save-derive",
                                compact=True)
             yield Label("note (enter saves)")
             yield Input(placeholder="what was decided, and why", id="save-note", compact=True)

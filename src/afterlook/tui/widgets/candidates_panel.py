@@ -51,7 +51,7 @@ class CandidatesPanel(Vertical):
 
     def idle(self, case_id: str | None, message: str) -> None:
         self.result, self.case_id = None, case_id
-        self.query_one("#cand-head", Static).update(Text(message, style=self._style("candidates--dim")))
+        self.query_one("#cand-head", Static).update(Text(fmt.plain(message), style=self._style("candidates--dim")))
         self._progress_visible(False)
         self.query_one("#cand-table", DataTable).clear(columns=True)
         self.query_one("#cand-detail", Static).update("")
@@ -59,7 +59,7 @@ class CandidatesPanel(Vertical):
 
     def running(self, case_id: str) -> None:
         self.result, self.case_id = None, case_id
-        self.query_one("#cand-head", Static).update(Text(f"searching candidates for {case_id} …"))
+        self.query_one("#cand-head", Static).update(Text(f"searching candidates for {fmt.plain(case_id)} …"))
         self._progress_visible(True)
         self.query_one("#cand-progress", ProgressBar).update(total=100, progress=0)
         self.query_one("#cand-stage", Static).update("starting")
@@ -80,7 +80,7 @@ class CandidatesPanel(Vertical):
         self.result, self.case_id = result, case_id
         self._progress_visible(False)
         head = Text()
-        head.append(f"candidates for {case_id}", style="bold")
+        head.append(f"candidates for {fmt.plain(case_id)}", style="bold")
         head.append(f"  {result.tried} tried on {result.sample_rows} normal rows", style=self._style("candidates--dim"))
         self.query_one("#cand-head", Static).update(head)
         table = self.query_one("#cand-table", DataTable)
@@ -104,7 +104,7 @@ class CandidatesPanel(Vertical):
                 good = c.verdict == "holds-up" or (not c.verdict and c.beyond_chance)
                 table.add_row(
                     Text(str(k + 1), justify="right"),
-                    fmt.clip(c.expression, expr_width),
+                    Text(fmt.clip(c.expression, expr_width)),
                     Text(fmt.signed(c.case_z, 1), justify="right"),
                     Text(fmt.tail(c.adjusted_tail), justify="right"),
                     Text(fmt.MISSING if gain == "n/a" else gain, justify="right"),
@@ -147,8 +147,8 @@ class CandidatesPanel(Vertical):
             return
         c = self.result.candidates[index]
         t = Text()
-        t.append(f"{index + 1}: {c.name} = ", style="bold")
-        t.append(c.expression)
+        t.append(f"{index + 1}: {fmt.plain(c.name)} = ", style="bold")
+        t.append(fmt.plain(c.expression))
         good = c.verdict == "holds-up" or (not c.verdict and c.beyond_chance)
         t.append(f"  ({candidate_verdict(c)})", style=self._style("candidates--finding" if good else "candidates--chance"))
         detail.update(t)

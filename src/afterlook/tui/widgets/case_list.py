@@ -59,7 +59,7 @@ class CaseList(Vertical):
         table.add_column(Text("margin", justify="right"), key="margin", width=8)
         table.add_column("after try", key="trial", width=13)
         for col, width in self.context_columns.items():
-            table.add_column(col, key=f"ctx:{col}", width=width)
+            table.add_column(Text(fmt.plain(col)), key=f"ctx:{col}", width=width)
 
     @property
     def table(self) -> DataTable:
@@ -83,11 +83,11 @@ class CaseList(Vertical):
                 kind_style = {"miss": "cases--miss", "near catch": "cases--near"}.get(r.kind, "cases--alarm")
                 table.add_row(
                     Text("[book]", style=self._style("cases--book")) if r.case in book else "",
-                    fmt.clip(r.case, self.case_width),
+                    Text(fmt.clip(r.case, self.case_width)),
                     Text(KIND_WORDS.get(r.kind, r.kind), style=self._style(kind_style)),
                     Text(fmt.signed(r.margin, 2), justify="right"),
                     Text(flips.get(r.case, ""), style=self._style("cases--flip")),
-                    *[fmt.clip(r.context.get(c) or "", w) for c, w in self.context_columns.items()],
+                    *[Text(fmt.clip(r.context.get(c) or "", w)) for c, w in self.context_columns.items()],
                     key=r.case,
                 )
                 self._marks[r.case] = (r.case in book, flips.get(r.case, ""))
@@ -122,9 +122,9 @@ class CaseList(Vertical):
         text.append(" · ")
         text.append(f"false alarms {'shown' if false_alarms else 'hidden'} ({counts.get('false alarm', 0)}) [f]")
         text.append(" · ")
-        text.append(book_words, style=self._style("cases--book"))
+        text.append(fmt.plain(book_words), style=self._style("cases--book"))
         if filter_text.strip():
-            text.append(f" · filter '{filter_text.strip()}': {n_shown} shown", style=self._style("cases--dim"))
+            text.append(f" · filter '{fmt.plain(filter_text.strip())}': {n_shown} shown", style=self._style("cases--dim"))
         elif n_shown == 0:
             text.append(" · nothing to list", style=self._style("cases--dim"))
         self.query_one("#case-toggles", Static).update(text)

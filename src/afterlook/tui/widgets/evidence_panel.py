@@ -80,14 +80,14 @@ class EvidencePanel(Vertical):
         narrow = self._drawn_narrow = self.narrow
         ex = view.explain
         head = Text(no_wrap=True, overflow="ellipsis")
-        head.append(ex.case, style="bold")
+        head.append(fmt.plain(ex.case), style="bold")
         head.append("  ")
         head.append(view.standing, style=self._style("evidence--flagged" if ex.flagged else "evidence--miss"))
         head.append(f"\nlog-density {fmt.num(ex.log_density)} vs threshold {fmt.num(ex.threshold)}, margin "
                     f"{fmt.signed(ex.margin, 3)}: {'flagged' if ex.flagged else 'not flagged'}")
         self.query_one("#evidence-head", Static).update(head)
         context = Text(no_wrap=True, overflow="ellipsis", style=self._style("evidence--dim"))
-        context.append("  ".join([f"{ex.model_kind} model"] + [f"{k} {v}" for k, v in ex.context.items() if v]))
+        context.append(fmt.plain("  ".join([f"{ex.model_kind} model"] + [f"{k} {v}" for k, v in ex.context.items() if v])))
         self.query_one("#evidence-context", Static).update(context)
 
         half = NARROW_BAR_HALF if narrow else WIDE_BAR_HALF
@@ -111,7 +111,7 @@ class EvidencePanel(Vertical):
             for r in view.rows:
                 strong = r.reading.startswith("very")
                 cells = [
-                    fmt.clip(r.name, name_width - 2) + (" *" if r.transform else ""),
+                    Text(fmt.clip(r.name, name_width - 2) + (" *" if r.transform else "")),
                     Text(fmt.short(r.raw_value), justify="right"),
                     signed_bar(r.z, half, low + extreme if strong else low, high + extreme if strong else high),
                     Text(fmt.signed(r.z), justify="right"),

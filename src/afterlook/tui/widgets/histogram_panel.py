@@ -77,7 +77,7 @@ class HistogramPanel(Vertical):
         self._draw()
 
     def loading(self, label: str) -> None:
-        self.message = f"counting {label} …"
+        self.message = f"counting {fmt.plain(label)} …"
         self.view = None
         self._draw()
 
@@ -100,7 +100,7 @@ class HistogramPanel(Vertical):
             legend.update("")
             return
         v = self.view
-        name.update(Text(v.source.label, style="bold", no_wrap=True, overflow="ellipsis"))
+        name.update(Text(fmt.plain(v.source.label), style="bold", no_wrap=True, overflow="ellipsis"))
         self.query_one("#hist-shaped", Button).label = f"shaped: {'on' if v.shaped else 'off'} [s]"
         h = v.counts
         legend.update(Text(
@@ -136,7 +136,7 @@ class HistogramPanel(Vertical):
         out.append(lo + " " * max(1, width - len(lo) - len(hi)) + hi + "\n", style=dim)
         # the case marker line: ▲ under the case's bin, its description after it (or before, near the right)
         at = h.case_bin * cell
-        label = f"▲ {v.case} = {fmt.short(h.case_value)}, {fmt.percent(v.normal_below_case)} of normal below"
+        label = f"▲ {fmt.plain(v.case)} = {fmt.short(h.case_value)}, {fmt.percent(v.normal_below_case)} of normal below"
         if h.case_bin < 0:
             out.append(f"this case has no value here ({fmt.MISSING})\n", style=case_style)
         elif at + len(label) <= width:

@@ -70,5 +70,5 @@ def _line(parts, width: int, style) -> Text:
     for k, (part, kind) in enumerate(kept):
         if k:
             text.append(SEP, style=style("status--dim"))
-        text.append(part, style=style(kind))
+        text.append(fmt.plain(part), style=style(kind))
     return text

@@ -49,11 +49,11 @@ class TryPanel(VerticalScroll):
         """ok True: valid; False: the error as you type; None: nothing typed."""
         t = Text()
         if ok is True:
-            t.append("✓ " + message, style=self._style("try--ok"))
+            t.append("✓ " + fmt.plain(message), style=self._style("try--ok"))
         elif ok is False:
-            t.append("✗ " + message, style=self._style("try--error"))
+            t.append("✗ " + fmt.plain(message), style=self._style("try--error"))
         else:
-            t.append(message, style=self._style("try--dim"))
+            t.append(fmt.plain(message), style=self._style("try--dim"))
         self.query_one("#expression-status", Static).update(t)
 
     def on_input_changed(self, event: Input.Changed) -> None:
@@ -69,23 +69,23 @@ class TryPanel(VerticalScroll):
     # -- the comparison -------------------------------------------------------
     def running(self, label: str) -> None:
         self.query_one("#trial-head", Static).update(
-            Text(f"re-fitting with {label} and re-scoring every case …", style=self._style("try--running")))
+            Text(f"re-fitting with {fmt.plain(label)} and re-scoring every case …", style=self._style("try--running")))
 
     def failed(self, label: str, message: str) -> None:
         self.query_one("#trial-head", Static).update(
-            Text(f"could not try {label}: {message}", style=self._style("try--error")))
+            Text(f"could not try {fmt.plain(label)}: {fmt.plain(message)}", style=self._style("try--error")))
 
     def show(self, view) -> None:
         """Draw a :class:`~afterlook.analysis.workbench.TrialView`."""
         self.view = view
         head = Text()
         head.append("tried ", style="bold")
-        head.append(", ".join(f"{n} = {e}" for n, e in view.derive), style="bold")
-        head.append(f"\nre-fitted on {fmt.short_paths(view.training_source)}", style=self._style("try--dim"))
+        head.append(fmt.plain(", ".join(f"{n} = {e}" for n, e in view.derive)), style="bold")
+        head.append(f"\nre-fitted on {fmt.plain(fmt.short_paths(view.training_source))}", style=self._style("try--dim"))
         head.append(f"\nmisses caught: {view.misses_caught} · false alarms added: "
                     f"{fmt.count_change(view.false_alarms_added)}")
         for w in view.warnings:
-            head.append(f"\nwarning: {fmt.short_paths(w)}", style=self._style("try--error"))
+            head.append(f"\nwarning: {fmt.plain(fmt.short_paths(w))}", style=self._style("try--error"))
         self.query_one("#trial-head", Static).update(head)
 
         t = Table(box=box.SIMPLE_HEAD, show_edge=False, pad_edge=False)
@@ -94,16 +94,16 @@ class TryPanel(VerticalScroll):
             t.add_column(col, justify="right", no_wrap=True)
         for m in view.metrics:
             if m.integer:
-                t.add_row(m.name, str(m.before), str(m.after), fmt.count_change(m.change))
+                t.add_row(Text(fmt.plain(m.name)), str(m.before), str(m.after), fmt.count_change(m.change))
             else:
-                t.add_row(m.name, fmt.num(m.before), fmt.num(m.after), fmt.signed(m.change, 3))
+                t.add_row(Text(fmt.plain(m.name)), fmt.num(m.before), fmt.num(m.after), fmt.signed(m.change, 3))
         self.query_one("#trial-metrics", Static).update(t)
 
         case = Text()
         c = view.case
         if c is not None:
             case.append("\n")
-            case.append(f"{c.case}: ", style="bold")
+            case.append(f"{fmt.plain(c.case)}: ", style="bold")
             case.append(f"log-density {fmt.num(c.log_density_before)} vs threshold {fmt.num(view.threshold_before)} "
                         f"(margin {fmt.signed(view.margin_before, 3)}, {'flagged' if c.flagged_before else 'not flagged'})")
             case.append(f"\n  → {fmt.num(c.log_density_after)} vs {fmt.num(view.threshold_after)} "
@@ -118,7 +118,7 @@ class TryPanel(VerticalScroll):
             n, n_anomaly, n_normal = view.counts(rows)
             flips.append(f"\n{title}: {n} ({n_anomaly} labelled anomaly, {n_normal} labelled normal)", style="bold")
             for r in rows[:FLIPS_SHOWN]:
-                flips.append(f"\n  {'+' if r.flagged_after else '-'} {r.case}  {r.label:<7}  "
+                flips.append(f"\n  {'+' if r.flagged_after else '-'} {fmt.plain(r.case)}  {r.label:<7}  "
                              f"{fmt.num(r.log_density_before, 2)} → {fmt.num(r.log_density_after, 2)}")
             if len(rows) > FLIPS_SHOWN:
                 flips.append(f"\n  … {len(rows) - FLIPS_SHOWN} more", style=self._style("try--dim"))
