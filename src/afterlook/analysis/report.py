@@ -24,6 +24,7 @@ import re
 from collections import Counter
 from typing import Iterable
 
+from .wording import flag_word
 from ..core.printable import printable
 from ..store.casebook_file import STATUSES, Casebook
 
@@ -70,10 +71,6 @@ def _signed(x) -> str:
     return _num(x, "+.2f")
 
 
-def _flag_word(flagged) -> str:
-    return "n/a" if flagged is None else ("flagged" if flagged else "unflagged")
-
-
 def _entries(book) -> list[dict]:
     if isinstance(book, Casebook):
         return [book.entries[k] for k in sorted(book.entries)]
@@ -97,7 +94,7 @@ def _score_line(part: dict | None) -> tuple[str, str, str, str]:
     if not part:
         return ("n/a", "n/a", "n/a", "n/a")
     return (_num(part.get("log_density")), _num(part.get("threshold")), _signed(part.get("margin")),
-            _flag_word(part.get("flagged")))
+            flag_word(part.get("flagged")))
 
 
 def _metric_row(m: dict | None) -> list[str]:

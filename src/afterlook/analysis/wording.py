@@ -82,6 +82,11 @@ def standing(label: bool | None, flagged: bool, log_density: float) -> str:
     return "false alarm: labelled normal, flagged" if flagged else "normal: labelled normal, not flagged"
 
 
+def flag_word(flagged: bool | None) -> str:
+    """One case's flag in words, the same on every screen and in reports ("n/a" when unknown)."""
+    return "n/a" if flagged is None else ("flagged" if flagged else "not flagged")
+
+
 def flip_words(before: bool, after: bool) -> str:
     """How a case's flag changed from one model to another, in words."""
     if after and not before:

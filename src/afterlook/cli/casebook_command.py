@@ -9,6 +9,7 @@ from __future__ import annotations
 import sys
 from pathlib import Path
 
+from ..analysis.wording import flag_word
 from ..core.errors import AfterlookError
 from ..core.printable import printable, printable_lines
 from ..core.errors import EXIT_CHECK_FAILED, EXIT_OK
@@ -129,11 +130,11 @@ def run_add(args) -> int:
 def _score_words(entry: dict) -> str:
     b, a = entry.get("before") or {}, entry.get("after")
     text = f"before: log-density {_fmt(b.get('log_density'))} vs threshold {_fmt(b.get('threshold'))} " \
-           f"({'flagged' if b.get('flagged') else 'unflagged'})"
+           f"({flag_word(bool(b.get('flagged')))})"
     if a:
         d = entry.get("derived_feature") or {}
         text += (f"; after adding {d.get('name')}: {_fmt(a.get('log_density'))} vs {_fmt(a.get('threshold'))} "
-                 f"({'flagged' if a.get('flagged') else 'unflagged'})")
+                 f"({flag_word(bool(a.get('flagged')))})")
     return text
 
 
@@ -193,7 +194,7 @@ def run_list(args) -> int:
     out.print(table)
     if not wide and entries:
         out.print(features)
-    out.print(Text("log-density vs threshold: '<' flagged, '>=' unflagged", style="dim"))
+    out.print(Text("log-density vs threshold: '<' flagged, '>=' not flagged", style="dim"))
     return EXIT_OK
 
 
@@ -316,7 +317,7 @@ def run_check(args) -> int:
         verdict = Text("regressed", style="bold red") if d["regressed"] else Text("ok", style="green")
         where = " (from snapshot)" if d["source"] == "snapshot" else ""
         table.add_row(_plain(d["case"]), _plain(d["status"]), _fmt(d["log_density"]), _fmt(d["threshold"]),
-                      Text(("flagged" if d["flagged"] else "unflagged") + where), verdict)
+                      Text(flag_word(d["flagged"]) + where), verdict)
     out.print(table)
     if result.ok:
         out.print(f"ok: {result.entries} case(s) checked, no explained case regressed")

@@ -63,7 +63,7 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--out", required=True, metavar="MODEL", help="model file to write (JSON)")
     p.add_argument("--force", action="store_true", help="replace an existing afterlook model file at --out")
     p.add_argument("--cases", metavar="CASES", help="labelled cases on which to pick the threshold")
-    p.add_argument("--kind", default="full", help="independent or full (default full)")
+    p.add_argument("--kind", default="full", choices=("independent", "full"), help="independent or full (default full)")
     p.add_argument("--robust", action="store_true", help="minimum covariance determinant fit (resists masking)")
     p.add_argument("--shrinkage", help="ledoit-wolf or a number in [0, 1] (full model)")
     p.add_argument("--columns", nargs="+", metavar="COL", help="base columns (default: every numeric column)")
@@ -74,7 +74,7 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--undefined", choices=("flag", "skip"), default="flag",
                    help="a case whose feature is undefined on finite readings (a zero divisor, a log of a "
                         "non-positive value): flag it as outside the feature's domain (default) or leave it unscored")
-    p.add_argument("--engine", default="memory",
+    p.add_argument("--engine", default="memory", choices=("memory", "chunked", "dask"),
                    help="memory (default), chunked (files larger than memory) or dask (a Dask cluster)")
     p.add_argument("--scheduler", metavar="ADDRESS", help="Dask scheduler address for --engine dask (default: a local cluster)")
     p.add_argument("--chunk-rows", type=int, default=262_144, help="rows per chunk for --engine chunked")
