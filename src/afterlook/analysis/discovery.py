@@ -22,6 +22,7 @@ from ..core.numbers import sample_rows
 from ..core.recipe import free_name
 from ..core.gaussian import GaussianModel, added_column, with_added_column
 from ..core.thresholds import choose_threshold, confusion, flag
+from ..core.blas import with_limited_blas
 from .fitting import refit
 from .model import Model
 from .session import Session, prepare
@@ -99,6 +100,7 @@ class SuggestResult:
         }
 
 
+@with_limited_blas
 def suggest(model, cases, train=None, case_ids=None, top: int = 10, *,
             exact: int | None = None, settings: cand.Settings | None = None,
             shaping: bool = True, progress=None) -> SuggestResult:

@@ -12,6 +12,7 @@ from ..core.explain import FeatureEvidence, evidence
 from ..core.quality import RankingQuality, UnseenValue, ranking_quality, unseen_values
 from ..store.columns import numeric_columns_of
 from ..core.thresholds import Confusion
+from ..core.blas import with_limited_blas
 from .session import Session, case_context, prepare, table_name
 
 __all__ = ["Miss", "MissesResult", "misses", "ExplainResult", "explain", "explain_case"]
@@ -58,6 +59,7 @@ class MissesResult:
         }
 
 
+@with_limited_blas
 def misses(model, cases=None) -> MissesResult:
     """Labelled anomalies the model left unflagged, largest margin first.
 
@@ -140,6 +142,7 @@ class ExplainResult:
         }
 
 
+@with_limited_blas
 def explain(model, cases, case_id=None) -> ExplainResult:
     """Why one case scored as it did: per-feature z, percentile, contribution, conditional z.
 
@@ -150,6 +153,7 @@ def explain(model, cases, case_id=None) -> ExplainResult:
     return explain_case(prepare(model, cases), case_id)
 
 
+@with_limited_blas
 def explain_case(session: Session, case_id) -> ExplainResult:
     """:func:`explain` on a prepared session (the cases are not scored again)."""
     model = session.model

@@ -17,6 +17,7 @@ from ..core.errors import AfterlookError
 from ..core.gaussian import GaussianModel
 from ..core.recipe import Recipe, parse_transform
 from ..core.thresholds import ThresholdPolicy, choose_threshold, parse_policy
+from ..core.blas import with_limited_blas
 from ..store.tables import Table, sha256_file
 from .model import Model, training_summary
 from .session import TrainingRows, as_table, derive_pairs, numeric_columns_of, table_name
@@ -26,6 +27,7 @@ __all__ = ["fit", "fit_streamed", "refit", "checked_base_columns", "DEFAULT_RATE
 DEFAULT_RATE = 0.01
 
 
+@with_limited_blas
 def fit(
     train,
     *,
@@ -188,12 +190,14 @@ def _build_recipe(table: Table, normal_frame: pd.DataFrame, columns, derive, tra
     return Recipe(base, derived, transforms)
 
 
+@with_limited_blas
 def refit(model: Model, recipe: Recipe, train: TrainingRows, cases: Table, *, quantiles: bool = True) -> Model:
     """Re-fit the model's kind and options with another recipe, threshold by the same policy."""
     return fit(train.table, cases=cases, kind=model.density.kind, robust=model.density.robust,
                shrinkage=model.density.shrinkage, threshold=model.policy, recipe=recipe, quantiles=quantiles)
 
 
+@with_limited_blas
 def fit_streamed(
     train_path,
     *,

@@ -21,6 +21,7 @@ from ..core.explain import QUANTILE_POINTS, quantile_grid
 from ..core.gaussian import GaussianModel
 from ..core.recipe import FeatureMatrix, Recipe
 from ..core.thresholds import ThresholdPolicy, flag, parse_policy
+from ..core.blas import with_limited_blas
 from ..store import model_file
 from ..store.columns import numeric_column
 
@@ -78,6 +79,7 @@ class Model:
         """Log-density of each row (NaN where a feature is NaN or infinite)."""
         return self.density.log_density(self.feature_matrix(columns).values)
 
+    @with_limited_blas
     def score(self, df: pd.DataFrame) -> pd.DataFrame:
         """A copy of ``df`` with ``log_density`` and ``flagged`` columns added."""
         ld = self.log_density(df)

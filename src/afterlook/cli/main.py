@@ -13,8 +13,8 @@ import sys
 
 from .. import _version
 from ..cautions import CAUTION
+from ..core.blas import environment_for_new_process, limited_blas
 from ..core.errors import EXIT_BAD_INPUT, EXIT_CHECK_FAILED, EXIT_INTERNAL, EXIT_INTERRUPTED, EXIT_OK, AfterlookError
-from ..core.numbers import finite_or_none
 from ..store.atomic import check_writable
 from .output import emit_json, error_line, warn
 
@@ -174,6 +174,7 @@ def cmd_fit(args) -> int:
 
 def cmd_score(args) -> int:
     from ..analysis.model import load_model
+    from ..core.numbers import finite_or_none
     from ..store.tables import load_table
 
     model = load_model(args.model)
@@ -270,7 +271,8 @@ def main(argv: list[str] | None = None) -> int:
         if not args.command:
             parser.print_help()
             return EXIT_BAD_INPUT
-        return COMMANDS[args.command](args)
+        with limited_blas():
+            return COMMANDS[args.command](args)
     except AfterlookError as exc:
         error_line(exc.message)
         return exc.exit_code
@@ -296,6 +298,9 @@ def main(argv: list[str] | None = None) -> int:
 
 
 def entry() -> None:
+    # Before numpy loads: OpenBLAS then starts with afterlook's thread count
+    # (one by default) instead of one thread per core (see core/blas.py).
+    os.environ.update(environment_for_new_process())
     sys.exit(main())
 
 
