@@ -395,6 +395,13 @@ class AddedFeatureRefit:
 
 
 
+#: Shaping choices already made in this process, by column name and a digest of its values:
+#: the workbench searches case after case on the same normal population, and the
+#: stability re-search and a repeated API call see the same columns again.
+_SHAPING_CACHE: dict[tuple[str, bytes], str | None] = {}
+_SHAPING_CACHE_SIZE = 4096
+
+
 def _shaping_expressions(model: Model, sample: dict) -> dict[str, str]:
     """Expression text of a shaping transform per column (the recipe's own, else a search)."""
     out = {}
@@ -406,14 +413,26 @@ def _shaping_expressions(model: Model, sample: dict) -> dict[str, str]:
     for name, values in sample.items():
         if name in out:
             continue
-        try:
-            res = shaping.search_transform(values, name=name)
-        except (AfterlookError, TypeError):
-            continue
-        text = _as_expression(res.transform, name)
+        key = (name, _digest(values))
+        if key not in _SHAPING_CACHE:
+            try:
+                text = _as_expression(shaping.chosen_transform(values, name=name), name)
+            except (AfterlookError, TypeError):
+                text = None
+            if len(_SHAPING_CACHE) >= _SHAPING_CACHE_SIZE:
+                _SHAPING_CACHE.pop(next(iter(_SHAPING_CACHE)))
+            _SHAPING_CACHE[key] = text
+        text = _SHAPING_CACHE[key]
         if text:
             out[name] = text
     return out
+
+
+def _digest(values) -> bytes:
+    import hashlib
+
+    a = np.ascontiguousarray(values, dtype=np.float64)
+    return hashlib.blake2b(a.tobytes(), digest_size=16).digest()
 
 
 def _as_expression(transform, name: str) -> str | None:

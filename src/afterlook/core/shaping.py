@@ -349,22 +349,10 @@ def search_transform(
     that ``fit`` applies exactly this lambda. The selection rule is in the
     module docstring.
     """
-    statistic = _check_statistic(statistic)
-    if isinstance(sample_size, bool) or not isinstance(sample_size, (int, np.integer)) or sample_size < MIN_VALUES:
-        raise AfterlookError(f"sample size must be a whole number of at least {MIN_VALUES}, got {sample_size!r}")
-    x_all, n_nonfinite = _finite_values(values, name)
-    if x_all.size < MIN_VALUES:
-        return _left_alone(name, statistic, x_all, n_nonfinite,
-                           f"only {x_all.size} finite value(s), need {MIN_VALUES}")
-    if np.ptp(x_all) == 0:
-        return _left_alone(name, statistic, x_all, n_nonfinite, "constant column")
-    sample = _sample(x_all, int(sample_size), random_state)
-    if np.ptp(sample) == 0:  # a nearly constant column whose sample happens to be constant
-        return _left_alone(name, statistic, x_all, n_nonfinite, "constant on the sample")
-    identity_stat = _score(sample, sample, statistic)
-    if identity_stat is None:  # pragma: no cover - a varying finite sample always scores
-        return _left_alone(name, statistic, x_all, n_nonfinite, "no normality statistic")
-
+    prepared = _prepare(values, name, sample_size, random_state, statistic)
+    if isinstance(prepared, ShapeResult):
+        return prepared
+    statistic, x_all, n_nonfinite, sample, identity_stat = prepared
     tried, after_by_text = _try_transforms(name, x_all, sample, statistic, identity_stat)
     choice, reason = _choose(tried, sample, statistic)
     after = after_by_text[choice.description]
@@ -389,6 +377,51 @@ def search_transform(
         n_values=int(x_all.size),
         n_nonfinite=n_nonfinite,
     )
+
+
+def _prepare(values, name: str, sample_size, random_state, statistic: str):
+    """The checks and the sample every search starts from, or the ShapeResult of a column left alone."""
+    statistic = _check_statistic(statistic)
+    if isinstance(sample_size, bool) or not isinstance(sample_size, (int, np.integer)) or sample_size < MIN_VALUES:
+        raise AfterlookError(f"sample size must be a whole number of at least {MIN_VALUES}, got {sample_size!r}")
+    x_all, n_nonfinite = _finite_values(values, name)
+    if x_all.size < MIN_VALUES:
+        return _left_alone(name, statistic, x_all, n_nonfinite,
+                           f"only {x_all.size} finite value(s), need {MIN_VALUES}")
+    if np.ptp(x_all) == 0:
+        return _left_alone(name, statistic, x_all, n_nonfinite, "constant column")
+    sample = _sample(x_all, int(sample_size), random_state)
+    if np.ptp(sample) == 0:  # a nearly constant column whose sample happens to be constant
+        return _left_alone(name, statistic, x_all, n_nonfinite, "constant on the sample")
+    identity_stat = _score(sample, sample, statistic)
+    if identity_stat is None:  # pragma: no cover - a varying finite sample always scores
+        return _left_alone(name, statistic, x_all, n_nonfinite, "no normality statistic")
+
+    return statistic, x_all, n_nonfinite, sample, identity_stat
+
+
+def chosen_transform(values, *, name: str = "x", sample_size: int = 5000, random_state=0,
+                     statistic: str = "dagostino") -> Transform | None:
+    """The transform :func:`search_transform` would choose, without the search where the answer is known.
+
+    A near-Gaussian column (selection rule 2) keeps no transform whatever the
+    other candidates score, so its search is skipped; every other column runs
+    the full search. The answer is always ``search_transform(...).transform``
+    (a test checks it on skewed, symmetric and constant columns).
+    """
+    prepared = _prepare(values, name, sample_size, random_state, statistic)
+    if isinstance(prepared, ShapeResult):
+        return prepared.transform
+    statistic, x_all, n_nonfinite, sample, identity_stat = prepared
+    if _near_gaussian(sample):
+        return None
+    tried, _ = _try_transforms(name, x_all, sample, statistic, identity_stat)
+    return _choose(tried, sample, statistic)[0].transform
+
+
+def _near_gaussian(sample: np.ndarray) -> bool:
+    """Selection rule 2: roughly symmetric and a K^2 p-value of at least NEAR_GAUSSIAN_P."""
+    return abs(_skew(sample)) < SYMMETRIC_SKEW and _k2_pvalue(sample) >= NEAR_GAUSSIAN_P
 
 
 def _finite_values(values, name: str) -> tuple[np.ndarray, int]:
@@ -457,7 +490,7 @@ def _choose(tried: list[TransformTried], sample: np.ndarray, statistic: str) -> 
     near = [c for c in tried if c.statistic <= best.statistic + tie]
     choice = min(near, key=lambda c: (c.complexity, c.statistic))
     skew_before = _skew(sample)
-    if abs(skew_before) < SYMMETRIC_SKEW and _k2_pvalue(sample) >= NEAR_GAUSSIAN_P:
+    if _near_gaussian(sample):
         return identity, "near-Gaussian: left alone"
     if choice.transform is not None and (
         identity.statistic - choice.statistic < max(CLEAR_GAIN * identity.statistic, critical)
