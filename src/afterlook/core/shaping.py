@@ -402,13 +402,8 @@ def _prepare(values, name: str, sample_size, random_state, statistic: str):
 
 def chosen_transform(values, *, name: str = "x", sample_size: int = 5000, random_state=0,
                      statistic: str = "dagostino") -> Transform | None:
-    """The transform :func:`search_transform` would choose, without the search where the answer is known.
-
-    A near-Gaussian column (selection rule 2) keeps no transform whatever the
-    other candidates score, so its search is skipped; every other column runs
-    the full search. The answer is always ``search_transform(...).transform``
-    (a test checks it on skewed, symmetric and constant columns).
-    """
+    """``search_transform(...).transform``, skipping the search for a near-Gaussian column (rule 2 leaves
+    it alone whatever the other candidates score; a test checks the two agree)."""
     prepared = _prepare(values, name, sample_size, random_state, statistic)
     if isinstance(prepared, ShapeResult):
         return prepared.transform
@@ -419,8 +414,7 @@ def chosen_transform(values, *, name: str = "x", sample_size: int = 5000, random
     return _choose(tried, sample, statistic)[0].transform
 
 
-def _near_gaussian(sample: np.ndarray) -> bool:
-    """Selection rule 2: roughly symmetric and a K^2 p-value of at least NEAR_GAUSSIAN_P."""
+def _near_gaussian(sample: np.ndarray) -> bool:  # selection rule 2
     return abs(_skew(sample)) < SYMMETRIC_SKEW and _k2_pvalue(sample) >= NEAR_GAUSSIAN_P
 
 
