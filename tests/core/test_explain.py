@@ -24,3 +24,19 @@ def test_quantile_grid_equals_numpy_quantile_to_the_bit(shape, kind):
     got = quantile_grid(X)
     assert got.shape == expected.shape == (1001, shape[1])
     assert np.array_equal(got, expected, equal_nan=True)
+
+
+def test_training_summary_equals_the_column_by_column_statistics():
+    # Reference: numpy's own mean / std / min / max of each column, and numpy.quantile.
+    from afterlook.analysis.model import training_summary
+
+    rng = np.random.default_rng(1)
+    X = rng.lognormal(size=(30_011, 6)) * 1e3
+    names = [f"c{j}" for j in range(X.shape[1])]
+    stats, grid = training_summary(X, names)
+    for j, name in enumerate(names):
+        col = X[:, j]
+        assert stats[name] == {"mean": float(col.mean()), "std": float(col.std()), "min": float(col.min()),
+                               "max": float(col.max())}
+    assert np.array_equal(grid, np.quantile(X, np.linspace(0.0, 1.0, 1001), axis=0))
+    assert training_summary(X, names, quantiles=False) == (stats, None)

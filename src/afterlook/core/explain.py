@@ -46,9 +46,15 @@ def quantile_grid(X: np.ndarray, points: int = QUANTILE_POINTS) -> np.ndarray:
     probs = np.linspace(0.0, 1.0, points)
     if X.ndim != 2 or X.shape[0] < 2 or not np.isfinite(X).all():
         return np.quantile(X, probs, axis=0, method="linear")
-    n = X.shape[0]
     columns = np.ascontiguousarray(X.T)  # a copy: each column's values contiguous
     columns.sort(axis=1)
+    return grid_of_sorted_columns(columns, points)
+
+
+def grid_of_sorted_columns(columns: np.ndarray, points: int = QUANTILE_POINTS) -> np.ndarray:
+    """:func:`quantile_grid` of finite columns already sorted, given as the rows of ``columns`` (d, n)."""
+    n = columns.shape[1]
+    probs = np.linspace(0.0, 1.0, points)
     # numpy's steps for method="linear": virtual index (n - 1) q, its floor and
     # the next index (both the last index at q = 1), gamma from the floor so set.
     virtual = (n - 1) * probs

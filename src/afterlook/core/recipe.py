@@ -269,8 +269,11 @@ class Recipe:
             values = env[name]
             t = self.transforms.get(name)
             X[:, j] = apply_transform(t, name, values) if t is not None else values
-        X[~np.isfinite(X)] = np.nan
-        nan_by = {name: int(np.isnan(X[:, j]).sum()) for j, name in enumerate(names)}
+        bad = ~np.isfinite(X)
+        counts = bad.sum(axis=0)  # one pass over the matrix, not one strided pass per column
+        if counts.any():
+            X[bad] = np.nan
+        nan_by = {name: int(counts[j]) for j, name in enumerate(names)}
         return FeatureMatrix(X, names, nan_by)
 
     def describe(self) -> list[str]:
