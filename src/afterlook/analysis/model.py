@@ -83,7 +83,10 @@ class Model:
     def score(self, df: pd.DataFrame) -> pd.DataFrame:
         """A copy of ``df`` with ``log_density`` and ``flagged`` columns added."""
         ld = self.log_density(df)
-        out = df.copy()
+        # A shallow copy: the two columns are added to (or replace whole columns
+        # of) the copy only, so the caller's frame stays as it was without a
+        # second copy of every value (a test checks it).
+        out = df.copy(deep=False)
         out["log_density"] = ld
         out["flagged"] = flag(ld, self.threshold)
         return out
@@ -213,6 +216,13 @@ class _FrameColumns(Mapping):
     def __getitem__(self, key):
         if key not in self.frame.columns:
             raise KeyError(key)
+        col = self.frame[key]
+        if isinstance(col, pd.Series) and col.dtype == np.float64:
+            # Already float64 (NaN for missing): a read-only view of the frame's
+            # values, where numeric_column's conversion would copy them.
+            view = col.to_numpy(copy=False).view()
+            view.flags.writeable = False
+            return view
         return numeric_column(self.frame, key)
 
     def __contains__(self, key):
