@@ -84,9 +84,10 @@ def _peak_mb() -> float:
 def step_fit(folder: Path) -> dict:
     import afterlook
 
+    fit = afterlook.fit  # the import is not part of the call
     train = pd.read_parquet(folder / "train.parquet")
-    t1, model = _timed(lambda: afterlook.fit(train, kind="full"))
-    t2, _ = _timed(lambda: afterlook.fit(train, kind="full"))
+    t1, model = _timed(lambda: fit(train, kind="full"))
+    t2, _ = _timed(lambda: fit(train, kind="full"))
     limit, threads = _reference_threads()
     with limit:
         X = train.to_numpy(dtype=float)
@@ -104,6 +105,7 @@ def step_suggest(folder: Path) -> dict:
     train = pd.read_parquet(folder / "train.parquet")
     cases = pd.read_parquet(folder / "cases.parquet")
     model = afterlook.fit(train, cases=cases, kind="full")
+    afterlook.suggest  # the import is not part of the call
     t1, res = _timed(lambda: afterlook.suggest(model, cases, train=train, case_ids=["miss"]))
     t2, again = _timed(lambda: afterlook.suggest(model, cases, train=train, case_ids=["miss"]))
     same = res.to_dict() == again.to_dict()
@@ -140,6 +142,51 @@ def step_score(folder: Path) -> dict:
     diff = float(np.max(np.abs(ours - ref) / np.maximum(np.abs(ref), 1e-300)))
     return {"afterlook": t1, "afterlook_again": t2, "reference": r1, "reference_again": r2,
             "agreement": diff, "blas_threads": threads, "peak_mb": _peak_mb()}
+
+
+def _spin(stop_at: float) -> None:
+    while time.time() < stop_at:
+        pass
+
+
+@contextlib.contextmanager
+def load(kind: str):
+    """``"idle"``: nothing more; ``"loaded"``: one spinning process per core meanwhile (a busy shared machine)."""
+    import multiprocessing
+
+    spinners = []
+    if kind == "loaded":
+        stop = time.time() + 3600
+        spinners = [multiprocessing.Process(target=_spin, args=(stop,), daemon=True)
+                    for _ in range(os.cpu_count() or 2)]
+        for p in spinners:
+            p.start()
+    try:
+        yield
+    finally:
+        for p in spinners:
+            p.terminate()
+            p.join()
+
+
+def run_step(step: str, folder: Path, threads: str = "one") -> dict:
+    """Run one step in a fresh process; ``threads``: "one" (afterlook's default) or "default" (the library's)."""
+    import subprocess
+
+    env = {k: v for k, v in os.environ.items()
+           if k not in ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS", "AFTERLOOK_BLAS_THREADS")}
+    if threads == "default":
+        env["AFTERLOOK_BLAS_THREADS"] = "auto"
+    out = subprocess.run([sys.executable, str(HERE / "_workloads.py"), step, str(folder)], env=env,
+                         capture_output=True, text=True, timeout=3600)
+    if out.returncode != 0:
+        raise RuntimeError(f"{step} failed: {out.stderr.strip()[-2000:]}")
+    return json.loads(out.stdout.strip().splitlines()[-1])
+
+
+def median(values):
+    values = sorted(values)
+    return values[len(values) // 2]
 
 
 STEPS = {"fit": step_fit, "suggest": step_suggest, "score": step_score, "pandas_loop": step_pandas_loop}
