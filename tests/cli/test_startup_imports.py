@@ -51,3 +51,16 @@ def test_the_public_operations_load_what_they_need_when_called():
     # Guards the checks above against a probe that sees nothing: using the API loads numpy and pandas.
     loaded = loaded_after("import afterlook; afterlook.load_model")
     assert loaded["numpy"] and loaded["pandas"]
+
+
+def test_misses_loads_neither_scikit_learn_nor_scipy_stats_nor_the_workbench(demo_written):
+    # scikit-learn's import alone was about half a second of the command.
+    code = f"""
+import contextlib, io
+from afterlook.cli.main import main
+with contextlib.redirect_stdout(io.StringIO()):
+    assert main(["misses", {str(demo_written.model)!r}, {str(demo_written.cases)!r}]) == 0
+"""
+    loaded = loaded_after(code)
+    assert loaded["numpy"] and loaded["pandas"]  # it did run
+    assert not any(loaded[m] for m in ("sklearn", "scipy.stats", "textual")), loaded
