@@ -1,6 +1,6 @@
 """One BLAS thread against the default, for afterlook's tall-skinny products, idle and loaded.
 
-    .venv/bin/python benchmarks/bench_blas_threads.py [--quick] [--rows 200000] [--cols 40]
+    .venv/bin/python benchmarks/bench_blas_threads.py [--quick] [--rows 200000] [--cols 40] [--runs 3]
 
 Each measurement runs in a *fresh process* (every CLI command is one, and the
 slow calls were worst there): it builds the matrix, then times the first
@@ -10,6 +10,15 @@ slow calls were worst there): it builds the matrix, then times the first
 shared machine or CI runner). The reference is the library default (one
 thread per core); afterlook runs its own work with one thread
 (``afterlook.core.blas``).
+
+Then the same comparison for whole operations as a user calls them, each in
+a fresh process (``_workloads.py``): ``afterlook.fit`` on a 200,000 x 40
+DataFrame and ``afterlook.suggest(model, cases, train=train,
+case_ids=[one miss])`` with 3,000 labelled cases (all passes: screen, exact
+statistics, re-fits, held-out K-fold gains, stability). "default" runs with
+``AFTERLOOK_BLAS_THREADS=auto`` (the library's one thread per core), "one"
+with afterlook's default. The time is the first call of the process, the
+median over ``--runs`` processes, and the worst.
 """
 
 from __future__ import annotations
@@ -83,7 +92,36 @@ def main(argv=None) -> int:
         one, many = results[(load, 1)], results[(load, cores)]
         print(f"{load}: default ({cores} threads) / one thread: median {many['median'] / one['median']:.1f}x, "
               f"worst {many['worst'] / one['worst']:.1f}x, first call {many['first'] / one['first']:.1f}x")
+    whole_operations(args)
     return 0
+
+
+def whole_operations(args) -> None:
+    import tempfile
+    from pathlib import Path
+
+    sys.path.insert(0, str(Path(__file__).resolve().parent))
+    import _workloads
+
+    with tempfile.TemporaryDirectory(prefix="afterlook-bench-") as tmp:
+        folder = Path(tmp)
+        _workloads.prepare(folder, args.rows, args.cols, score_rows=1000)
+        print(f"\nwhole operations, {args.rows:,} x {args.cols}, first call of a fresh process, "
+              f"{args.runs} process(es) per setting")
+        print(f"{'operation':9} {'load':7} {'threads':>8} {'median s':>9} {'worst s':>9}")
+        ratios = []
+        for step in ("fit", "suggest"):
+            for load in ("idle", "loaded"):
+                times = {}
+                with _workloads.load(load):
+                    for threads in ("default", "one"):
+                        runs = [_workloads.run_step(step, folder, threads)["afterlook"] for _ in range(args.runs)]
+                        times[threads] = (_workloads.median(runs), max(runs))
+                        print(f"{step:9} {load:7} {threads:>8} {times[threads][0]:>9.3f} {times[threads][1]:>9.3f}",
+                              flush=True)
+                ratios.append(f"{step} {load}: default / one thread: median {times['default'][0] / times['one'][0]:.1f}x, "
+                              f"worst {times['default'][1] / times['one'][1]:.1f}x")
+        print("\n".join(ratios))
 
 
 if __name__ == "__main__":

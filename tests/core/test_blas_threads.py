@@ -48,3 +48,77 @@ def test_the_environment_chooses_another_number_or_leaves_it_alone(monkeypatch):
     monkeypatch.setenv(ENV, "many")
     with pytest.raises(AfterlookError, match=ENV):
         inside()
+
+
+def test_nested_and_overlapping_blocks_keep_the_limit_until_the_last_one_ends():
+    # The workbench runs searches in threads; BLAS thread counts are process-wide,
+    # so a block ending in one thread must not lift the limit another still needs.
+    # Counts are read and changed from the main thread only: OpenBLAS started
+    # with OPENBLAS_NUM_THREADS=1 ignores a lower count set from another thread.
+    import threading
+
+    from afterlook.core import blas
+
+    entered, may_leave = threading.Event(), threading.Event()
+
+    def other_thread():
+        with limited_blas():
+            entered.set()
+            may_leave.wait(timeout=60)
+
+    seen = {}
+    t = threading.Thread(target=other_thread)
+    with limited_blas():
+        with limited_blas():
+            seen["nested"] = _blas_threads()
+        seen["after the nested block"] = _blas_threads()
+        t.start()
+        entered.wait(timeout=60)
+    seen["the first block ended, the other thread is inside"] = _blas_threads()
+    may_leave.set()
+    t.join(timeout=60)
+    assert seen == {"nested": {1}, "after the nested block": {1},
+                    "the first block ended, the other thread is inside": {1}}
+    assert blas._depth == 0 and not blas._limiters  # the last block put the caller's setting back
+
+
+def test_the_public_operations_run_on_one_thread(monkeypatch, demo_written):
+    # Whatever the caller set (two threads here), the numerics inside fit,
+    # score, misses, explain, suggest, try and shape see one BLAS thread.
+    import afterlook
+    from afterlook.core import gaussian
+
+    seen = []
+    original = gaussian.GaussianModel.log_density
+
+    def spy(self, *args, **kwargs):
+        seen.append(_blas_threads())
+        return original(self, *args, **kwargs)
+
+    monkeypatch.setattr(gaussian.GaussianModel, "log_density", spy)
+    model = afterlook.load_model(demo_written.model)
+    cases = afterlook.load_table(demo_written.cases)
+    train = afterlook.load_table(demo_written.train)
+    calls = {
+        "fit": lambda: afterlook.fit(train, cases=cases),
+        "score": lambda: model.score(cases.frame),
+        "misses": lambda: afterlook.misses(model, cases),
+        "explain": lambda: afterlook.explain(model, cases, afterlook.misses(model, cases).misses[0].case),
+        "try": lambda: afterlook.try_features(model, cases, derive={"r": "flow_m3h / motor_current_a"}, train=train),
+    }
+    for name, call in calls.items():
+        seen.clear()
+        call()
+        assert seen and all(s == {1} for s in seen), name
+    assert _blas_threads() == {2}
+
+
+def test_a_new_process_starts_with_the_configured_threads():
+    from afterlook.core.blas import environment_for_new_process
+
+    env = environment_for_new_process({"PATH": "/bin"})
+    assert env["OPENBLAS_NUM_THREADS"] == "1" and env["OMP_NUM_THREADS"] == "1"
+    # the user's own settings win, and 'auto' leaves the library's default
+    assert environment_for_new_process({"OPENBLAS_NUM_THREADS": "2"})["OPENBLAS_NUM_THREADS"] == "2"
+    assert environment_for_new_process({ENV: "3"})["OPENBLAS_NUM_THREADS"] == "3"
+    assert "OPENBLAS_NUM_THREADS" not in environment_for_new_process({ENV: "auto"})

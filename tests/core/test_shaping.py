@@ -306,3 +306,31 @@ def test_counts_get_log_x_plus_one():
     x = np.random.default_rng(9).poisson(2.0, size=3000).astype(float) ** 2
     r = search_transform(x, name="starts")
     assert any(t == "log(starts + 1)" for t, _ in r.tried)
+
+
+def _columns_of_every_kind(rng):
+    n = 3000
+    return {
+        "lognormal": rng.lognormal(0.0, 0.8, n),
+        "gaussian": rng.normal(10.0, 2.0, n),
+        "left_skewed": 100.0 - rng.gamma(2.0, 3.0, n),
+        "counts": rng.poisson(3.0, n).astype(float),
+        "constant": np.full(n, 4.0),
+        "with_nan": np.where(rng.random(n) < 0.1, np.nan, rng.exponential(2.0, n)),
+        "tiny": rng.normal(size=5),
+        "uniform": rng.uniform(-1.0, 1.0, n),
+    }
+
+
+@pytest.mark.parametrize("seed", [0, 1, 2])
+def test_chosen_transform_is_what_the_full_search_chooses(seed):
+    # The shortcut (a near-Gaussian column skips the search) must never change the answer.
+    from afterlook.core.shaping import chosen_transform
+
+    columns = _columns_of_every_kind(np.random.default_rng(seed))
+    decided = set()
+    for name, values in columns.items():
+        full = search_transform(values, name=name)
+        assert chosen_transform(values, name=name) == full.transform, name
+        decided.add(full.transform is None)
+    assert decided == {True, False}  # both outcomes were exercised

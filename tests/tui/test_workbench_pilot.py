@@ -356,3 +356,55 @@ async def test_save_key_still_works_after_apply_and_after_a_cancelled_save(demo,
         await wait_until(pilot, lambda: isinstance(app.screen, SaveCaseScreen), what="the save dialog again")
         assert app.workbench.query_one("#filter", Input).value == ""
         assert app.selected_case == worst
+
+
+@pytest.mark.asyncio
+async def test_q_during_a_search_exits_and_the_search_stops_at_its_next_report(demo, tmp_path, monkeypatch,
+                                                                               wait_until):
+    # The real search runs; it is held at its first shaping report until q was
+    # pressed, then it must stop at the very next report instead of running on
+    # (an exiting app waits for its worker threads).
+    from afterlook.analysis import workbench as wd
+
+    started, quit_pressed = threading.Event(), threading.Event()
+    seen = {"reports after q": [], "outcome": None}
+    real = wd.find_candidates
+
+    def held(session, case_id, *, top=10, progress=None):
+        from textual.worker import get_current_worker
+
+        seen["worker"] = get_current_worker()
+
+        def report(stage, fraction):
+            if not started.is_set() and stage.startswith("shaping"):
+                started.set()
+                quit_pressed.wait(timeout=60)
+            if quit_pressed.is_set():
+                seen["reports after q"].append(stage)
+            progress(stage, fraction)
+
+        try:
+            result = real(session, case_id, top=top, progress=report)
+        except BaseException as exc:
+            seen["outcome"] = type(exc).__name__
+            raise
+        seen["outcome"] = "finished"
+        return result
+
+    monkeypatch.setattr(wd, "find_candidates", held)
+    app = create_app(demo.model, demo.cases, train_path=demo.train, casebook=tmp_path / "b.json",
+                     auto_candidates=False)
+    async with app.run_test(size=SIZE) as pilot:
+        await pilot.pause()
+        case = app.selected_case
+        await pilot.press("c")
+        await wait_until(pilot, started.is_set, what="the search to reach its shaping pass")
+        assert app.candidates_running == case
+        await pilot.press("q")
+        await wait_until(pilot, lambda: seen["worker"].is_cancelled, what="the exit to cancel the search")
+        quit_pressed.set()
+        await wait_until(pilot, lambda: seen["outcome"] is not None, what="the search to end")
+    assert app.return_code == 0
+    assert seen["outcome"] == "_Stale"  # stopped by the cancelled worker, not run to the end
+    assert seen["reports after q"] == ["shaping columns 1/" + str(len(app.session.model.features))]
+    assert case not in app.candidates

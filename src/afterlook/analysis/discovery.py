@@ -22,6 +22,7 @@ from ..core.numbers import sample_rows
 from ..core.recipe import free_name
 from ..core.gaussian import GaussianModel, added_column, with_added_column
 from ..core.thresholds import choose_threshold, confusion, flag
+from ..core.blas import with_limited_blas
 from .fitting import refit
 from .model import Model
 from .session import Session, prepare
@@ -99,6 +100,7 @@ class SuggestResult:
         }
 
 
+@with_limited_blas
 def suggest(model, cases, train=None, case_ids=None, top: int = 10, *,
             exact: int | None = None, settings: cand.Settings | None = None,
             shaping: bool = True, progress=None) -> SuggestResult:
@@ -138,7 +140,7 @@ def suggest(model, cases, train=None, case_ids=None, top: int = 10, *,
     if not np.all(np.isfinite(T)):
         raise AfterlookError("a target case has NaN or infinite features; it cannot be searched")
 
-    shaped = _shaping_expressions(model, sample) if shaping else {}
+    shaped = _shaping_expressions(model, sample, progress) if shaping else {}
     _report(progress, "screening candidates", 0.15)
     candidates, tried, _ = cand.generate_and_screen(names, sample, T, shaped, settings, select=True)
     _report(progress, "exact statistics", 0.35)
@@ -149,7 +151,7 @@ def suggest(model, cases, train=None, case_ids=None, top: int = 10, *,
     other_is_miss = miss_mask[other] if len(other) else np.zeros(0, bool)
     target_cols = {n: T[:, k] for k, n in enumerate(names)}
     ranked = cand.second_pass(candidates, tried, sample, target_cols, target_ids, other_cols, other_is_miss, settings)
-    ranked, dropped_collinear = _addable(model, sample, ranked)
+    ranked, dropped_collinear = _addable(model, sample, ranked, progress)
     if dropped_collinear:
         warnings.append(f"left out {dropped_collinear} candidate(s) that are linear combinations of the model's "
                         "features (a full covariance cannot take them)")
@@ -174,8 +176,7 @@ def suggest(model, cases, train=None, case_ids=None, top: int = 10, *,
     warnings += refitter.warnings
     failed = refitter.failed
     if folds is not None and len(idx) > 1:
-        _report(progress, "stability over folds", 0.95)
-        _stability(final, names, sample, C, idx, folds, shaped, settings, top)
+        _stability(final, names, sample, C, idx, folds, shaped, settings, top, progress)
     _report(progress, "done", 1.0)
     return SuggestResult(target_ids, tried, final, training.source, A.shape[0], settings.chance_level, warnings,
                          beyond_chance_total=beyond_total, dropped_collinear=dropped_collinear,
@@ -183,14 +184,16 @@ def suggest(model, cases, train=None, case_ids=None, top: int = 10, *,
                          heldout_folds=None if folds is None else int(folds.max()) + 1)
 
 
-def _addable(model: Model, sample: dict, ranked: list) -> tuple[list, int]:
+def _addable(model: Model, sample: dict, ranked: list, progress=None) -> tuple[list, int]:
     """Drop the candidates a full-covariance model cannot take (affine in its features); count them."""
     if model.density.kind != "full" or not ranked:
         return ranked, 0
     fm = model.recipe.transform_features(sample)
     span = LinearSpan(fm.values)
     keep = []
-    for c in ranked:
+    for k, c in enumerate(ranked):
+        if k % 20 == 0:  # a report is also where the workbench can stop a stale search
+            _report(progress, "checking candidates can join the model", 0.35 + 0.05 * k / len(ranked))
         values = (c.parsed or expressions.parse(c.expression)).evaluate(sample)
         if span.contains(values):
             continue
@@ -207,12 +210,14 @@ def _folds(session: Session, warnings: list[str]):
         return None
 
 
-def _stability(final: list, names, sample, C, idx, folds, shaped, settings, top: int) -> None:
+def _stability(final: list, names, sample, C, idx, folds, shaped, settings, top: int, progress=None) -> None:
     """In how many folds each listed candidate is found again (in the top ``top``) from the other folds' misses."""
     listed = {c.expression for c in final}
     found = dict.fromkeys(listed, 0)
     searched = 0
-    for f in range(int(folds.max()) + 1):
+    n_folds = int(folds.max()) + 1
+    for f in range(n_folds):
+        _report(progress, f"stability over folds {f + 1}/{n_folds}", 0.95 + 0.05 * f / n_folds)
         keep = [i for i in idx if folds[i] != f]
         if not keep:
             continue
@@ -401,7 +406,14 @@ class AddedFeatureRefit:
 
 
 
-def _shaping_expressions(model: Model, sample: dict) -> dict[str, str]:
+#: Shaping choices already made in this process, by column name and a digest of its values:
+#: the workbench searches case after case on the same normal population, and the
+#: stability re-search and a repeated API call see the same columns again.
+_SHAPING_CACHE: dict[tuple[str, bytes], str | None] = {}
+_SHAPING_CACHE_SIZE = 4096
+
+
+def _shaping_expressions(model: Model, sample: dict, progress=None) -> dict[str, str]:
     """Expression text of a shaping transform per column (the recipe's own, else a search)."""
     out = {}
     for name, t in model.recipe.transforms.items():
@@ -409,17 +421,30 @@ def _shaping_expressions(model: Model, sample: dict) -> dict[str, str]:
             out[name] = t.expression
     from ..core import shaping
 
-    for name, values in sample.items():
+    for k, (name, values) in enumerate(sample.items()):
+        _report(progress, f"shaping columns {k + 1}/{len(sample)}", 0.05 + 0.1 * k / max(len(sample), 1))
         if name in out:
             continue
-        try:
-            res = shaping.search_transform(values, name=name)
-        except (AfterlookError, TypeError):
-            continue
-        text = _as_expression(res.transform, name)
+        key = (name, _digest(values))
+        if key not in _SHAPING_CACHE:
+            try:
+                text = _as_expression(shaping.chosen_transform(values, name=name), name)
+            except (AfterlookError, TypeError):
+                text = None
+            if len(_SHAPING_CACHE) >= _SHAPING_CACHE_SIZE:
+                _SHAPING_CACHE.pop(next(iter(_SHAPING_CACHE)))
+            _SHAPING_CACHE[key] = text
+        text = _SHAPING_CACHE[key]
         if text:
             out[name] = text
     return out
+
+
+def _digest(values) -> bytes:
+    import hashlib
+
+    a = np.ascontiguousarray(values, dtype=np.float64)
+    return hashlib.blake2b(a.tobytes(), digest_size=16).digest()
 
 
 def _as_expression(transform, name: str) -> str | None:

@@ -13,6 +13,7 @@ from ..core.recipe import apply_transform
 from ..core.quality import RankingQuality, UnseenValue, ranking_quality, unseen_values
 from ..store.columns import numeric_columns_of
 from ..core.thresholds import Confusion
+from ..core.blas import with_limited_blas
 from .session import Session, case_context, prepare, table_name
 
 __all__ = ["Miss", "MissesResult", "misses", "ExplainResult", "explain", "explain_case"]
@@ -83,6 +84,7 @@ class MissesResult:
         }
 
 
+@with_limited_blas
 def misses(model, cases=None) -> MissesResult:
     """Labelled anomalies the model left unflagged, largest margin first.
 
@@ -191,6 +193,7 @@ class ExplainResult:
         }
 
 
+@with_limited_blas
 def explain(model, cases, case_id=None) -> ExplainResult:
     """Why one case scored as it did: per-feature z, percentile, contribution, conditional z.
 
@@ -216,6 +219,7 @@ def oriented_to_readings(model, ev: list[FeatureEvidence], raw: dict, i: int) ->
     return out
 
 
+@with_limited_blas
 def explain_case(session: Session, case_id) -> ExplainResult:
     """:func:`explain` on a prepared session (the cases are not scored again)."""
     model = session.model

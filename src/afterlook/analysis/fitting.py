@@ -17,6 +17,7 @@ from ..core.errors import AfterlookError
 from ..core.gaussian import GaussianModel
 from ..core.recipe import Recipe, parse_transform
 from ..core.thresholds import UNDEFINED_POLICIES, ThresholdPolicy, apply_undefined_policy, choose_threshold, parse_policy
+from ..core.blas import with_limited_blas
 from ..store.tables import Table, sha256_file
 from .model import Model, training_summary
 from .session import TrainingRows, as_table, derive_pairs, numeric_columns_of, table_name
@@ -26,6 +27,7 @@ __all__ = ["fit", "fit_streamed", "refit", "checked_base_columns", "DEFAULT_RATE
 DEFAULT_RATE = 0.01
 
 
+@with_limited_blas
 def fit(
     train,
     *,
@@ -76,16 +78,24 @@ def fit(
         warnings.append(f"fit uses the {int(normal.sum())} rows labelled normal; {n_labelled_anomaly} labelled anomaly left out")
     if not normal.any():
         raise AfterlookError("nothing normal to fit on: every training row is labelled anomaly")
-    normal_frame = frame.loc[normal]
+    normal_frame = frame if normal.all() else frame.loc[normal]  # no copy when every row is normal
+    converted: dict[str, np.ndarray] = {}
+
+    def columns_of(names) -> dict[str, np.ndarray]:
+        """Columns as float arrays, each converted once per fit (the recipe and the fit both read them)."""
+        for name in names:
+            if name not in converted:
+                converted.update(numeric_columns_of(normal_frame, [name]))
+        return {name: converted[name] for name in names}
 
     constants: dict[str, float] = {}
     if recipe is None:
-        recipe = _build_recipe(table, normal_frame, columns, derive, transform, warnings, constants)
-    columns_map = numeric_columns_of(normal_frame, recipe.required_columns())
+        recipe = _build_recipe(table, normal_frame, columns, derive, transform, warnings, constants, columns_of)
+    columns_map = columns_of(recipe.required_columns())
     # Lambdas are fitted on the rows whose raw inputs are all finite (the
     # rows a streamed fit sees too), so both engines give the same recipe.
     raw_ok = np.all(np.column_stack([np.isfinite(v) for v in columns_map.values()]), axis=1)
-    recipe = recipe.fit({k: v[raw_ok] for k, v in columns_map.items()})
+    recipe = recipe.fit(columns_map if raw_ok.all() else {k: v[raw_ok] for k, v in columns_map.items()})
     fm = recipe.apply(columns_map)
     finite = fm.finite_rows
     dropped = int((~finite).sum())
@@ -179,12 +189,12 @@ def checked_base_columns(table: Table, columns) -> list[str]:
 
 
 def _build_recipe(table: Table, normal_frame: pd.DataFrame, columns, derive, transform, warnings,
-                  constants: dict | None = None) -> Recipe:
+                  constants: dict | None = None, columns_of=None) -> Recipe:
     if columns:
         base = checked_base_columns(table, columns)
     else:
         base = list(table.numeric_columns)
-        values = numeric_columns_of(normal_frame, base)
+        values = (columns_of or (lambda names: numeric_columns_of(normal_frame, names)))(base)
         constant = [c for c in base if np.nanmin(values[c]) == np.nanmax(values[c])] if len(normal_frame) else []
         if constant:
             warnings.append(f"left out {len(constant)} constant column(s): {', '.join(constant)} (a value they "
@@ -199,6 +209,7 @@ def _build_recipe(table: Table, normal_frame: pd.DataFrame, columns, derive, tra
     return Recipe(base, derived, transforms)
 
 
+@with_limited_blas
 def refit(model: Model, recipe: Recipe, train: TrainingRows, cases: Table, *, quantiles: bool = True) -> Model:
     """Re-fit the model's kind and options with another recipe, threshold by the same policy."""
     return fit(train.table, cases=cases, kind=model.density.kind, robust=model.density.robust,
@@ -206,6 +217,7 @@ def refit(model: Model, recipe: Recipe, train: TrainingRows, cases: Table, *, qu
                undefined=model.undefined)
 
 
+@with_limited_blas
 def fit_streamed(
     train_path,
     *,

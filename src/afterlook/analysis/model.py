@@ -17,10 +17,11 @@ import pandas as pd
 from .._version import __version__
 from ..core import fingerprint as fingerprints
 from ..core.errors import AfterlookError
-from ..core.explain import QUANTILE_POINTS, quantile_grid
+from ..core.explain import QUANTILE_POINTS, grid_of_sorted_columns, quantile_grid
 from ..core.gaussian import GaussianModel
 from ..core.recipe import FeatureMatrix, Recipe
 from ..core.thresholds import UNDEFINED_POLICIES, ThresholdPolicy, apply_undefined_policy, flag, parse_policy
+from ..core.blas import with_limited_blas
 from ..store import model_file
 from ..store.columns import numeric_column
 
@@ -98,10 +99,14 @@ class Model:
             return np.ones(len(next(iter(columns.values()))) if columns else 0, dtype=bool)
         return np.all(np.column_stack(needed), axis=1)
 
+    @with_limited_blas
     def score(self, df: pd.DataFrame) -> pd.DataFrame:
         """A copy of ``df`` with ``log_density`` and ``flagged`` columns added."""
         ld = self.log_density(df)
-        out = df.copy()
+        # A shallow copy: the two columns are added to (or replace whole columns
+        # of) the copy only, so the caller's frame stays as it was without a
+        # second copy of every value (a test checks it).
+        out = df.copy(deep=False)
         out["log_density"] = ld
         out["flagged"] = flag(ld, self.threshold)
         return out
@@ -210,16 +215,23 @@ def load_model(path) -> Model:
 
 def training_summary(X: np.ndarray, names: list[str], quantiles: bool = True) -> tuple[dict, np.ndarray | None]:
     """Per-feature statistics and (optionally) the quantile grid of the normal rows."""
+    X = np.asarray(X, dtype=np.float64)
+    # One contiguous copy of the columns serves the statistics and then, sorted
+    # in place, the grid: reading the columns of a (n, d) matrix one by one is
+    # strided and was slower than the fit itself. The reductions are the same
+    # (numpy sums a strided column and a contiguous one the same way).
+    columns = np.ascontiguousarray(X.T)
     stats = {}
     for j, name in enumerate(names):
-        col = X[:, j]
-        stats[name] = {
-            "mean": float(col.mean()),
-            "std": float(col.std()),
-            "min": float(col.min()),
-            "max": float(col.max()),
-        }
-    return stats, (quantile_grid(X, QUANTILE_POINTS) if quantiles else None)
+        col = columns[j]
+        stats[name] = {"mean": float(col.mean()), "std": float(col.std()), "min": float(col.min()),
+                       "max": float(col.max())}
+    if not quantiles:
+        return stats, None
+    if X.shape[0] < 2 or not np.isfinite(columns).all():
+        return stats, quantile_grid(X, QUANTILE_POINTS)
+    columns.sort(axis=1)
+    return stats, grid_of_sorted_columns(columns, QUANTILE_POINTS)
 
 
 def _columns_of(obj) -> Mapping[str, np.ndarray]:
@@ -238,6 +250,13 @@ class _FrameColumns(Mapping):
     def __getitem__(self, key):
         if key not in self.frame.columns:
             raise KeyError(key)
+        col = self.frame[key]
+        if isinstance(col, pd.Series) and col.dtype == np.float64:
+            # Already float64 (NaN for missing): a read-only view of the frame's
+            # values, where numeric_column's conversion would copy them.
+            view = col.to_numpy(copy=False).view()
+            view.flags.writeable = False
+            return view
         return numeric_column(self.frame, key)
 
     def __contains__(self, key):

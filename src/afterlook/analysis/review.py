@@ -49,6 +49,7 @@ from ..core.errors import AfterlookError
 from ..core.histograms import range_counts
 from ..core.numbers import finite_or_none
 from ..core.thresholds import flag
+from ..core.blas import with_limited_blas
 from ..store.atomic import check_writable
 from ..store.casebook_file import STATUSES, Casebook, CasebookConflict, check_status
 from .evidence import explain_case
@@ -136,6 +137,7 @@ class ReviewEntry:
         return {f.name: getattr(self, f.name) for f in fields(self)}
 
 
+@with_limited_blas
 def review_entry(model, cases, case_id, status, *, derive=None, note: str = "", reviewer: str | None = None,
                  train=None, model_path=None, clock: Clock | None = None) -> dict:
     """The casebook entry for one reviewed case (see the module docstring for its keys).
@@ -343,6 +345,7 @@ class CheckResult:
                 "details": list(self.details)}
 
 
+@with_limited_blas
 def check_casebook(book, model, cases) -> CheckResult:
     """Re-score every entry's case; an ``explained`` case left unflagged is regressed.
 

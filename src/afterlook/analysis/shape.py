@@ -7,6 +7,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from ..core.errors import AfterlookError
+from ..core.blas import with_limited_blas
 from .session import as_table
 
 __all__ = ["shape", "ShapeReport"]
@@ -25,6 +26,7 @@ class ShapeReport:
         return {"features": [f.to_dict() for f in self.features]}
 
 
+@with_limited_blas
 def shape(df, columns=None, *, statistic: str = "dagostino", sample_size: int = 5000,
           random_state=0, cases=None) -> ShapeReport:
     """Search a transform per numeric column (see :mod:`afterlook.core.shaping`).

@@ -12,6 +12,7 @@ from ..core.numbers import finite_or_none
 from ..core.recipe import Recipe
 from ..core.heldout import DEFAULT_FOLDS, DEFAULT_SEED, HeldOut, flagged_rate, holdout_gain, kfold_gain
 from ..core.thresholds import Confusion
+from ..core.blas import with_limited_blas
 from ..store.tables import Table
 from .fitting import refit
 from .model import Model
@@ -57,6 +58,7 @@ class TryResult:
         }
 
 
+@with_limited_blas
 def try_features(model, cases, derive, train=None, *, focus: list[str] | None = None,
                  training: TrainingRows | None = None, before: ScoredCases | None = None,
                  holdout=None, folds: int = DEFAULT_FOLDS) -> TryResult:

@@ -24,6 +24,7 @@ from typing import Callable, Sequence
 import numpy as np
 
 from ..core import expressions
+from ..core.blas import with_limited_blas
 from ..core.errors import AfterlookError
 from ..core.histograms import HistogramCounts, histogram_counts
 from ..core.recipe import apply_transform, free_name, parse_assignment
@@ -85,6 +86,7 @@ def default_casebook(cases_path) -> str:
     return str(Path(cases_path).resolve().parent / CASEBOOK_NAME)
 
 
+@with_limited_blas
 def open_session(model_path, cases_path, *, train_path=None, casebook=None, id_col: str | None = None,
                  label_col: str | None = None, **table) -> WorkbenchSession:
     """Load the model and cases, resolve the normal population, score the cases once.

@@ -4,10 +4,6 @@ from __future__ import annotations
 
 import math
 
-from rich import box
-from rich.table import Table
-from rich.text import Text
-
 from ..core.errors import AfterlookError
 from ..analysis.wording import candidate_verdict, flip_words, heldout_gain_text, stability_text
 from ..core.errors import EXIT_OK
@@ -76,6 +72,10 @@ def run_suggest(args) -> int:
 
 
 def suggest_table(result):
+    from rich import box
+    from rich.table import Table
+    from rich.text import Text
+
     from rich.console import Group
 
     head = Text()
@@ -168,6 +168,10 @@ def heldout_line(h) -> str:
 
 
 def try_table(result):
+    from rich import box
+    from rich.table import Table
+    from rich.text import Text
+
     from rich.console import Group
 
     d = result.to_dict()

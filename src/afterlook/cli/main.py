@@ -14,8 +14,8 @@ import warnings
 
 from .. import _version
 from ..cautions import CAUTION
+from ..core.blas import environment_for_new_process, limited_blas
 from ..core.errors import EXIT_BAD_INPUT, EXIT_CHECK_FAILED, EXIT_INTERNAL, EXIT_INTERRUPTED, EXIT_OK, AfterlookError
-from ..core.numbers import finite_or_none
 from ..core.printable import printable, printable_lines
 from ..store.outputs import check_output
 from .inputs import table_options
@@ -191,6 +191,7 @@ def cmd_score(args) -> int:
     import numpy as np
 
     from ..analysis.model import load_model
+    from ..core.numbers import finite_or_none
     from ..store.tables import load_table
 
     if args.out:
@@ -298,7 +299,7 @@ def main(argv: list[str] | None = None) -> int:
         # Python's own warnings (numpy overflow, SyntaxWarning ...) never reach stderr as they are: they
         # are recorded and, if the command succeeds, said once each in afterlook's words. A failed command
         # prints its one error line and nothing else.
-        with warnings.catch_warnings(record=True) as caught:
+        with warnings.catch_warnings(record=True) as caught, limited_blas():
             warnings.simplefilter("always", RuntimeWarning)  # every overflow counts, wherever it happens
             code = COMMANDS[args.command](args)
         warn(python_warnings(caught))
@@ -347,6 +348,9 @@ def python_warnings(caught) -> list[str]:
 
 
 def entry() -> None:
+    # Before numpy loads: OpenBLAS then starts with afterlook's thread count
+    # (one by default) instead of one thread per core (see core/blas.py).
+    os.environ.update(environment_for_new_process())
     sys.exit(main())
 
 

@@ -21,18 +21,23 @@ from __future__ import annotations
 import contextlib
 import functools
 import os
+import sys
+import threading
 
 from .errors import AfterlookError
 
 ENV = "AFTERLOOK_BLAS_THREADS"
 DEFAULT_THREADS = 1
 
-_controller = None
+_lock = threading.Lock()
+_depth = 0  # blocks running now, in any thread (BLAS thread counts are process-wide)
+_limiters: list = []  # what the running blocks changed, restored when the last block ends
+_modules_seen = -1  # len(sys.modules) when the loaded libraries were last looked at
 
 
-def configured_threads() -> int | None:
+def configured_threads(environ=None) -> int | None:
     """The limit from ``AFTERLOOK_BLAS_THREADS`` (default 1); None for ``auto``."""
-    raw = os.environ.get(ENV, "").strip().lower()
+    raw = (os.environ if environ is None else environ).get(ENV, "").strip().lower()
     if not raw:
         return DEFAULT_THREADS
     if raw == "auto":
@@ -46,24 +51,52 @@ def configured_threads() -> int | None:
     return n
 
 
-def _get_controller():
-    global _controller
-    if _controller is None:
+def _enter(n: int) -> None:
+    global _depth, _modules_seen
+    with _lock:
+        _depth += 1
+        # Look for BLAS libraries to limit whenever modules were imported since
+        # the last look: a block may start before numpy is loaded (the CLI's
+        # dispatch), and scipy brings its own OpenBLAS. One look takes about a
+        # millisecond; a nested block with nothing new imported costs nothing.
+        if len(sys.modules) == _modules_seen:
+            return
+        _modules_seen = len(sys.modules)
         from threadpoolctl import ThreadpoolController
 
-        _controller = ThreadpoolController()
-    return _controller
+        blas = ThreadpoolController().select(user_api="blas")
+        paths = [lib.filepath for lib in blas.lib_controllers if lib.num_threads != n]
+        if paths:
+            _limiters.append(blas.select(filepath=paths).limit(limits=n))
+
+
+def _exit() -> None:
+    global _depth, _modules_seen
+    with _lock:
+        _depth -= 1
+        if _depth == 0:
+            while _limiters:
+                _limiters.pop().restore_original_limits()
+            _modules_seen = -1
 
 
 @contextlib.contextmanager
 def limited_blas():
-    """Run the block with the configured number of BLAS threads, then restore the previous limits."""
+    """Run the block with the configured number of BLAS threads, then restore the previous limits.
+
+    Blocks nest and may run in several threads at once (the workbench's
+    workers): the limit is set when the first block starts and the caller's
+    setting comes back when the last one ends.
+    """
     n = configured_threads()
     if n is None:
         yield
         return
-    with _get_controller().limit(limits=n, user_api="blas"):
+    _enter(n)
+    try:
         yield
+    finally:
+        _exit()
 
 
 def with_limited_blas(fn):
@@ -75,3 +108,23 @@ def with_limited_blas(fn):
             return fn(*args, **kwargs)
 
     return wrapper
+
+
+def environment_for_new_process(environ=None) -> dict:
+    """``environ`` with the BLAS thread variables set to the configured limit, where the user set none.
+
+    The console script calls it before numpy is imported: OpenBLAS then
+    starts with one thread and never creates the others, so even the first
+    product of a fresh process runs on one thread. Child processes (a local
+    Dask cluster's workers) inherit the setting.
+    """
+    env = dict(os.environ if environ is None else environ)
+    try:
+        n = configured_threads(env)
+    except AfterlookError:
+        return env
+    if n is not None:
+        for var in ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS"):
+            env.setdefault(var, str(n))
+    return env
+

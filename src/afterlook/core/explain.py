@@ -36,10 +36,42 @@ QUANTILE_POINTS = 1001
 
 
 def quantile_grid(X: np.ndarray, points: int = QUANTILE_POINTS) -> np.ndarray:
-    """Per-column quantiles at ``linspace(0, 1, points)``; shape (points, d)."""
+    """Per-column quantiles at ``linspace(0, 1, points)``; shape (points, d).
+
+    The same numbers as ``np.quantile(X, probs, axis=0, method="linear")``
+    (Hyndman and Fan's definition 7; a test checks equality to the bit), from
+    one in-place sort per column instead of a partition at 2,002 positions of
+    the strided columns: about 10x faster at 200,000 x 40. Columns holding
+    NaN go through ``np.quantile`` itself.
+    """
     X = np.asarray(X, dtype=np.float64)
     probs = np.linspace(0.0, 1.0, points)
-    return np.quantile(X, probs, axis=0, method="linear")
+    if X.ndim != 2 or X.shape[0] < 2 or not np.isfinite(X).all():
+        return np.quantile(X, probs, axis=0, method="linear")
+    columns = np.ascontiguousarray(X.T)  # a copy: each column's values contiguous
+    columns.sort(axis=1)
+    return grid_of_sorted_columns(columns, points)
+
+
+def grid_of_sorted_columns(columns: np.ndarray, points: int = QUANTILE_POINTS) -> np.ndarray:
+    """:func:`quantile_grid` of finite columns already sorted, given as the rows of ``columns`` (d, n)."""
+    n = columns.shape[1]
+    probs = np.linspace(0.0, 1.0, points)
+    # numpy's steps for method="linear": virtual index (n - 1) q, its floor and
+    # the next index (both the last index at q = 1), gamma from the floor so set.
+    virtual = (n - 1) * probs
+    previous = np.floor(virtual)
+    following = previous + 1
+    top = virtual >= n - 1
+    previous[top] = -1
+    following[top] = -1
+    previous, following = previous.astype(np.intp), following.astype(np.intp)
+    gamma = (virtual - previous)[None, :]
+    a, b = columns[:, previous], columns[:, following]
+    diff = b - a
+    grid = a + diff * gamma
+    np.subtract(b, diff * (1 - gamma), out=grid, where=np.broadcast_to(gamma >= 0.5, grid.shape))
+    return np.ascontiguousarray(grid.T)
 
 
 def percentile_from_grid(grid_column: np.ndarray, value: float) -> float:

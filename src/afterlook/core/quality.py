@@ -8,8 +8,9 @@ These checks look at the ranking itself:
 * **ROC AUC** of the score ``-log_density`` for "is anomaly" (0.5 = no
   better than chance, < 0.5 = ranks anomalies as more normal), and
   **average precision** (the area under the precision-recall curve; its
-  chance level is the anomaly share). scikit-learn's ``roc_auc_score`` and
-  ``average_precision_score`` compute both; cases with a NaN log-density
+  chance level is the anomaly share), by scikit-learn's definitions
+  (:mod:`afterlook.core.ranking`, compared with ``roc_auc_score`` and
+  ``average_precision_score`` in a test); cases with a NaN log-density
   (unscored) are left out and counted;
 * the share of labelled normal cases the threshold flags (a warning above one
   half);
@@ -57,7 +58,7 @@ class RankingQuality:
 
 
 def ranking_quality(log_density: np.ndarray, is_anomaly: np.ndarray, threshold: float) -> RankingQuality:
-    from sklearn.metrics import average_precision_score, roc_auc_score
+    from .ranking import average_precision as average_precision_score, roc_auc as roc_auc_score
 
     ld = np.asarray(log_density, dtype=np.float64)
     y = np.asarray(is_anomaly, dtype=bool)

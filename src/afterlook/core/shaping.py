@@ -74,14 +74,13 @@ from __future__ import annotations
 
 import math
 import warnings
-from dataclasses import dataclass, field
 from typing import Iterable, Mapping, Sequence
 
 import numpy as np
 from scipy import stats
 
 from .errors import AfterlookError
-from .numbers import finite_or_none, sample_rows
+from .numbers import sample_rows
 from .expressions import quote_name
 from .normality import (  # noqa: F401 - STATISTICS, STATISTIC_LABELS and normality are part of this interface
     _CRITICAL_5PCT,
@@ -93,6 +92,7 @@ from .normality import (  # noqa: F401 - STATISTICS, STATISTIC_LABELS and normal
     normality,
 )
 from .recipe import Transform, apply_transform, parse_transform
+from .shape_result import ShapeResult, TransformTried  # noqa: F401 - part of this interface
 
 __all__ = [
     "STATISTICS",
@@ -125,103 +125,6 @@ TIE_REL = 0.05
 #: ... and in units of the statistic's 5 % critical value under normality.
 TIE_FLOOR_FRACTION = 1.0 / 3.0
 
-
-
-@dataclass(frozen=True)
-class TransformTried:
-    """One transform tried: its text, complexity rank and statistic on the sample."""
-
-    description: str
-    transform: Transform | None
-    complexity: int  # 0 none, 1 log / listed power, 2 shifted log, 3 fitted Box-Cox / Yeo-Johnson
-    statistic: float
-
-
-@dataclass
-class ShapeResult:
-    """The outcome of the transform search for one column.
-
-    Attributes
-    ----------
-    name : str
-        Column name.
-    transform : Transform or None
-        The chosen transform; ``None`` when the column is left alone.
-    description : str
-        The text to pass as ``--transform NAME=TEXT`` (``"none"`` when left alone).
-    skew_before, skew_after : float
-        Sample skewness (``scipy.stats.skew``, biased) before and after; NaN
-        for a constant column.
-    normality_before, normality_after : float
-        The normality statistic before and after (lower = more Gaussian).
-    statistic : str
-        ``"dagostino"`` or ``"anderson"``.
-    pvalue_before, pvalue_after : float
-        D'Agostino-Pearson K^2 p-values (whatever ``statistic`` is).
-    sample_before, sample_after : ndarray
-        The seeded sample the statistics were computed on, and the same rows
-        after the transform (not serialised).
-    tried : list of (description, statistic)
-        Every candidate that was valid on the column, in the order tried
-        (``"none"`` first).
-    verdict : str
-        The decision in words.
-    n_values, n_nonfinite : int
-        Finite values in the column, and values left out as NaN/infinite.
-    note : str
-        Why a column was left alone without a search, else empty.
-    """
-
-    name: str
-    transform: Transform | None
-    description: str
-    skew_before: float
-    skew_after: float
-    normality_before: float
-    normality_after: float
-    statistic: str
-    pvalue_before: float = math.nan
-    pvalue_after: float = math.nan
-    sample_before: np.ndarray = field(default_factory=lambda: np.empty(0), repr=False)
-    sample_after: np.ndarray = field(default_factory=lambda: np.empty(0), repr=False)
-    tried: list[tuple[str, float]] = field(default_factory=list, repr=False)
-    verdict: str = ""
-    n_values: int = 0
-    n_nonfinite: int = 0
-    note: str = ""
-    separation_before: float | None = None  # share of labelled anomalies beyond the 1% normal tail, raw column
-    separation_after: float | None = None  # the same with the transform
-    held_back: str = ""  # why a transform that looks more Gaussian is not recommended (it hides anomalies)
-
-    @property
-    def recommended(self) -> bool:
-        """A transform that makes the column more Gaussian and does not hide labelled anomalies."""
-        return self.transform is not None and not self.held_back
-
-    @property
-    def transform_text(self) -> str | None:
-        """Right-hand side of ``--transform NAME=TEXT``, or None."""
-        return None if self.transform is None else self.description
-
-    @property
-    def fit_option(self) -> str | None:
-        """``NAME=TEXT`` exactly as ``afterlook fit --transform`` takes it, or None."""
-        return None if self.transform is None else f"{self.name}={self.description}"
-
-    def to_dict(self) -> dict:
-        doc = {
-            "name": self.name,
-            "transform": self.transform_text,
-            "skew_before": finite_or_none(self.skew_before),
-            "skew_after": finite_or_none(self.skew_after),
-            "normality_before": finite_or_none(self.normality_before),
-            "normality_after": finite_or_none(self.normality_after),
-            "statistic": self.statistic,
-        }
-        if self.separation_before is not None or self.held_back:
-            doc.update(separation_before=self.separation_before, separation_after=self.separation_after,
-                       recommended=self.recommended, held_back=self.held_back or None)
-        return doc
 
 
 # --------------------------------------------------------------------------
@@ -368,22 +271,10 @@ def search_transform(
     that ``fit`` applies exactly this lambda. The selection rule is in the
     module docstring.
     """
-    statistic = _check_statistic(statistic)
-    if isinstance(sample_size, bool) or not isinstance(sample_size, (int, np.integer)) or sample_size < MIN_VALUES:
-        raise AfterlookError(f"sample size must be a whole number of at least {MIN_VALUES}, got {sample_size!r}")
-    x_all, n_nonfinite = _finite_values(values, name)
-    if x_all.size < MIN_VALUES:
-        return _left_alone(name, statistic, x_all, n_nonfinite,
-                           f"only {x_all.size} finite value(s), need {MIN_VALUES}")
-    if np.ptp(x_all) == 0:
-        return _left_alone(name, statistic, x_all, n_nonfinite, "constant column")
-    sample = _sample(x_all, int(sample_size), random_state)
-    if np.ptp(sample) == 0:  # a nearly constant column whose sample happens to be constant
-        return _left_alone(name, statistic, x_all, n_nonfinite, "constant on the sample")
-    identity_stat = _score(sample, sample, statistic)
-    if identity_stat is None:  # pragma: no cover - a varying finite sample always scores
-        return _left_alone(name, statistic, x_all, n_nonfinite, "no normality statistic")
-
+    prepared = _prepare(values, name, sample_size, random_state, statistic)
+    if isinstance(prepared, ShapeResult):
+        return prepared
+    statistic, x_all, n_nonfinite, sample, identity_stat = prepared
     tried, after_by_text = _try_transforms(name, x_all, sample, statistic, identity_stat)
     choice, reason = _choose(tried, sample, statistic)
     after = after_by_text[choice.description]
@@ -408,6 +299,45 @@ def search_transform(
         n_values=int(x_all.size),
         n_nonfinite=n_nonfinite,
     )
+
+
+def _prepare(values, name: str, sample_size, random_state, statistic: str):
+    """The checks and the sample every search starts from, or the ShapeResult of a column left alone."""
+    statistic = _check_statistic(statistic)
+    if isinstance(sample_size, bool) or not isinstance(sample_size, (int, np.integer)) or sample_size < MIN_VALUES:
+        raise AfterlookError(f"sample size must be a whole number of at least {MIN_VALUES}, got {sample_size!r}")
+    x_all, n_nonfinite = _finite_values(values, name)
+    if x_all.size < MIN_VALUES:
+        return _left_alone(name, statistic, x_all, n_nonfinite,
+                           f"only {x_all.size} finite value(s), need {MIN_VALUES}")
+    if np.ptp(x_all) == 0:
+        return _left_alone(name, statistic, x_all, n_nonfinite, "constant column")
+    sample = _sample(x_all, int(sample_size), random_state)
+    if np.ptp(sample) == 0:  # a nearly constant column whose sample happens to be constant
+        return _left_alone(name, statistic, x_all, n_nonfinite, "constant on the sample")
+    identity_stat = _score(sample, sample, statistic)
+    if identity_stat is None:  # pragma: no cover - a varying finite sample always scores
+        return _left_alone(name, statistic, x_all, n_nonfinite, "no normality statistic")
+
+    return statistic, x_all, n_nonfinite, sample, identity_stat
+
+
+def chosen_transform(values, *, name: str = "x", sample_size: int = 5000, random_state=0,
+                     statistic: str = "dagostino") -> Transform | None:
+    """``search_transform(...).transform``, skipping the search for a near-Gaussian column (rule 2 leaves
+    it alone whatever the other candidates score; a test checks the two agree)."""
+    prepared = _prepare(values, name, sample_size, random_state, statistic)
+    if isinstance(prepared, ShapeResult):
+        return prepared.transform
+    statistic, x_all, n_nonfinite, sample, identity_stat = prepared
+    if _near_gaussian(sample):
+        return None
+    tried, _ = _try_transforms(name, x_all, sample, statistic, identity_stat)
+    return _choose(tried, sample, statistic)[0].transform
+
+
+def _near_gaussian(sample: np.ndarray) -> bool:  # selection rule 2
+    return abs(_skew(sample)) < SYMMETRIC_SKEW and _k2_pvalue(sample) >= NEAR_GAUSSIAN_P
 
 
 def _finite_values(values, name: str) -> tuple[np.ndarray, int]:
@@ -476,7 +406,7 @@ def _choose(tried: list[TransformTried], sample: np.ndarray, statistic: str) -> 
     near = [c for c in tried if c.statistic <= best.statistic + tie]
     choice = min(near, key=lambda c: (c.complexity, c.statistic))
     skew_before = _skew(sample)
-    if abs(skew_before) < SYMMETRIC_SKEW and _k2_pvalue(sample) >= NEAR_GAUSSIAN_P:
+    if _near_gaussian(sample):
         return identity, "near-Gaussian: left alone"
     if choice.transform is not None and (
         identity.statistic - choice.statistic < max(CLEAR_GAIN * identity.statistic, critical)

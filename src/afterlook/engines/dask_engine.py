@@ -14,11 +14,13 @@ from __future__ import annotations
 
 import numpy as np
 
+from ..core.blas import with_limited_blas
 from ..core.errors import AfterlookError
 from ..core.recipe import Recipe
 from .local import SAMPLE_ROWS, Accumulator, StreamedTraining, needs_fitted_lambda
 
 
+@with_limited_blas  # runs in a worker process: the caller's limit does not reach it
 def _partition_accumulator(frame, recipe_doc: dict, raw: list[str], names: list[str],
                            sample_size: int, seed: tuple[int, int]) -> Accumulator:
     columns = {c: frame[c].to_numpy(dtype=np.float64, na_value=np.nan) for c in raw}
