@@ -118,8 +118,12 @@ class CandidatesPanel(Vertical):
         verdict.append("verdict: ", style="bold")
         verdict.append(result.verdict(), style=finding if result.any_beyond_chance else chance)
         verdict.append("\nrecommended: ", style="bold")
-        verdict.append(result.recommended_reason() if result.recommended else f"none ({result.recommended_reason()})",
-                       style=finding if result.recommended else chance)
+        if result.recommended:  # the name only: the detail line above shows the highlighted expression
+            best = next(c for c in result.candidates if c.name == result.recommended)
+            verdict.append(f"{best.name} (holds up, held-out F1 {best.heldout.gain:+.3f}); a applies it",
+                           style=finding)
+        else:
+            verdict.append(f"none ({result.recommended_reason()})", style=chance)
         self.query_one("#cand-verdict", Static).update(verdict)
 
     def on_resize(self) -> None:
