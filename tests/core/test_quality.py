@@ -60,3 +60,15 @@ def test_a_value_never_seen_in_normal_operation_is_reported_with_its_counts():
     assert (found.column, found.anomalies_differ, found.anomalies, found.normal_cases_differ, found.normal_cases) == \
         ("valve_state", 2, 3, 1, 3)
     assert "never seen in normal operation" in found.describe()
+
+
+def test_cases_outside_a_domain_rank_as_the_most_anomalous_without_a_warning(recwarn):
+    from sklearn.metrics import average_precision_score, roc_auc_score
+
+    y = np.array([True, True, False, False, False, True])
+    ld = np.array([-np.inf, -3.0, -1.0, -2.0, -0.5, -np.inf])
+    q = ranking_quality(ld, y, threshold=-2.5)
+    stand_in = np.where(np.isneginf(ld), -1e9, ld)  # any value below every finite score gives the same order
+    assert q.roc_auc == pytest.approx(roc_auc_score(y, -stand_in))
+    assert q.average_precision == pytest.approx(average_precision_score(y, -stand_in))
+    assert q.unscored == 0 and not [w for w in recwarn if issubclass(w.category, RuntimeWarning)]

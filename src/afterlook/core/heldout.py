@@ -39,7 +39,9 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from .errors import AfterlookError
-from .thresholds import Confusion, ThresholdPolicy, choose_threshold, confusion, flag, rate_threshold
+from .thresholds import (  # noqa: F401 - flagged_rate is part of this module's interface
+    Confusion, ThresholdPolicy, choose_threshold, confusion, flag, flagged_rate, rate_threshold,
+)
 
 DEFAULT_FOLDS = 5
 DEFAULT_SEED = 0
@@ -137,13 +139,6 @@ def _counts(c: Confusion) -> np.ndarray:
 def _sum(counts: np.ndarray) -> Confusion:
     tp, fp, fn, tn = (int(x) for x in counts)
     return Confusion(tp, fp, fn, tn)
-
-
-def flagged_rate(log_density: np.ndarray, threshold: float, is_anomaly: np.ndarray) -> float:
-    """Share of labelled normal cases flagged at ``threshold`` (the model's false-alarm rate)."""
-    y = np.asarray(is_anomaly, dtype=bool)
-    normals = np.asarray(log_density)[~y]
-    return float(np.mean(flag(normals, threshold))) if normals.size else 0.0
 
 
 def _pick(policy: ThresholdPolicy, ld: np.ndarray, y: np.ndarray) -> float:

@@ -27,7 +27,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .thresholds import flag
+from .thresholds import flagged_rate
 
 FLAGS_TOO_MANY_NORMALS = 0.5  # share of labelled normal cases flagged above which fit and misses warn
 
@@ -62,13 +62,15 @@ def ranking_quality(log_density: np.ndarray, is_anomaly: np.ndarray, threshold: 
 
     ld = np.asarray(log_density, dtype=np.float64)
     y = np.asarray(is_anomaly, dtype=bool)
-    ok = np.isfinite(ld)
-    normals = ~y
-    flagged_share = float(np.mean(flag(ld[normals], threshold))) if normals.any() else 0.0
+    ok = ~np.isnan(ld)  # -inf (outside a feature's domain) ranks as the most anomalous; NaN is unscored
+    flagged_share = flagged_rate(ld, threshold, y)
     share = float(y.mean()) if y.size else math.nan
     if not (y[ok].any() and (~y[ok]).any()):
         return RankingQuality(None, None, share, flagged_share, int((~ok).sum()))
-    score = -ld[ok]
+    # -inf (outside a domain) ranks below every finite score: both metrics depend on the order only
+    finite = ld[np.isfinite(ld)]
+    ranked = np.where(np.isneginf(ld), (finite.min() - 1.0) if finite.size else -1.0, ld)
+    score = -ranked[ok]
     return RankingQuality(float(roc_auc_score(y[ok], score)), float(average_precision_score(y[ok], score)),
                           share, flagged_share, int((~ok).sum()))
 

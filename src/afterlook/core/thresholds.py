@@ -121,6 +121,13 @@ def flag(log_density: np.ndarray, threshold: float) -> np.ndarray:
         return np.asarray(log_density) < threshold
 
 
+def flagged_rate(log_density: np.ndarray, threshold: float, is_anomaly: np.ndarray) -> float:
+    """Share of labelled normal cases flagged at ``threshold`` (the model's false-alarm rate)."""
+    y = np.asarray(is_anomaly, dtype=bool)
+    normals = np.asarray(log_density)[~y]
+    return float(np.mean(flag(normals, threshold))) if normals.size else 0.0
+
+
 def confusion(flagged: np.ndarray, is_anomaly: np.ndarray) -> Confusion:
     """Counts and rates of ``flagged`` against the labels ``is_anomaly`` (True = anomaly)."""
     flagged = np.asarray(flagged, dtype=bool)

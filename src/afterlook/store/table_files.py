@@ -141,13 +141,21 @@ def _format_of(name: str, head: bytes) -> tuple[str, str, bool]:
 # --------------------------------------------------------------------------
 
 
-def _read_parquet(name: str, head: bytes, size: int) -> pa.Table:
+def _open_parquet(name: str, head: bytes, size: int) -> pq.ParquetFile:
+    """The Parquet file, after checking its header and footer magic (one-line errors)."""
     if not head.startswith(_PARQUET_MAGIC):
         raise _fail(f"cannot read {name}: it is named like a Parquet file but is not one (no Parquet header)")
     if size < 12 or _tail_bytes(name, 4) != _PARQUET_MAGIC:
         raise _fail(f"cannot read {name}: the Parquet file is truncated or damaged (its footer is missing)")
     try:
-        pfile = pq.ParquetFile(name)
+        return pq.ParquetFile(name)
+    except (pa.ArrowException, OSError, ValueError, TypeError, IndexError, KeyError, MemoryError) as exc:
+        raise _fail(f"cannot read {name} as Parquet: {_arrow_message(exc)}") from None
+
+
+def _read_parquet(name: str, head: bytes, size: int) -> pa.Table:
+    pfile = _open_parquet(name, head, size)
+    try:
         _check_column_names(name, _schema_names(name, pfile.schema_arrow))
         return pfile.read()
     except (pa.ArrowException, OSError, ValueError, TypeError, IndexError, KeyError, MemoryError) as exc:

@@ -15,11 +15,9 @@ import numpy as np
 import pyarrow as pa
 import pyarrow.compute as pc
 import pyarrow.csv as pacsv
-import pyarrow.parquet as pq
 
 from afterlook.core.errors import AfterlookError
 from afterlook.store.table_files import (
-    _PARQUET_MAGIC,
     _arrow_message,
     _arrow_to_pandas,
     _check_column_names,
@@ -28,10 +26,10 @@ from afterlook.store.table_files import (
     _format_of,
     _legacy_text,
     _looks_binary,
+    _open_parquet,
     _quote_list,
     _schema_names,
     _short,
-    _tail_bytes,
 )
 from afterlook.store.tables import Table, _build_table
 
@@ -62,9 +60,7 @@ def load_head(
     kind, delimiter, compressed = _format_of(name, head)
     try:
         if kind == "parquet":
-            if not head.startswith(_PARQUET_MAGIC) or size < 12 or _tail_bytes(name, 4) != _PARQUET_MAGIC:
-                raise _fail(f"cannot read {name}: the Parquet file is truncated or damaged")
-            pfile = pq.ParquetFile(name)
+            pfile = _open_parquet(name, head, size)
             batch = next(pfile.iter_batches(batch_size=rows), None)
             arrow = pa.Table.from_batches([batch]) if batch is not None else pfile.schema_arrow.empty_table()
         else:
@@ -181,12 +177,8 @@ def _csv_stream_message(name: str, exc: BaseException, have: list[str]) -> str:
 def _parquet_batches(
     name: str, head: bytes, size: int, columns: list[str], chunk_rows: int
 ) -> Iterator[pa.RecordBatch]:
-    if not head.startswith(_PARQUET_MAGIC):
-        raise _fail(f"cannot read {name}: it is named like a Parquet file but is not one (no Parquet header)")
-    if size < 12 or _tail_bytes(name, 4) != _PARQUET_MAGIC:
-        raise _fail(f"cannot read {name}: the Parquet file is truncated or damaged (its footer is missing)")
+    pfile = _open_parquet(name, head, size)
     try:
-        pfile = pq.ParquetFile(name)
         schema = pfile.schema_arrow
     except (pa.ArrowException, OSError, ValueError, TypeError, IndexError) as exc:
         raise _fail(f"cannot read {name} as Parquet: {_arrow_message(exc)}") from None
