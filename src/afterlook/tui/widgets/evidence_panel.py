@@ -130,8 +130,8 @@ class EvidencePanel(Vertical):
         legend.append(f"z: sd from the normal mean (bar full at {BAR_FULL_SCALE:g}; - below, + above); pct: % of "
                       "normal rows at or below; share: % of the case's log-density cost")
         if any(r.transform for r in view.rows):
-            legend.append("; * transformed by the recipe: value is the reading, z, pct and share are on the "
-                          "transformed scale")
+            legend.append("; * transformed by the recipe: value is the reading; z, pct and share are on the "
+                          "transformed scale, with + meaning a higher reading")
         if view.full_model:
             legend.append("; cond z: sd from the value expected given all other features")
         self.query_one("#evidence-legend", Static).update(legend)
