@@ -40,14 +40,16 @@ class StatusLine(Static):
         counts_short = counts_long[:4] + [
             (f"prec {fmt.num(s.precision)} rec {fmt.num(s.recall)} F1 {fmt.num(s.f1)}", "status--strong")]
         tail = []
-        if s.roc_auc is not None:
-            tail.append((f"AUC {fmt.num(s.roc_auc)}  AP {fmt.num(s.average_precision)}",
-                         "status--alarm" if s.warnings else "status--dim"))
         if s.n_unscored:
             tail.append((f"{s.n_unscored} anomalies not scored (NaN)", "status--alarm"))
-        counts = counts_long + tail
+        auc = []
+        if s.roc_auc is not None:
+            auc = [(f"AUC {fmt.num(s.roc_auc)}  AP {fmt.num(s.average_precision)}",
+                    "status--alarm" if s.warnings else "status--dim")]
+        counts = counts_long + tail + auc
         if _length(counts) > width:
-            counts = counts_short + tail
+            # the ranking quality only takes the room of precision/recall/F1 when the model itself is suspect
+            counts = counts_short + tail + (auc if s.warnings else [])
         text = _line(head, width, self._style)
         text.append("\n")
         text.append_text(_line(counts, width, self._style))
