@@ -207,3 +207,42 @@ def test_report_never_overwrites_a_casebook_or_a_model(flow, demo, tmp_path, run
         code, out, err = run_cli("casebook", "report", book, "--out", target)
         one_line_error(code, err)
         assert sha(target) == digest
+
+
+def test_a_status_change_keeps_and_shows_the_earlier_review(flow, demo, run_cli, parse_json):
+    """Re-reviewing a case without the earlier feature says so; show and both reports list the earlier review."""
+    book = flow["folder"] / "history-book.json"
+    shutil.copy(flow["book"], book)
+    code, out, err = run_cli("casebook", "add", book, "--model", demo.model, "--cases", demo.cases,
+                             "--case", demo.worst, "--status", "needs-signal", "--train", demo.train,
+                             "--note", "second look", "--reviewer", "cli-test-2")
+    assert code == 0, err
+    said = " ".join(out.split())
+    assert "updated (was explained)" in said
+    assert "kept in the case's history" in said
+    assert f"its derived feature {demo.name} = {demo.expression} is not part of this review" in said
+
+    stored = {e["case"]: e for e in json.loads(book.read_text())["entries"]}[demo.worst]  # json module
+    (old,) = stored["history"]
+    assert old["status"] == "explained" and old["derived_feature"] == {"name": demo.name,
+                                                                       "expression": demo.expression}
+    assert old["evidence"] and old["after"]["flagged"] is True
+
+    code, out, err = run_cli("casebook", "show", book, demo.worst)
+    assert code == 0, err
+    said = " ".join(out.split())
+    assert "Earlier reviews (oldest first)" in said and "cli-test: explained" in said and demo.name in said
+    code, out, err = run_cli("casebook", "report", book)
+    assert code == 0, err
+    assert "### Earlier reviews (oldest first)" in out and "worn impeller" in out
+    html = flow["folder"] / "history.html"
+    code, out, err = run_cli("casebook", "report", book, "--format", "html", "--out", html)
+    assert code == 0, err
+    assert '<table class="history">' in html.read_text(encoding="utf-8")
+
+
+def test_show_of_a_mistyped_case_suggests_the_closest(flow, demo, run_cli, one_line_error):
+    typo = demo.worst[:-1] + ("1" if demo.worst[-1] != "1" else "2")
+    code, out, err = run_cli("casebook", "show", flow["book"], typo)
+    line = one_line_error(code, err)
+    assert f"did you mean {demo.worst!r}" in line

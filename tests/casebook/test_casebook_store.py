@@ -82,6 +82,39 @@ def test_upsert_keeps_created_and_pushes_previous_decisions_into_history(tmp_pat
     assert all("history" not in h for h in hist)
 
 
+def test_a_status_change_keeps_the_earlier_review_whole_in_history(tmp_path):
+    """Feature, scores, evidence, who and when of the earlier review survive; the raw snapshot is not copied."""
+    book = Casebook.open(tmp_path / "b.json")
+    first = entry("c", "explained", note="first", reviewer="ana", updated="2026-01-01T00:00:00Z",
+                  derived_feature={"name": "r", "expression": "a / b"},
+                  derived_features=[{"name": "r", "expression": "a / b"}],
+                  before={"log_density": -3.0, "threshold": -9.0, "margin": 6.0, "flagged": False},
+                  after={"log_density": -12.0, "threshold": -9.5, "margin": -2.5, "flagged": True},
+                  evidence=[{"name": "a", "value": 1.0, "z": 0.2}], snapshot={"columns": {"a": 1.0, "b": 2.0}})
+    book.upsert(first)
+    book.upsert(entry("c", "needs-signal", note="second", reviewer="ben", updated="2026-02-01T00:00:00Z"))
+    stored = book.entries["c"]
+    assert stored.get("derived_feature") is None  # the new review named none
+    (old,) = stored["history"]
+    for key in ("status", "note", "reviewer", "updated", "derived_feature", "derived_features", "before", "after",
+                "evidence"):
+        assert old[key] == first[key], key
+    assert "snapshot" not in old and "case" not in old and "history" not in old
+
+
+def test_unknown_case_id_suggests_the_closest(tmp_path):
+    book = Casebook.open(tmp_path / "b.json")
+    book.upsert(entry("PS-01/2026-05-21T17:00", "open"))
+    book.upsert(entry("PS-03/2026-01-02T04:00", "open"))
+    with pytest.raises(AfterlookError, match=r"did you mean 'PS-01/2026-05-21T17:00'"):
+        book.get("PS-01/2026-05-21T17:01")  # one character off
+    with pytest.raises(AfterlookError, match=r"did you mean 'PS-03/2026-01-02T04:00'"):
+        book.get("ps-03/2026-01-02t04:00 ")  # case and a trailing space
+    with pytest.raises(AfterlookError) as info:
+        book.get("something else entirely")
+    assert "did you mean" not in info.value.message
+
+
 @pytest.mark.parametrize("bad", [{"status": "open"}, {"case": "", "status": "open"}, {"case": "x", "status": "done"}])
 def test_upsert_refuses_entries_without_case_or_with_unknown_status(tmp_path, bad):
     book = Casebook.open(tmp_path / "b.json")

@@ -24,6 +24,7 @@ import re
 from collections import Counter
 from typing import Iterable
 
+from .case_history import HISTORY_HEAD, history_rows
 from .wording import flag_word
 from ..core.printable import printable
 from ..store.casebook_file import STATUSES, Casebook
@@ -143,15 +144,6 @@ def _deciding_label(entry: dict) -> str:
     return str(d.get("name") or "n/a")
 
 
-def _history_line(entry: dict) -> str | None:
-    hist = entry.get("history") or []
-    if not hist:
-        return None
-    last = hist[-1]
-    return (f"reviewed {len(hist)} time(s) before; previous decision: {last.get('status', 'n/a')} by "
-            f"{last.get('reviewer', 'n/a')} ({last.get('updated', 'n/a')})")
-
-
 _EVIDENCE_HEAD = ["feature", "reading", "z", "percentile", "contribution", "conditional z"]
 _METRIC_HEAD = ["model", "threshold", "tp", "fp", "fn", "tn", "precision", "recall", "F1"]
 _SCORE_HEAD = ["model", "log-density", "threshold", "margin", "verdict"]
@@ -240,9 +232,6 @@ def _md_entry(e: dict) -> list[str]:
     if context:
         facts.append("- **Context:** " + "; ".join(f"{md_text(k)}: {md_text(v if v is not None else '')}"
                                                     for k, v in sorted(context.items())))
-    hist = _history_line(e)
-    if hist:
-        facts.append(f"- **History:** {md_text(hist)}")
     out += facts + ["", f"**Note:** {md_text(e.get('note') or '(none)')}", ""]
 
     out += ["### Score", ""]
@@ -259,6 +248,13 @@ def _md_entry(e: dict) -> list[str]:
         out += ["", f"Deciding feature {md_code(d.get('name', ''))} ({md_text(d.get('why', ''))}): case value "
                 f"{_num(d.get('value'))}, z {_signed(d.get('z'))}, percentile {_num(d.get('percentile'), '.1f')} "
                 f"among {h.get('rows', 0)} {md_text(h.get('population', 'rows'))}."]
+    hist = history_rows(e, _num)
+    if hist:
+        out += ["", "### Earlier reviews (oldest first)", ""]
+        for when, who, status, feature, before, after, note in hist:  # a list reads at 80 columns, a table does not
+            out.append(f"- {md_text(when)}, {md_text(who)}: **{md_text(status)}**; derived feature "
+                       f"{md_code(feature) if feature != 'none' else 'none'}; before {md_text(before)}, "
+                       f"after {md_text(after)}" + (f"; note: {md_text(note)}" if note else ""))
     warnings = e.get("warnings") or []
     if warnings:
         out += [""] + [f"> {md_text(w)}" for w in warnings]
@@ -281,7 +277,7 @@ table { border-collapse: collapse; margin: 0.3rem 0; font-variant-numeric: tabul
 th, td { padding: 0.2rem 0.7rem; border-bottom: 1px solid #e6e8e2; text-align: right; }
 th:first-child, td:first-child { text-align: left; }
 th { font-weight: 600; color: #45505b; }
-td.text { text-align: left; }
+td.text, table.history td, table.history th { text-align: left; }
 code { font: 0.9em ui-monospace, monospace; background: #f0f1ec; padding: 0 0.2em; border-radius: 3px; }
 .status { display: inline-block; padding: 0.05rem 0.5rem; border-radius: 1rem; font-size: 0.85rem;
   border: 1px solid currentColor; margin-left: 0.5rem; }
@@ -376,9 +372,6 @@ def _html_entry(e: dict) -> str:
     context = (e.get("snapshot") or {}).get("context") or {}
     if context:
         out.append("<div>Context: " + "; ".join(f"{_e(k)}: {_e(v)}" for k, v in sorted(context.items())) + "</div>")
-    hist = _history_line(e)
-    if hist:
-        out.append(f"<div>History: {_e(hist)}</div>")
     out.append("</div>")
     out.append(f'<div class="note">{_e(e.get("note") or "(no note)")}</div>')
 
@@ -401,6 +394,11 @@ def _html_entry(e: dict) -> str:
                    f"z {_signed(d.get('z'))}, percentile {_num(d.get('percentile'), '.1f')}).")
         out.append(f"<figure>{histogram_svg(h, d.get('value'), label=str(d.get('name', '')))}"
                    f"<figcaption>{_e(caption)}</figcaption></figure>")
+    hist = history_rows(e, _num)
+    if hist:
+        out.append("<h3>Earlier reviews (oldest first)</h3>")
+        table = _html_table(HISTORY_HEAD, [[_e(c) for c in row] for row in hist])
+        out.append(table.replace("<table>", '<table class="history">', 1))
     for w in e.get("warnings") or []:
         out.append(f'<p class="warn">{_e(w)}</p>')
     out.append("</section>")

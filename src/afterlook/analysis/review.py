@@ -24,7 +24,8 @@ Entry keys (a JSON-ready dict; more may be added)::
                  contribution; histogram = {edges, counts, bins, rows, population} of that feature
                  over the normal population (numpy.histogram, 30 bins)
     warnings     [str]  what the re-fit had to assume (e.g. no training file found)
-    history      [previous decisions], newest last (kept by the file layer)
+    history      [earlier entries of the case, whole but for case/created/snapshot/history], newest
+                 last (kept by the file layer; shown by analysis.case_history)
 
 Checking (:func:`check_casebook`) re-scores every entry's case with a model.
 An ``explained`` entry whose case is not flagged is *regressed*. A case that

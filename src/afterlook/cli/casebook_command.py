@@ -124,7 +124,23 @@ def run_add(args) -> int:
     how = "added" if previous is None else f"updated (was {previous.get('status')})"
     out.print(f"{how} case {entry['case']} as {entry['status']} in {args.book}", markup=False)
     out.print(_score_words(entry), markup=False)
+    if previous is not None:
+        out.print(_kept_words(previous, entry), markup=False)
     return EXIT_OK
+
+
+def _kept_words(previous: dict, entry: dict) -> str:
+    """What happened to the earlier review: always kept in history; a feature not named again said so."""
+    from ..analysis.case_history import dropped_feature
+
+    n = len(entry.get("history") or [])
+    text = f"the earlier review ({previous.get('status')}, {previous.get('updated')}) is kept in the case's history " \
+           f"({n} earlier review(s); 'casebook show' lists them)"
+    old = dropped_feature(previous, entry)
+    if old:
+        text += (f"; its derived feature {old.get('name')} = {old.get('expression')} is not part of this review "
+                 "(give it again with --derive to keep it current)")
+    return text
 
 
 def _score_words(entry: dict) -> str:

@@ -36,9 +36,12 @@ Decisions worth knowing about
   A process killed mid-write can leave a hidden ``.BOOK.*.tmp`` file behind;
   it is never read and may be deleted.
 * ``upsert`` of a case already in the book keeps its ``created`` time and
-  pushes the previous decision (status, note, reviewer, derived feature,
-  model fingerprint, updated) onto ``history``, newest last, keeping the
-  last :data:`HISTORY_LIMIT`.
+  pushes the previous entry whole (status, note, reviewer, when, model,
+  derived features, scores, metrics and evidence; everything but the case id,
+  ``created``, the raw-reading snapshot and its own history) onto
+  ``history``, newest last, keeping the last :data:`HISTORY_LIMIT`. A status
+  change therefore never loses the feature or the evidence an earlier review
+  rested on.
 """
 
 from __future__ import annotations
@@ -55,6 +58,7 @@ from typing import Iterator
 from ..core.errors import AfterlookError
 from .atomic import _write_atomic, write_bytes_atomic  # noqa: F401 (re-exported)
 from ..core.printable import printable
+from ..core.names import closest_name
 from .documents import check_document, first_bad_number
 
 __all__ = [
@@ -75,8 +79,10 @@ VERSION = 1
 STATUSES = ("open", "explained", "needs-signal", "label-disputed", "accepted-risk")
 HISTORY_LIMIT = 10
 
-# What of an entry counts as "the decision" when a case is reviewed again.
-_DECISION_KEYS = ("status", "note", "reviewer", "updated", "derived_feature", "model")
+# What of an entry is NOT copied into its history when the case is reviewed again: the
+# case id, its first review time and its own history (bookkeeping), and the snapshot of raw
+# readings (the same row every time; the current entry keeps it).
+_NOT_IN_HISTORY = ("case", "created", "history", "snapshot")
 
 
 class CasebookConflict(AfterlookError):
@@ -158,7 +164,7 @@ class Casebook:
         """The entry of ``case_id`` (error naming the book when it has none)."""
         key = str(case_id)
         if key not in self.entries:
-            hint = next((c for c in self.entries if c.strip().casefold() == key.strip().casefold()), None)
+            hint = closest_name(key, list(self.entries))
             extra = f" (did you mean {hint!r}?)" if hint else ""
             raise AfterlookError(f"case {key!r} is not in casebook {self.path}{extra}", title="Unknown case")
         return self.entries[key]
@@ -175,7 +181,7 @@ class Casebook:
         old = self.entries.get(case)
         history = list(old.get("history") or []) if old else list(new.get("history") or [])
         if old is not None:
-            history.append({k: copy.deepcopy(old.get(k)) for k in _DECISION_KEYS if k in old})
+            history.append({k: copy.deepcopy(v) for k, v in old.items() if k not in _NOT_IN_HISTORY})
             if old.get("created"):
                 new["created"] = old["created"]
         new["history"] = history[-HISTORY_LIMIT:]

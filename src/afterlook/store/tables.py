@@ -49,6 +49,7 @@ import numpy as np
 import pandas as pd
 
 from afterlook.core.errors import AfterlookError
+from afterlook.core.names import closest_name
 from afterlook.store.table_files import (
     _UNNAMED,
     _arrow_to_pandas,
@@ -192,15 +193,7 @@ class Table:
         raise AfterlookError(f"unknown case id {key!r} in {self._where}{extra}", title="Unknown case")
 
     def _close_id(self, key: str) -> str | None:
-        pool = list(self._first_row or {})
-        folded = key.strip().casefold()
-        for candidate in pool:  # same id but for case or spaces
-            if candidate.strip().casefold() == folded:
-                return candidate
-        if len(pool) > 20_000:  # keep the suggestion cheap on big tables
-            pool = [c for c in pool if abs(len(c) - len(key)) <= 2][:20_000]
-        match = difflib.get_close_matches(key, pool, n=1, cutoff=0.7)
-        return match[0] if match else None
+        return closest_name(key, self._first_row or {})
 
 
 # --------------------------------------------------------------------------

@@ -83,5 +83,7 @@ class CasebookFlow:
         self.saving = False
         self.book_ids.add(message.case_id)
         self.case_list.mark(book=self.book_ids, flips=self._flips())
-        self.notify(f"saved {message.case_id} as {message.status} to {os.path.basename(self.session.casebook_path)}",
-                    title="casebook")
+        earlier = len((message.entry or {}).get("history") or [])
+        kept = f"; {earlier} earlier review(s) kept in its history" if earlier else ""
+        self.notify(f"saved {message.case_id} as {message.status} to {os.path.basename(self.session.casebook_path)}"
+                    + kept, title="casebook")
