@@ -24,6 +24,10 @@ $(STAMP): $(BIN)/python pyproject.toml $(LOCK)
 
 demo: $(STAMP)
 	$(BIN)/afterlook demo --dir demo-data
+	@echo ""
+	@echo "The demo files are in demo-data/: train.csv, cases.csv, model.json (and casebook.json once a case is saved)."
+	@echo "The CLI lives in the project's venv: run '. $(VENV)/bin/activate' once per shell, then 'afterlook --help'"
+	@echo "(or call it as $(BIN)/afterlook without activating)."
 
 test: $(STAMP)
 	$(BIN)/python -m pytest -q

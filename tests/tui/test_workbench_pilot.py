@@ -98,6 +98,17 @@ async def test_main_flow_worst_miss_candidates_apply_flip_and_save(demo, tmp_pat
     assert entry["note"] == "impeller worn; current per power exposes it"
     assert entry["derived_feature"] == {"name": top.name, "expression": top.expression}
     assert entry["before"]["flagged"] is False and entry["after"]["flagged"] is True
+
+    # what the terminal shows once the workbench has closed: the save, the book, the next commands
+    from afterlook.tui.closing import closing_lines, shell_path
+
+    assert app.saved_this_session == [worst]
+    lines = closing_lines(app.saved_this_session, book, 1, model_path=demo.model, cases_path=demo.cases,
+                          tried=f"{top.name}={top.expression}")
+    said = "\n".join(lines)
+    assert f"1 case(s) saved to {shell_path(book)} this session ({worst})" in said
+    assert f"afterlook casebook report {shell_path(book)}" in said
+    assert "--derive " in said and top.expression in said
     assert app.return_code in (None, 0)
 
 

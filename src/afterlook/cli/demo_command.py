@@ -22,7 +22,7 @@ def run(args) -> int:
         # The workbench computes what it shows itself, in workers: open it at once.
         from ..tui import launch
 
-        return launch(model_path, cases_path, train_path=train_path, casebook=None)
+        return launch(model_path, cases_path, train_path=train_path, casebook=None, demo=True)
     doc, model, cases, result, extras = analysis(model_path, cases_path, train_path)
     if args.json:
         emit_json(doc)

@@ -53,5 +53,6 @@ def run(args) -> int:
     if not (sys.stdin.isatty() and sys.stdout.isatty()):
         raise AfterlookError("afterlook review needs a terminal; for scripts use afterlook misses, explain, "
                              "suggest, try or casebook add (each with --json)")
-    code = app.run()
-    return EXIT_OK if code is None else int(code)
+    from ..tui import run_workbench
+
+    return run_workbench(app)

@@ -103,6 +103,7 @@ class WorkbenchApp(CasebookFlow, HistogramFlow, App[int]):
         self.trial_running: str | None = None
         # casebook
         self.book_ids: set[str] = set()
+        self.saved_this_session: list[str] = []  # for the lines printed after the workbench closes
         self.book_loaded = False
         self.saving = False
         self.zoomed = False

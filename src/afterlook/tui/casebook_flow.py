@@ -82,6 +82,7 @@ class CasebookFlow:
     def on_casebook_saved(self, message: msg.CasebookSaved) -> None:
         self.saving = False
         self.book_ids.add(message.case_id)
+        self.saved_this_session.append(message.case_id)
         self.case_list.mark(book=self.book_ids, flips=self._flips())
         earlier = len((message.entry or {}).get("history") or [])
         kept = f"; {earlier} earlier review(s) kept in its history" if earlier else ""
