@@ -66,15 +66,16 @@ def fixed_candidates(case_id: str) -> SuggestResult:
     )
 
 
-def test_evidence_view(snap_compare, demo, tmp_path):
-    assert snap_compare(make_app(demo, tmp_path), terminal_size=WIDE, run_before=settle)
+SIZES = pytest.mark.parametrize("size", [WIDE, SMALL], ids=["120x40", "80x24"])
 
 
-def test_evidence_view_at_80_by_24(snap_compare, demo, tmp_path):
-    assert snap_compare(make_app(demo, tmp_path), terminal_size=SMALL, run_before=settle)
+@SIZES
+def test_evidence_view(snap_compare, demo, tmp_path, size):
+    assert snap_compare(make_app(demo, tmp_path), terminal_size=size, run_before=settle)
 
 
-def test_candidates_view(snap_compare, demo, tmp_path):
+@SIZES
+def test_candidates_view(snap_compare, demo, tmp_path, size):
     async def run_before(pilot):
         app = pilot.app
         await pilot.pause()
@@ -83,10 +84,11 @@ def test_candidates_view(snap_compare, demo, tmp_path):
         await pilot.press("c")
         await settle(pilot)
 
-    assert snap_compare(make_app(demo, tmp_path), terminal_size=WIDE, run_before=run_before)
+    assert snap_compare(make_app(demo, tmp_path), terminal_size=size, run_before=run_before)
 
 
-def test_try_result_view(snap_compare, demo, tmp_path, wait_until):
+@SIZES
+def test_try_result_view(snap_compare, demo, tmp_path, wait_until, size):
     async def run_before(pilot):
         await pilot.pause()
         await pilot.press("t", *"amps_per_power = motor_current_a / hydraulic_power", "enter")
@@ -98,10 +100,21 @@ def test_try_result_view(snap_compare, demo, tmp_path, wait_until):
         await wait_until(pilot, lambda: pilot.app.try_panel.scroll_offset.y > 0,
                          what="the try panel scrolled to show the before/after comparison")
 
-    assert snap_compare(make_app(demo, tmp_path), terminal_size=WIDE, run_before=run_before)
+    assert snap_compare(make_app(demo, tmp_path), terminal_size=size, run_before=run_before)
 
 
-def test_histogram_view(snap_compare, demo, tmp_path):
+@SIZES
+def test_typing_an_expression_keeps_help_and_quit_in_the_footer(snap_compare, demo, tmp_path, size):
+    async def run_before(pilot):
+        await pilot.pause()
+        await pilot.press("t", *"motor_current_a / hydraulic_power")
+        await settle(pilot)
+
+    assert snap_compare(make_app(demo, tmp_path), terminal_size=size, run_before=run_before)
+
+
+@SIZES
+def test_histogram_view(snap_compare, demo, tmp_path, size):
     async def run_before(pilot):
         await pilot.pause()
         await pilot.press("h")
@@ -109,9 +122,10 @@ def test_histogram_view(snap_compare, demo, tmp_path):
         app = pilot.app
         assert app.histogram is not None and app.histogram.counts.bins == app.histogram_panel.bins
 
-    assert snap_compare(make_app(demo, tmp_path), terminal_size=WIDE, run_before=run_before)
+    assert snap_compare(make_app(demo, tmp_path), terminal_size=size, run_before=run_before)
 
 
-def test_help_view(snap_compare, demo, tmp_path):
-    assert snap_compare(make_app(demo, tmp_path), terminal_size=WIDE, press=["question_mark"],
+@SIZES
+def test_help_view(snap_compare, demo, tmp_path, size):
+    assert snap_compare(make_app(demo, tmp_path), terminal_size=size, press=["question_mark"],
                         run_before=settle)

@@ -419,3 +419,43 @@ async def test_q_during_a_search_exits_and_the_search_stops_at_its_next_report(d
     assert seen["outcome"] == "_Stale"  # stopped by the cancelled worker, not run to the end
     assert seen["reports after q"] == ["shaping columns 1/" + str(len(app.session.model.features))]
     assert case not in app.candidates
+
+
+@pytest.mark.asyncio
+async def test_a_filter_matching_nothing_clears_the_last_case(demo, tmp_path):
+    app = create_app(demo.model, demo.cases, train_path=demo.train, casebook=tmp_path / "b.json",
+                     auto_candidates=False)
+    async with app.run_test(size=(80, 24)) as pilot:
+        await pilot.pause()
+        worst = app.selected_case
+        assert worst in text_of(app.workbench.query_one("#evidence-head", Static))
+        await pilot.press("slash", *"no-such-case-zzz")
+        await pilot.pause()
+        assert app.selected_case is None
+        head = text_of(app.workbench.query_one("#evidence-head", Static))
+        assert worst not in head and "no case matches the filter" in head
+        assert app.workbench.query_one("#evidence-table", DataTable).row_count == 0
+        for _ in "no-such-case-zzz":
+            await pilot.press("backspace")
+        await pilot.pause()
+        # the list is back and a case is selected again (the one the narrowing filter landed on)
+        assert app.selected_case is not None
+        assert app.selected_case in text_of(app.workbench.query_one("#evidence-head", Static))
+
+
+@pytest.mark.asyncio
+async def test_a_notification_waits_while_the_help_is_open(demo, tmp_path):
+    app = create_app(demo.model, demo.cases, train_path=demo.train, casebook=tmp_path / "b.json",
+                     auto_candidates=False)
+    async with app.run_test(size=(80, 24)) as pilot:
+        await pilot.pause()
+        app.clear_notifications()
+        await pilot.press("question_mark")
+        await pilot.pause()
+        assert isinstance(app.screen, HelpScreen)
+        app.say("saved PS-01 as open to b.json", title="casebook")
+        await pilot.pause()
+        assert not app._notifications and app.held_notes  # nothing drawn over the dialog
+        await pilot.press("escape")
+        await pilot.pause()
+        assert not app.held_notes and len(app._notifications) == 1

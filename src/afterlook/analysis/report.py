@@ -24,6 +24,7 @@ import re
 from collections import Counter
 from typing import Iterable
 
+from . import shown
 from .case_history import HISTORY_HEAD, history_rows
 from .wording import flag_word
 from ..core.printable import printable
@@ -54,24 +55,6 @@ def caution_text() -> str:
 # --------------------------------------------------------------------------
 
 
-def _num(x, spec: str = ".4g") -> str:
-    if x is None:
-        return "n/a"
-    try:
-        x = float(x)
-    except (TypeError, ValueError):
-        return "n/a"
-    if not math.isfinite(x):
-        return "n/a"
-    if spec == ".4g" and x != 0 and (abs(x) >= 1e6 or abs(x) < 1e-3):
-        return f"{x:.3e}"
-    return format(x, spec)
-
-
-def _signed(x) -> str:
-    return _num(x, "+.2f")
-
-
 def _entries(book) -> list[dict]:
     if isinstance(book, Casebook):
         return [book.entries[k] for k in sorted(book.entries)]
@@ -94,16 +77,17 @@ def _title(book, title: str | None) -> str:
 def _score_line(part: dict | None) -> tuple[str, str, str, str]:
     if not part:
         return ("n/a", "n/a", "n/a", "n/a")
-    return (_num(part.get("log_density")), _num(part.get("threshold")), _signed(part.get("margin")),
+    return (shown.log_density(part.get("log_density")), shown.threshold(part.get("threshold")),
+            shown.margin(part.get("margin")),
             flag_word(part.get("flagged")))
 
 
 def _metric_row(m: dict | None) -> list[str]:
     if not m:
         return ["n/a"] * 8
-    return [_num(m.get("threshold")), str(m.get("tp", "n/a")), str(m.get("fp", "n/a")), str(m.get("fn", "n/a")),
-            str(m.get("tn", "n/a")), _num(m.get("precision"), ".3f"), _num(m.get("recall"), ".3f"),
-            _num(m.get("f1"), ".3f")]
+    return [shown.threshold(m.get("threshold")), str(m.get("tp", "n/a")), str(m.get("fp", "n/a")), str(m.get("fn", "n/a")),
+            str(m.get("tn", "n/a")), shown.share(m.get("precision")), shown.share(m.get("recall")),
+            shown.share(m.get("f1"))]
 
 
 def _parts(entry: dict) -> list[str]:
@@ -130,9 +114,9 @@ def _evidence_cells(f: dict) -> list[str]:
     """
     flip = -1.0 if f.get("order_reversed") else 1.0
     cz = f.get("conditional_z")
-    return [_num(f.get("reading", f.get("value"))), _signed(f.get("z_reading", f.get("z"))),
-            _num(f.get("percentile_reading", f.get("percentile")), ".1f"), _signed(f.get("contribution")),
-            _signed(flip * cz) if isinstance(cz, (int, float)) else "n/a"]
+    return [shown.reading(f.get("reading", f.get("value"))), shown.z(f.get("z_reading", f.get("z"))),
+            shown.percentile(f.get("percentile_reading", f.get("percentile"))), shown.margin(f.get("contribution")),
+            shown.z(flip * cz) if isinstance(cz, (int, float)) else "n/a"]
 
 
 def _deciding(entry: dict) -> dict:
@@ -199,9 +183,9 @@ def _md_summary(entries: list[dict]) -> list[str]:
     rows = []
     for e in entries:
         b, a = e.get("before") or {}, e.get("after") or {}
-        after = f"{_num(a.get('log_density'))} vs {_num(a.get('threshold'))}" if a else "n/a"
+        after = f"{shown.log_density(a.get('log_density'))} vs {shown.threshold(a.get('threshold'))}" if a else "n/a"
         rows.append([md_code(e.get("case", "")), md_text(e.get("status", "")), md_code(_deciding_label(e)),
-                     f"{_num(b.get('log_density'))} vs {_num(b.get('threshold'))}", after,
+                     f"{shown.log_density(b.get('log_density'))} vs {shown.threshold(b.get('threshold'))}", after,
                      md_text(e.get("reviewer", "")), md_text(e.get("updated", ""))])
     return out + _md_table(["case", "status", "deciding feature", "before: log-density vs threshold",
                             "after", "reviewer", "updated"], rows, numeric=(3, 4))
@@ -246,9 +230,9 @@ def _md_entry(e: dict) -> list[str]:
     if d:
         h = d.get("histogram") or {}
         out += ["", f"Deciding feature {md_code(d.get('name', ''))} ({md_text(d.get('why', ''))}): case value "
-                f"{_num(d.get('value'))}, z {_signed(d.get('z'))}, percentile {_num(d.get('percentile'), '.1f')} "
+                f"{shown.reading(d.get('value'))}, z {shown.z(d.get('z'))}, percentile {shown.percentile(d.get('percentile'))} "
                 f"among {h.get('rows', 0)} {md_text(h.get('population', 'rows'))}."]
-    hist = history_rows(e, _num)
+    hist = history_rows(e, shown.log_density)
     if hist:
         out += ["", "### Earlier reviews (oldest first)", ""]
         for when, who, status, feature, before, after, note in hist:  # a list reads at 80 columns, a table does not
@@ -344,10 +328,10 @@ def _html_summary(entries: list[dict]) -> str:
     rows = []
     for e in entries:
         b, a = e.get("before") or {}, e.get("after") or {}
-        after = f"{_num(a.get('log_density'))} vs {_num(a.get('threshold'))}" if a else "n/a"
+        after = f"{shown.log_density(a.get('log_density'))} vs {shown.threshold(a.get('threshold'))}" if a else "n/a"
         rows.append([f"<code>{_e(e.get('case'))}</code>", f'<span class="s-{_e(e.get("status"))}">{_e(e.get("status"))}</span>',
                      f"<code>{_e(_deciding_label(e))}</code>",
-                     _e(f"{_num(b.get('log_density'))} vs {_num(b.get('threshold'))}"), _e(after),
+                     _e(f"{shown.log_density(b.get('log_density'))} vs {shown.threshold(b.get('threshold'))}"), _e(after),
                      _e(e.get("reviewer")), _e(e.get("updated"))])
     table = _html_table(["case", "status", "deciding feature", "before: log-density vs threshold", "after",
                          "reviewer", "updated"], rows)
@@ -390,11 +374,11 @@ def _html_entry(e: dict) -> str:
     h = d.get("histogram") or {}
     if d and h.get("counts"):
         caption = (f"Deciding feature {d.get('name')} ({d.get('why', '')}): {h.get('rows', 0)} "
-                   f"{h.get('population', 'rows')}; the red line is the case ({_num(d.get('value'))}, "
-                   f"z {_signed(d.get('z'))}, percentile {_num(d.get('percentile'), '.1f')}).")
+                   f"{h.get('population', 'rows')}; the red line is the case ({shown.reading(d.get('value'))}, "
+                   f"z {shown.z(d.get('z'))}, percentile {shown.percentile(d.get('percentile'))}).")
         out.append(f"<figure>{histogram_svg(h, d.get('value'), label=str(d.get('name', '')))}"
                    f"<figcaption>{_e(caption)}</figcaption></figure>")
-    hist = history_rows(e, _num)
+    hist = history_rows(e, shown.log_density)
     if hist:
         out.append("<h3>Earlier reviews (oldest first)</h3>")
         table = _html_table(HISTORY_HEAD, [[_e(c) for c in row] for row in hist])
@@ -437,18 +421,18 @@ def histogram_svg(hist: dict, case_value, *, label: str = "", width: int = 420, 
         x0, x1 = x_of(edges[k]), x_of(edges[k + 1])
         h = plot_h * c / tallest
         parts.append(f'<rect class="bar" x="{x0:.2f}" y="{base - h:.2f}" width="{max(x1 - x0 - 0.5, 0.5):.2f}" '
-                     f'height="{h:.2f}"><title>{_e(f"{_num(edges[k])} to {_num(edges[k + 1])}: {c}")}</title></rect>')
+                     f'height="{h:.2f}"><title>{_e(f"{shown.reading(edges[k])} to {shown.reading(edges[k + 1])}: {c}")}</title></rect>')
     parts.append(f'<line class="axis" x1="{left:.2f}" y1="{base:.2f}" x2="{width - right:.2f}" y2="{base:.2f}"/>')
     parts.append(f'<text class="tick" x="{x_of(edges[0]):.2f}" y="{base + 14:.2f}" text-anchor="start">'
-                 f"{_e(_num(edges[0]))}</text>")
+                 f"{_e(shown.reading(edges[0]))}</text>")
     parts.append(f'<text class="tick" x="{x_of(edges[-1]):.2f}" y="{base + 14:.2f}" text-anchor="end">'
-                 f"{_e(_num(edges[-1]))}</text>")
+                 f"{_e(shown.reading(edges[-1]))}</text>")
     if value is not None:
         xv = x_of(value)
         anchor = "end" if xv > left + plot_w / 2 else "start"
         dx = -4 if anchor == "end" else 4
         parts.append(f'<line class="case" x1="{xv:.2f}" y1="{top - 6:.2f}" x2="{xv:.2f}" y2="{base:.2f}"/>')
         parts.append(f'<text class="caselabel" x="{xv + dx:.2f}" y="{top - 6:.2f}" text-anchor="{anchor}">'
-                     f"case {_e(_num(value))}</text>")
+                     f"case {_e(shown.reading(value))}</text>")
     parts.append("</svg>")
     return "".join(parts)

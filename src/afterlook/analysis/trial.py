@@ -210,7 +210,7 @@ def trial_view(result: TryResult, case_id: str | None = None) -> TrialView:
     metrics = []
     for key, name, integer in (("threshold", "threshold", False), ("tp", "caught (tp)", True),
                                ("fp", "false alarms (fp)", True), ("fn", "misses (fn)", True),
-                               ("tn", "normal, unflagged (tn)", True), ("precision", "precision", False),
+                               ("tn", "normal, not flagged (tn)", True), ("precision", "precision", False),
                                ("recall", "recall", False), ("f1", "F1", False)):
         metrics.append(MetricChange(name, b[key], a[key], a[key] - b[key], integer))
     changes = [CaseChange(r["case"], r["label"], r["before"]["log_density"], r["after"]["log_density"],

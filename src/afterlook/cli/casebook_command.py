@@ -84,9 +84,10 @@ def run(args) -> int:
 
 
 def _fmt(x) -> str:
-    from .render import fmt
+    """A log-density or threshold of an entry (one face: :mod:`afterlook.analysis.shown`)."""
+    from ..analysis.shown import log_density
 
-    return fmt(None if x is None else float(x), 2)
+    return log_density(x)
 
 
 # --------------------------------------------------------------------------

@@ -5,7 +5,8 @@ from __future__ import annotations
 import math
 
 from ..core.errors import AfterlookError
-from ..analysis.wording import candidate_verdict, flip_words, heldout_gain_text, stability_text
+from ..analysis import shown
+from ..analysis.wording import candidate_verdict, flag_word, flip_words, heldout_gain_text, stability_text
 from ..core.errors import EXIT_OK
 from .inputs import table_options
 from .output import emit_json, warn
@@ -85,7 +86,8 @@ def suggest_table(result):
     table = Table(box=box.SIMPLE_HEAD, show_edge=False, pad_edge=False)
     table.add_column("#", justify="right", style="dim")
     table.add_column("expression", overflow="fold", ratio=1, min_width=18)
-    table.add_column("case z", justify="right", no_wrap=True)
+    # several targets: the column is the median of their z, and its header says so
+    table.add_column("case z" if len(result.cases) == 1 else "median case z", justify="right", no_wrap=True)
     table.add_column("adj tail", justify="right", no_wrap=True)
     table.add_column("caught", justify="right", no_wrap=True)
     table.add_column("+FA", justify="right", no_wrap=True)
@@ -97,24 +99,45 @@ def suggest_table(result):
     for k, c in enumerate(result.candidates, 1):
         fa = "n/a" if c.false_alarms_added is None else f"{c.false_alarms_added:+d}"
         caught = "n/a" if c.catches_targets is None else f"{c.catches_targets}/{n_targets}"
-        z = f"{c.case_z:+.1f}" if math.isfinite(c.case_z) else "n/a"
-        table.add_row(str(k), c.expression, z, f"{c.adjusted_tail:.2g}", caught, fa, heldout_gain_text(c),
-                      stability_text(c), Text(candidate_verdict(c), style=styles.get(c.verdict, "dim")))
+        table.add_row(str(k), c.expression, shown.z(c.case_z), shown.tail(c.adjusted_tail), caught, fa,
+                      heldout_gain_text(c), stability_text(c), Text(candidate_verdict(c), style=styles.get(c.verdict, "dim")))
     folds = f"{result.heldout_folds}-fold" if result.heldout_folds else "K-fold"
-    note = Text("case z: robust z (median, MAD) of the case under the normal population; adj tail: chance of a "
-                "value this extreme over every candidate tried (for several cases: of this many cases being "
-                "this unusual); caught: target misses flagged after a re-fit with the feature; +FA: false alarms "
-                f"that re-fit adds; held-out F1: F1 change on cases the threshold was not picked on ({folds}); "
-                "found: fold searches that found the candidate again; verdicts: holds up = beyond chance and "
-                "better on held-out cases (no fold worse, more calls turned right than noise explains), exposes only = beyond chance without a held-out gain, "
-                "could be chance, hurts = worse on held-out cases",
-                style="dim")
+    note = Text(suggest_legend(result, folds), style="dim")
     verdict = Text(result.verdict(), style="bold green" if result.any_beyond_chance else "bold yellow")
     recommended = Text("recommended: ", style="bold")
     recommended.append(result.recommended_reason() if result.recommended else f"none ({result.recommended_reason()})",
                        style="bold green" if result.recommended else "yellow")
     verdict = Group(verdict, recommended)
     return Group(head, table, verdict, note)
+
+
+_VERDICT_WORDS = {
+    "holds-up": "holds up = beyond chance and better on held-out cases (no fold worse, more calls turned right "
+                "than noise explains)",
+    "exposes-only": "exposes only = beyond chance without a held-out gain",
+    "chance": "could be chance",
+    "hurts": "hurts = worse on held-out cases",
+}
+
+
+def suggest_legend(result, folds: str) -> str:
+    """The table's legend: every column, and only the verdicts that appear in it."""
+    several = len(result.cases) > 1
+    parts = [
+        "median case z: the median over the target cases of each one's robust z (median, MAD) under the normal "
+        "population (--json lists each case's)" if several else
+        "case z: robust z (median, MAD) of the case under the normal population",
+        "adj tail: chance of a value this extreme over every candidate tried"
+        + (" (for several cases: of this many cases being this unusual)" if several else ""),
+        "caught: target misses flagged after a re-fit with the feature",
+        "+FA: false alarms that re-fit adds",
+        f"held-out F1: F1 change on cases the threshold was not picked on ({folds})",
+        "found: fold searches that found the candidate again",
+    ]
+    seen = [v for v in _VERDICT_WORDS if any(c.verdict == v for c in result.candidates)]
+    if seen:
+        parts.append("verdicts: " + ", ".join(_VERDICT_WORDS[v] for v in seen))
+    return "; ".join(parts)
 
 
 def run_try(args) -> int:
@@ -182,8 +205,8 @@ def try_table(result):
     for col in ("threshold", "tp", "fp", "fn", "tn", "precision", "recall", "F1"):
         t.add_column(col, justify="right", no_wrap=True)
     for label, m in (("before", d["before"]), ("after", d["after"])):
-        t.add_row(label, f"{m['threshold']:.3f}", str(m["tp"]), str(m["fp"]), str(m["fn"]), str(m["tn"]),
-                  f"{m['precision']:.3f}", f"{m['recall']:.3f}", f"{m['f1']:.3f}")
+        t.add_row(label, shown.threshold(m["threshold"]), str(m["tp"]), str(m["fp"]), str(m["fn"]), str(m["tn"]),
+                  shown.share(m["precision"]), shown.share(m["recall"]), shown.share(m["f1"]))
     summary = Text(f"misses caught: {d['misses_caught']}; false alarms added: {d['false_alarms_added']:+d}",
                    style="bold")
     summary.append("\n" + heldout_line(result.heldout))
@@ -204,6 +227,4 @@ def try_table(result):
 
 
 def _ld(side) -> str:
-    ld = side["log_density"]
-    flag = "flagged" if side["flagged"] else "-"
-    return ("n/a" if ld is None else f"{ld:.2f}") + f" {flag}"
+    return f"{shown.log_density(side['log_density'])} {flag_word(side['flagged'])}"

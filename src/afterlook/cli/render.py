@@ -12,6 +12,7 @@ from rich.text import Text
 
 from ..analysis.evidence import ExplainResult, MissesResult
 from ..analysis.model import Model
+from ..analysis import shown
 from ..core.printable import printable
 from ..analysis.wording import BAR_FULL_SCALE, RELATION_RULE, bar_cells, relation_broken
 
@@ -55,7 +56,7 @@ def model_line(model: Model, path: str | None = None) -> Text:
     t.append(path or model.source_path or "(in memory)", style="bold")
     t.append(f"  {model.describe_kind()}, {len(model.features)} features", style="")
     t.append("  threshold ", style="dim")
-    t.append(fmt(model.threshold))
+    t.append(shown.threshold(model.threshold))
     t.append(f" ({model.policy.describe()})", style="dim")
     return t
 
@@ -69,8 +70,9 @@ def misses_table(result: MissesResult, limit: int | None = None, width: int | No
     head = Text()
     head.append(f"{len(result.misses)} miss(es)", style="bold")
     head.append(f" of {result.n_anomalies} labelled anomalies in {result.n_cases} cases; ")
-    head.append(f"threshold {fmt(result.threshold)}; ")
-    head.append(f"precision {m.precision:.3f}, recall {m.recall:.3f}, F1 {m.f1:.3f}; false alarms {m.fp}")
+    head.append(f"threshold {shown.threshold(result.threshold)}; ")
+    head.append(f"precision {shown.share(m.precision)}, recall {shown.share(m.recall)}, F1 {shown.share(m.f1)}; "
+                f"false alarms {m.fp}")
     table = Table(box=box.SIMPLE_HEAD, show_edge=False)
     table.add_column("#", justify="right", style="dim")
     case_width = max([len(m.case) for m in result.misses] + [4])
@@ -90,9 +92,9 @@ def misses_table(result: MissesResult, limit: int | None = None, width: int | No
     ctx_cols = kept
     for c in ctx_cols:
         table.add_column(c, overflow="ellipsis", no_wrap=True, max_width=28)
-    shown = result.misses if limit is None else result.misses[:limit]
-    for k, miss in enumerate(shown, 1):
-        table.add_row(str(k), miss.case, fmt(miss.log_density), f"+{fmt(miss.margin)}",
+    listed = result.misses if limit is None else result.misses[:limit]
+    for k, miss in enumerate(listed, 1):
+        table.add_row(str(k), miss.case, shown.log_density(miss.log_density), shown.margin(miss.margin),
                       *[miss.context.get(c) or "" for c in ctx_cols])
     parts = [head, table]
     if limit is not None and len(result.misses) > limit:
@@ -102,8 +104,9 @@ def misses_table(result: MissesResult, limit: int | None = None, width: int | No
                           + ", ".join(result.unscored[:5]), style="yellow"))
     q = result.quality
     if q is not None and q.roc_auc is not None:
-        parts.append(Text(f"ranking on the labelled cases: ROC AUC {q.roc_auc:.3f}, average precision "
-                          f"{q.average_precision:.3f} (chance: 0.5 and {q.anomaly_share:.3f}); the threshold flags "
+        parts.append(Text(f"ranking on the labelled cases: ROC AUC {shown.share(q.roc_auc)}, average precision "
+                          f"{shown.share(q.average_precision)} (chance: 0.5 and {shown.share(q.anomaly_share)}); "
+                          f"the threshold flags "
                           f"{q.normal_flagged_share:.1%} of the labelled normal cases", style="dim"))
     for u in result.never_seen:
         parts.append(Text(u.describe(), style="yellow"))
@@ -121,10 +124,10 @@ def explain_table(result: ExplainResult) -> Group:
     verdict = "FLAGGED" if result.flagged else "not flagged"
     head.append(f"  {verdict}", style="bold red" if result.flagged else "bold")
     head.append(f"  ({result.model_kind} model)", style="dim")
-    shown = "-inf" if result.log_density == -math.inf else fmt(result.log_density)
-    head.append(f"\nlog-density {shown} vs threshold {fmt(result.threshold)}")
+    head.append(f"\nlog-density {shown.log_density(result.log_density)} vs threshold "
+                f"{shown.threshold(result.threshold)}")
     if math.isfinite(result.log_density):
-        head.append(f" (margin {result.margin:+.3f})")
+        head.append(f" (margin {shown.margin(result.margin)})")
     elif result.overflow:
         head.append(" (log-density minus infinity: a reading is so extreme that it overflows; flagged)")
     elif result.log_density == -math.inf:
@@ -149,15 +152,16 @@ def explain_table(result: ExplainResult) -> Group:
     broken = False
     for f in order:
         reading = f.value if f.reading is None else f.reading
-        row = [f.name, _short_num(reading)]
+        row = [f.name, shown.reading(reading)]
         if shaped:
-            row.append(_short_num(f.value) if f.value != reading else "")
-        row += [z_bar(f.z_reading), _signed(f.z_reading), fmt(f.percentile_reading, 1), _signed(f.contribution, "")]
+            row.append(shown.reading(f.value) if f.value != reading else "")
+        row += [z_bar(f.z_reading), shown.z(f.z_reading), shown.percentile(f.percentile_reading),
+                _signed(f.contribution, "")]
         if full:
             cz = f.conditional_z_reading
             mark = _relation_mark(f.z_reading, cz)
             broken = broken or bool(mark)
-            row.append((_signed(cz) if cz is not None else "n/a") + mark)
+            row.append(shown.z(cz) + mark)
         table.add_row(*row)
     note = Text(
         f"reading: the value before any transform; z: standard deviations from the normal mean, signed as the "
@@ -183,12 +187,6 @@ def _signed(x: float | None, sign: str = "+") -> str:
     if math.isinf(x):
         return "+inf" if x > 0 and sign else ("inf" if x > 0 else "-inf")
     return f"{x:{sign}.2f}" if abs(x) < 1e5 else f"{x:{sign}.2e}"
-
-
-def _short_num(x: float) -> str:
-    if x is None or not math.isfinite(x):
-        return "n/a"
-    return f"{x:.4g}" if abs(x) < 1e6 else f"{x:.3e}"
 
 
 def _relation_mark(z: float, cz: float | None) -> str:

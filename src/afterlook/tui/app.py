@@ -67,7 +67,9 @@ class WorkbenchApp(CasebookFlow, HistogramFlow, App[int]):
     CSS_PATH = "app.tcss"
     TITLE = "afterlook"
     ENABLE_COMMAND_PALETTE = False
-    BINDINGS = [Binding("ctrl+q", "quit", "quit", show=False, priority=True)]
+    # not a priority binding: while a box has the focus the screen's ctrl+q (shown in the footer there)
+    # answers first; elsewhere this one does (keys.py)
+    BINDINGS = [Binding("ctrl+q", "quit", "quit", show=False)]
 
     def __init__(self, session: wd.WorkbenchSession, *, auto_candidates: bool = True,
                  candidate_delay: float = CANDIDATE_DELAY, candidates_top: int = 10) -> None:
@@ -103,7 +105,8 @@ class WorkbenchApp(CasebookFlow, HistogramFlow, App[int]):
         self.trial_running: str | None = None
         # casebook
         self.book_ids: set[str] = set()
-        self.saved_this_session: list[str] = []  # for the lines printed after the workbench closes
+        self.saved_this_session: list[str] = []
+        self.held_notes: list[tuple[str, dict]] = []  # notifications waiting for a dialog to close (say)  # for the lines printed after the workbench closes
         self.book_loaded = False
         self.saving = False
         self.zoomed = False
@@ -184,6 +187,18 @@ class WorkbenchApp(CasebookFlow, HistogramFlow, App[int]):
             book_file=os.path.basename(self.session.casebook_path), book_loaded=self.book_loaded)
         if landed is not None and landed != self.selected_case:
             self.select_case(landed)
+        elif not self.rows and self.selected_case is not None:
+            self._select_nothing("no case matches the filter" if self.filter_text else "no case to show")
+
+    def _select_nothing(self, why: str) -> None:
+        """The list is empty: nothing is selected and no panel keeps showing the last case."""
+        self.selected_case, self.evidence = None, None
+        if self._candidate_timer is not None:
+            self._candidate_timer.stop()
+            self._candidate_timer = None
+        self.evidence_panel.clear(why)
+        if self.candidates_panel is not None:
+            self.candidates_panel.idle(None, why)
 
     def _flips(self) -> dict[str, str]:
         v = self.trial_view
@@ -238,7 +253,7 @@ class WorkbenchApp(CasebookFlow, HistogramFlow, App[int]):
 
     def check_action(self, action: str, parameters: tuple[object, ...]) -> bool | None:
         # "esc: back to the list" is offered (and shown in the footer) only while typing in a box
-        if action == "leave_input":
+        if action in ("leave_input", "help_while_typing", "quit_while_typing"):
             return isinstance(self.focused, Input)
         return True
 
@@ -267,10 +282,28 @@ class WorkbenchApp(CasebookFlow, HistogramFlow, App[int]):
             self._ensure_histogram()
 
     def action_help(self) -> None:
-        self.push_screen(HelpScreen())
+        self.push_screen(HelpScreen(), callback=lambda _: self.flush_notes())
+
+    def say(self, message: str, **kwargs) -> None:
+        """A notification, held back while a dialog is open (it would draw over it) and shown on return."""
+        if self.screen is self.workbench:
+            self.notify(message, **kwargs)
+        else:
+            self.held_notes.append((message, kwargs))
+
+    def flush_notes(self) -> None:
+        notes, self.held_notes = self.held_notes, []
+        for message, kwargs in notes:
+            self.notify(message, **kwargs)
 
     def action_quit(self) -> None:
         self.exit(0)
+
+    def action_help_while_typing(self) -> None:
+        self.action_help()
+
+    def action_quit_while_typing(self) -> None:
+        self.action_quit()
 
     # -- evidence -------------------------------------------------------------------
     def on_feature_highlighted(self, message: msg.FeatureHighlighted) -> None:
@@ -436,13 +469,14 @@ class WorkbenchApp(CasebookFlow, HistogramFlow, App[int]):
             self.try_panel.show(message.view)
         self.case_list.mark(book=self.book_ids, flips=self._flips())
         c = message.view.case
-        if c is not None:
-            self.notify(f"{c.case}: {c.words}; misses caught {message.view.misses_caught}, false alarms added "
-                        f"{message.view.false_alarms_added:+d}", title="try")
+        # the try tab shows these numbers itself: a toast there would only cover them
+        if c is not None and self.tabs.active != "try":
+            self.say(f"{c.case}: {c.words}; misses caught {message.view.misses_caught}, false alarms added "
+                     f"{message.view.false_alarms_added:+d}", title="try")
 
     # -- failures ------------------------------------------------------------------------
     def on_work_failed(self, message: msg.WorkFailed) -> None:
-        self.notify(message.message, title=message.what, severity="error", timeout=8)
+        self.say(message.message, title=message.what, severity="error", timeout=8)
         if message.what == "candidates":
             if self.candidates_running == message.case_id:
                 self.candidates_running = None

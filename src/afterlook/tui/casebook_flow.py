@@ -62,6 +62,7 @@ class CasebookFlow:
         # Back to the case list whatever the answer: never leave the focus in
         # the filter box, where the next key would silently filter the list.
         self.case_list.focus_table()
+        self.flush_notes()
         if request is None:
             return
         self.saving = True
@@ -86,5 +87,5 @@ class CasebookFlow:
         self.case_list.mark(book=self.book_ids, flips=self._flips())
         earlier = len((message.entry or {}).get("history") or [])
         kept = f"; {earlier} earlier review(s) kept in its history" if earlier else ""
-        self.notify(f"saved {message.case_id} as {message.status} to {os.path.basename(self.session.casebook_path)}"
-                    + kept, title="casebook")
+        self.say(f"saved {message.case_id} as {message.status} to {os.path.basename(self.session.casebook_path)}"
+                 + kept, title="casebook")

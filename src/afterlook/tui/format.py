@@ -77,6 +77,31 @@ def clip(text: str, width: int) -> str:
     return text if len(text) <= width else text[: max(width - 1, 0)] + "…"
 
 
+_NAME = __import__("re").compile(r"`[^`]*`|[A-Za-z_][A-Za-z0-9_]*")
+
+
+def squeeze(text: str, width: int, keep: tuple[str, ...] = ()) -> str:
+    """An expression cut to ``width`` by shortening its longest column names first, so that rows that
+    differ in a later name (``motor_cur… / hydraulic…`` vs ``motor_cur… / flow_m3h``) stay apart;
+    names in ``keep`` (the language's functions) are never cut. Falls back to :func:`clip`."""
+    text = plain(text)
+    if len(text) <= width:
+        return text
+    parts, last = [], 0
+    for m in _NAME.finditer(text):
+        parts += [text[last:m.start()], m.group(0)]
+        last = m.end()
+    parts.append(text[last:])
+    names = [k for k in range(1, len(parts), 2) if parts[k] not in keep]
+    floor = 4  # a name keeps at least three letters and the ellipsis
+    while sum(map(len, parts)) > width:
+        longest = max(names, key=lambda k: len(parts[k]), default=None)
+        if longest is None or len(parts[longest]) <= floor:
+            break
+        parts[longest] = parts[longest][:-2] + "…"  # one character shorter, ellipsis kept
+    return clip("".join(parts), width)
+
+
 _PATH = __import__("re").compile(r"(?:[A-Za-z]:)?[\\/](?:[^\s\\/()]+[\\/])+([^\s\\/()]+)")
 
 

@@ -37,6 +37,10 @@ WORKBENCH_KEYS: tuple[Key, ...] = (
     Key("z", "z", "zoom", "zoom", False),
     Key("question_mark", "?", "help", "help"),
     Key("q", "q", "quit", "quit"),
+    # while a box has the focus, ? and q are letters to type: these two keys work there, and the
+    # footer shows them only then (App.check_action), so help and quit are always on screen
+    Key("f1", "f1", "help_while_typing", "help"),
+    Key("ctrl+q", "ctrl+q", "quit_while_typing", "quit"),
 )
 
 HELP_WORDS = {
@@ -52,8 +56,8 @@ HELP_WORDS = {
     "save": "save the selected case to the casebook (status and note)",
     "zoom": "hide or show the case list, for more room below",
     "back to the list": "leave the filter or the expression box, back to the case list",
-    "help": "this help",
-    "quit": "quit (also ctrl+q)",
+    "help": "this help (f1 while typing in a box)",
+    "quit": "quit (ctrl+q while typing in a box)",
 }
 
 
@@ -65,4 +69,4 @@ def bindings() -> list[Binding]:
 
 
 def help_rows() -> list[tuple[str, str]]:
-    return [(k.shown, HELP_WORDS.get(k.what, k.what)) for k in WORKBENCH_KEYS]
+    return [(k.shown, HELP_WORDS.get(k.what, k.what)) for k in WORKBENCH_KEYS if not k.action.endswith("_while_typing")]

@@ -8,11 +8,15 @@ from textual.containers import Horizontal, Vertical
 from textual.widgets import DataTable, ProgressBar, Static
 
 from ...analysis.wording import candidate_verdict, heldout_gain_text, stability_text
+from ...analysis import shown
+from ...core.expressions import FUNCTIONS
 from .. import format as fmt
 from ..messages import CandidateChosen, CandidateHighlighted, PanelMounted
 
 VERDICT_WIDTH = 25
-NARROW_VERDICT_WIDTH = 9
+NARROW_VERDICT_WIDTH = 10
+# narrow panels: the verdict in one word that fits its column (the detail line below has it in full)
+SHORT_VERDICTS = {"holds-up": "holds up", "exposes-only": "exposes", "chance": "chance", "hurts": "hurts"}
 NARROW = 100  # panel width below which the verdict column is cut short
 # the columns other than the expression and the verdict, two cells of padding each, and the scrollbar
 FIXED_COLUMNS = 2 + 6 + 8 + 7 + 5 + 4 + 2 * 8 + 2
@@ -38,6 +42,7 @@ class CandidatesPanel(Vertical):
         yield DataTable(id="cand-table", cursor_type="row", zebra_stripes=True)
         yield Static("", id="cand-detail")
         yield Static("", id="cand-verdict")
+        yield Static("", id="cand-verdict-short")  # under 30 rows, in place of the two lines above
         yield Static(LEGEND, id="cand-legend")
 
     def on_mount(self) -> None:
@@ -55,7 +60,7 @@ class CandidatesPanel(Vertical):
         self._progress_visible(False)
         self.query_one("#cand-table", DataTable).clear(columns=True)
         self.query_one("#cand-detail", Static).update("")
-        self.query_one("#cand-verdict", Static).update("")
+        self._verdict("", "")
 
     def running(self, case_id: str) -> None:
         self.result, self.case_id = None, case_id
@@ -65,7 +70,7 @@ class CandidatesPanel(Vertical):
         self.query_one("#cand-stage", Static).update("starting")
         self.query_one("#cand-table", DataTable).clear(columns=True)
         self.query_one("#cand-detail", Static).update("")
-        self.query_one("#cand-verdict", Static).update("")
+        self._verdict("", "")
 
     def progress(self, stage: str, fraction: float) -> None:
         # The fraction comes from discovery.suggest; shown as a bar and the stage in words.
@@ -98,15 +103,15 @@ class CandidatesPanel(Vertical):
                 right = key not in ("expr", "verdict")
                 table.add_column(Text(label, justify="right") if right else label, key=key, width=w)
             for k, c in enumerate(result.candidates):
-                words = candidate_verdict(c)
+                words = SHORT_VERDICTS.get(c.verdict, candidate_verdict(c)) if narrow else candidate_verdict(c)
                 gain = heldout_gain_text(c)
                 found = stability_text(c)
                 good = c.verdict == "holds-up" or (not c.verdict and c.beyond_chance)
                 table.add_row(
                     Text(str(k + 1), justify="right"),
-                    Text(fmt.clip(c.expression, expr_width)),
-                    Text(fmt.signed(c.case_z, 1), justify="right"),
-                    Text(fmt.tail(c.adjusted_tail), justify="right"),
+                    Text(fmt.squeeze(c.expression, expr_width, FUNCTIONS)),
+                    Text(shown.z(c.case_z), justify="right"),
+                    Text(shown.tail(c.adjusted_tail), justify="right"),
                     Text(fmt.MISSING if gain == "n/a" else gain, justify="right"),
                     Text(fmt.MISSING if found == "n/a" else found, justify="right"),
                     Text(fmt.count_change(c.false_alarms_added), justify="right"),
@@ -124,7 +129,25 @@ class CandidatesPanel(Vertical):
                            style=finding)
         else:
             verdict.append(f"none ({result.recommended_reason()})", style=chance)
-        self.query_one("#cand-verdict", Static).update(verdict)
+        self._verdict(verdict, self._short_verdict(result))
+
+    def _verdict(self, long, short) -> None:
+        self.query_one("#cand-verdict", Static).update(long)
+        self.query_one("#cand-verdict-short", Static).update(short)
+
+    def _short_verdict(self, result) -> Text:
+        """The verdict and the recommendation in one line (the help screen and wider terminals say more)."""
+        finding, chance = self._style("candidates--finding"), self._style("candidates--chance")
+        n = result.beyond_chance_total or sum(c.beyond_chance for c in result.candidates)
+        t = Text(no_wrap=True, overflow="ellipsis")
+        t.append(f"{n} of {result.tried} beyond chance", style=finding if n else chance)
+        t.append(" · recommended: ", style="bold")
+        if result.recommended:
+            best = next(c for c in result.candidates if c.name == result.recommended)
+            t.append(f"{fmt.plain(best.name)} (held-out F1 {best.heldout.gain:+.3f}); a applies", style=finding)
+        else:
+            t.append("none (wider screen or ? says why)", style=chance)
+        return t
 
     def on_resize(self) -> None:
         # the expression column takes the room left: redraw for the new width, cursor kept

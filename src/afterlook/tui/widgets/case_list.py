@@ -7,6 +7,7 @@ from textual.app import ComposeResult
 from textual.containers import Horizontal, Vertical
 from textual.widgets import DataTable, Input, Label, Static
 
+from ...analysis import shown
 from .. import format as fmt
 from ..messages import CaseHighlighted, FilterChanged
 
@@ -85,7 +86,7 @@ class CaseList(Vertical):
                     Text("[book]", style=self._style("cases--book")) if r.case in book else "",
                     Text(fmt.clip(r.case, self.case_width)),
                     Text(KIND_WORDS.get(r.kind, r.kind), style=self._style(kind_style)),
-                    Text(fmt.signed(r.margin, 2), justify="right"),
+                    Text(shown.margin(r.margin), justify="right"),
                     Text(flips.get(r.case, ""), style=self._style("cases--flip")),
                     *[Text(fmt.clip(r.context.get(c) or "", w)) for c, w in self.context_columns.items()],
                     key=r.case,

@@ -15,6 +15,7 @@ from textual.containers import Vertical
 from textual.widgets import DataTable, Static
 
 from ...analysis.wording import BAR_FULL_SCALE, bar_cells
+from ...analysis import shown
 from .. import format as fmt
 from ..messages import FeatureHighlighted
 
@@ -74,6 +75,13 @@ class EvidencePanel(Vertical):
         if self.view is not None and self.narrow != self._drawn_narrow:
             self.show(self.view)
 
+    def clear(self, message: str) -> None:
+        """No case selected (e.g. a filter matches nothing): say so instead of keeping the last case's numbers."""
+        self.view = None
+        self.query_one("#evidence-head", Static).update(Text(fmt.plain(message), style=self._style("evidence--dim")))
+        self.query_one("#evidence-context", Static).update("")
+        self.query_one("#evidence-table", DataTable).clear(columns=True)
+
     def show(self, view) -> None:
         """Draw an :class:`~afterlook.analysis.workbench.EvidenceView`."""
         self.view = view
@@ -83,8 +91,8 @@ class EvidencePanel(Vertical):
         head.append(fmt.plain(ex.case), style="bold")
         head.append("  ")
         head.append(view.standing, style=self._style("evidence--flagged" if ex.flagged else "evidence--miss"))
-        head.append(f"\nlog-density {fmt.num(ex.log_density)} vs threshold {fmt.num(ex.threshold)}, margin "
-                    f"{fmt.signed(ex.margin, 3)}: {'flagged' if ex.flagged else 'not flagged'}")
+        head.append(f"\nlog-density {shown.log_density(ex.log_density)} vs threshold {shown.threshold(ex.threshold)}, "
+                    f"margin {shown.margin(ex.margin)}: {'flagged' if ex.flagged else 'not flagged'}")
         self.query_one("#evidence-head", Static).update(head)
         context = Text(no_wrap=True, overflow="ellipsis", style=self._style("evidence--dim"))
         context.append(fmt.plain("  ".join([f"{ex.model_kind} model"] + [f"{k} {v}" for k, v in ex.context.items() if v])))
@@ -112,15 +120,15 @@ class EvidencePanel(Vertical):
                 strong = r.reading.startswith("very")
                 cells = [
                     Text(fmt.clip(r.name, name_width - 2) + (" *" if r.transform else "")),
-                    Text(fmt.short(r.raw_value), justify="right"),
+                    Text(shown.reading(r.raw_value), justify="right"),
                     signed_bar(r.z, half, low + extreme if strong else low, high + extreme if strong else high),
-                    Text(fmt.signed(r.z), justify="right"),
+                    Text(shown.z(r.z), justify="right"),
                     Text(r.reading, style=extreme if strong else None),
                     Text(fmt.percent(r.percentile), justify="right"),
                     Text(fmt.percent(r.share, 0), justify="right"),
                 ]
                 if view.full_model:
-                    cells.append(Text(fmt.signed(r.conditional_z), justify="right"))
+                    cells.append(Text(shown.z(r.conditional_z), justify="right"))
                     cells.append(Text(r.relation, style=self._style("evidence--broken") if r.relation else None))
                 table.add_row(*cells, key=r.name)
             self.feature_names = [r.name for r in view.rows]

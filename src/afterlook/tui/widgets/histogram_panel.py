@@ -13,6 +13,7 @@ from textual.containers import Horizontal, Vertical
 from textual.widgets import Button, Static
 
 from ...core.histograms import STEPS_PER_CELL, bar_heights
+from ...analysis import shown
 from .. import format as fmt
 from ..messages import HistogramResized, HistogramShapedToggled, HistogramStep, PanelMounted
 
@@ -23,11 +24,28 @@ MARGIN = 2  # columns left free on the right
 WIDE = 100  # panel width from which each bin is two characters wide
 
 
-def others_glyph(n: int) -> str:
-    """Other anomalies in a bin: a digit, '+' for ten or more, blank for none."""
+# One character per bin leaves no room between counts (``1127`` reads as a number), so
+# narrow panels mark each bin by a three-step scale whose legend names the steps shown.
+NARROW_MARKS = (("·", 1, 1), ("•", 2, 9), ("●", 10, None))
+
+
+def others_glyph(n: int, cell: int = 2) -> str:
+    """Other anomalies in a bin: a digit ('+' for ten or more) on two-character bins, else a mark; blank for none."""
     if n <= 0:
         return " "
-    return str(n) if n < 10 else "+"
+    if cell >= 2:
+        return str(n) if n < 10 else "+"
+    return next(mark for mark, low, high in NARROW_MARKS if n >= low and (high is None or n <= high))
+
+
+def others_legend(counts, cell: int) -> str:
+    """What the strip under the axis means, naming only the marks that appear."""
+    if cell >= 2:
+        return "digits: other labelled anomalies per bin (+ = ten or more)"
+    present = {others_glyph(int(n), cell) for n in counts if n > 0}
+    words = {"·": "· 1", "•": "• 2-9", "●": "● 10 or more"}
+    steps = ", ".join(words[m] for m, _, _ in NARROW_MARKS if m in present)
+    return "marks: other labelled anomalies per bin" + (f" ({steps})" if steps else "")
 
 
 class HistogramPanel(Vertical):
@@ -72,6 +90,9 @@ class HistogramPanel(Vertical):
     def bins(self) -> int:
         return max(10, (self.size.width - MARGIN) // self.cell)
 
+    def _cell_for(self, bins: int) -> int:
+        return max(1, self.cell if bins * self.cell <= self.size.width else 1)
+
     def on_resize(self) -> None:
         self.post_message(HistogramResized(self.bins))
         self._draw()
@@ -105,7 +126,7 @@ class HistogramPanel(Vertical):
         h = v.counts
         legend.update(Text(
             f"bars: normal population, {v.n_normal} rows ({h.normal_below} left, {h.normal_above} right of the "
-            f"range) · ┊▲ this case · digits: other labelled anomalies per bin, {h.n_others} "
+            f"range) · ┊▲ this case · {others_legend(h.others, self._cell_for(h.bins))}, {h.n_others} in all "
             f"({h.others_below} left, {h.others_above} right)", style=self._style("histogram--dim")))
         plot.update(self.render_plot(plot.size.height or (self.size.height - 4)))
 
@@ -122,7 +143,7 @@ class HistogramPanel(Vertical):
         if v.shape_note:
             out.append(f" · {v.shape_note}", style=dim)
         out.append(f" · tallest bar {int(h.normal.max())} normal rows\n", style=dim)
-        cell = max(1, self.cell if bins * self.cell <= self.size.width else 1)
+        cell = self._cell_for(bins)
         for r in range(rows - 1, -1, -1):
             for k in range(bins):
                 level = int(min(max(heights[k] - r * STEPS_PER_CELL, 0), STEPS_PER_CELL))
@@ -132,11 +153,11 @@ class HistogramPanel(Vertical):
                     out.append(EIGHTHS[level] * cell, style=normal_style)
             out.append("\n")
         width = bins * cell
-        lo, hi = fmt.short(float(h.edges[0])), fmt.short(float(h.edges[-1]))
+        lo, hi = shown.reading(float(h.edges[0])), shown.reading(float(h.edges[-1]))
         out.append(lo + " " * max(1, width - len(lo) - len(hi)) + hi + "\n", style=dim)
         # the case marker line: ▲ under the case's bin, its description after it (or before, near the right)
         at = h.case_bin * cell
-        label = f"▲ {fmt.plain(v.case)} = {fmt.short(h.case_value)}, {fmt.percent(v.normal_below_case)} of normal below"
+        label = f"▲ {fmt.plain(v.case)} = {shown.reading(h.case_value)}, {fmt.percent(v.normal_below_case)} of normal below"
         if h.case_bin < 0:
             out.append(f"this case has no value here ({fmt.MISSING})\n", style=case_style)
         elif at + len(label) <= width:
@@ -145,6 +166,6 @@ class HistogramPanel(Vertical):
             left = label[2:] + " ▲"
             out.append(" " * max(0, at - len(left) + 1) + left + "\n", style=case_style)
         for k in range(bins):
-            out.append(others_glyph(int(h.others[k])).ljust(cell), style=others_style)
+            out.append(others_glyph(int(h.others[k]), cell).ljust(cell), style=others_style)
         out.append("\n")
         return out

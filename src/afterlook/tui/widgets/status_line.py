@@ -6,6 +6,7 @@ from rich.text import Text
 from textual.reactive import reactive
 from textual.widgets import Static
 
+from ...analysis import shown
 from .. import format as fmt
 
 SEP = " │ "
@@ -26,25 +27,34 @@ class StatusLine(Static):
         head = [
             ("afterlook", "status--brand"),
             (f"{s.model_file} ({s.model_kind}, {s.n_features} features)", "status--strong"),
-            (f"threshold {fmt.num(s.threshold)}", "status--strong"),
+            (f"threshold {shown.threshold(s.threshold)}", "status--strong"),
             (s.policy, ""),
             (f"chosen on {s.chosen_on}", "status--dim"),
         ]
+        # colour follows meaning: a count is drawn as a warning only when it is not zero
+        misses = (f"{s.n_misses} misses", "status--miss" if s.n_misses else "status--dim")
+        alarms = (f"{s.n_false_alarms} false alarms", "status--alarm" if s.n_false_alarms else "status--dim")
         counts_long = [
             (f"{s.n_cases} cases", ""),
             (f"{s.n_anomalies} anomalies", ""),
-            (f"{s.n_misses} misses", "status--miss"),
-            (f"{s.n_false_alarms} false alarms", "status--alarm"),
-            (f"precision {fmt.num(s.precision)}  recall {fmt.num(s.recall)}  F1 {fmt.num(s.f1)}", "status--strong"),
+            misses,
+            alarms,
+            (f"precision {shown.share(s.precision)}  recall {shown.share(s.recall)}  F1 {shown.share(s.f1)}",
+             "status--strong"),
         ]
-        counts_short = counts_long[:4] + [
-            (f"prec {fmt.num(s.precision)} rec {fmt.num(s.recall)} F1 {fmt.num(s.f1)}", "status--strong")]
+        # narrow screens: the same facts in fewer letters, never fewer facts (P = precision, R = recall)
+        counts_short = [
+            (f"{s.n_anomalies} of {s.n_cases} anomalous", ""),
+            misses,
+            alarms,
+            (f"P {shown.share(s.precision)} R {shown.share(s.recall)} F1 {shown.share(s.f1)}", "status--strong"),
+        ]
         tail = []
         if s.n_unscored:
             tail.append((f"{s.n_unscored} anomalies not scored (NaN)", "status--alarm"))
         auc = []
         if s.roc_auc is not None:
-            auc = [(f"AUC {fmt.num(s.roc_auc)}  AP {fmt.num(s.average_precision)}",
+            auc = [(f"AUC {shown.share(s.roc_auc)}  AP {shown.share(s.average_precision)}",
                     "status--alarm" if s.warnings else "status--dim")]
         counts = counts_long + tail + auc
         if _length(counts) > width:

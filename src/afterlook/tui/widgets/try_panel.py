@@ -10,6 +10,7 @@ from textual.containers import VerticalScroll
 from textual.widgets import Input, Static
 
 from ...analysis.wording import flip_words
+from ...analysis import shown
 from .. import format as fmt
 from ..messages import ExpressionEdited, ExpressionSubmitted, PanelMounted
 
@@ -96,7 +97,11 @@ class TryPanel(VerticalScroll):
             if m.integer:
                 t.add_row(Text(fmt.plain(m.name)), str(m.before), str(m.after), fmt.count_change(m.change))
             else:
-                t.add_row(Text(fmt.plain(m.name)), fmt.num(m.before), fmt.num(m.after), fmt.signed(m.change, 3))
+                if m.name == "threshold":
+                    cells = (shown.threshold(m.before), shown.threshold(m.after), shown.margin(m.change))
+                else:
+                    cells = (shown.share(m.before), shown.share(m.after), shown.share_change(m.change))
+                t.add_row(Text(fmt.plain(m.name)), *cells)
         self.query_one("#trial-metrics", Static).update(t)
 
         case = Text()
@@ -104,10 +109,11 @@ class TryPanel(VerticalScroll):
         if c is not None:
             case.append("\n")
             case.append(f"{fmt.plain(c.case)}: ", style="bold")
-            case.append(f"log-density {fmt.num(c.log_density_before)} vs threshold {fmt.num(view.threshold_before)} "
-                        f"(margin {fmt.signed(view.margin_before, 3)}, {'flagged' if c.flagged_before else 'not flagged'})")
-            case.append(f"\n  → {fmt.num(c.log_density_after)} vs {fmt.num(view.threshold_after)} "
-                        f"(margin {fmt.signed(view.margin_after, 3)}, {'flagged' if c.flagged_after else 'not flagged'})")
+            case.append(f"log-density {shown.log_density(c.log_density_before)} vs threshold "
+                        f"{shown.threshold(view.threshold_before)} (margin {shown.margin(view.margin_before)}, "
+                        f"{'flagged' if c.flagged_before else 'not flagged'})")
+            case.append(f"\n  → {shown.log_density(c.log_density_after)} vs {shown.threshold(view.threshold_after)} "
+                        f"(margin {shown.margin(view.margin_after)}, {'flagged' if c.flagged_after else 'not flagged'})")
             case.append("  ")
             case.append(c.words.upper(), style=self._style("try--flagged" if c.flagged_after else "try--unflagged"))
         self.query_one("#trial-case", Static).update(case)
@@ -119,7 +125,7 @@ class TryPanel(VerticalScroll):
             flips.append(f"\n{title}: {n} ({n_anomaly} labelled anomaly, {n_normal} labelled normal)", style="bold")
             for r in rows[:FLIPS_SHOWN]:
                 flips.append(f"\n  {'+' if r.flagged_after else '-'} {fmt.plain(r.case)}  {r.label:<7}  "
-                             f"{fmt.num(r.log_density_before, 2)} → {fmt.num(r.log_density_after, 2)}")
+                             f"{shown.log_density(r.log_density_before)} → {shown.log_density(r.log_density_after)}")
             if len(rows) > FLIPS_SHOWN:
                 flips.append(f"\n  … {len(rows) - FLIPS_SHOWN} more", style=self._style("try--dim"))
         self.query_one("#trial-flips", Static).update(flips)
