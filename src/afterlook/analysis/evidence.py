@@ -158,6 +158,7 @@ class ExplainResult:
     context: dict
     model_kind: str
     outside_domain: bool = False  # -inf because a feature is undefined on finite readings (not an overflow)
+    percentiles: bool = True  # False for an imported model: no training rows, no quantile grid
 
     @property
     def overflow(self) -> bool:
@@ -230,4 +231,5 @@ def explain_case(session: Session, case_id) -> ExplainResult:
     label = None if sc.labels is None else bool(sc.labels[i])
     domain = sc.outside_domain is not None and bool(sc.outside_domain[i])
     return ExplainResult(str(sc.table.ids[i]), float(sc.log_density[i]), model.threshold, ev,
-                         bool(sc.flagged[i]), label, case_context(sc.table, i), model.describe_kind(), domain)
+                         bool(sc.flagged[i]), label, case_context(sc.table, i), model.describe_kind(), domain,
+                         model.quantiles is not None)

@@ -258,7 +258,8 @@ def _md_entry(e: dict) -> list[str]:
         h = d.get("histogram") or {}
         out += ["", f"Deciding feature {md_code(d.get('name', ''))} ({md_text(d.get('why', ''))}): case value "
                 f"{_num(d.get('value'))}, z {_signed(d.get('z'))}, percentile {_num(d.get('percentile'), '.1f')} "
-                f"among {h.get('rows', 0)} {md_text(h.get('population', 'rows'))}."]
+                + (f"among {h.get('rows', 0)} {md_text(h.get('population', 'rows'))}." if h else
+                   "(normal population not available for an imported model).")]
     warnings = e.get("warnings") or []
     if warnings:
         out += [""] + [f"> {md_text(w)}" for w in warnings]

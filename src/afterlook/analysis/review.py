@@ -290,6 +290,8 @@ def _histogram(model: Model, feature: str, population) -> dict:
         values = model.recipe.apply(numeric_columns_of(frame, model.recipe.required_columns())).values[:, j]
         where = (f"normal rows of {os.path.basename(population.path)}" if population.path
                  else "cases labelled normal")
+    elif model.quantiles is None:
+        return None  # an imported model without --train: no normal rows to draw (the schema allows null)
     else:
         values = model.quantiles[:, j]
         where = f"the model's quantile grid ({model.quantiles.shape[0]} points)"
