@@ -7,6 +7,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from .frames import Tabular
 from ..core.errors import AfterlookError
 from ..core.explain import FeatureEvidence, evidence, transform_direction
 from ..core.recipe import apply_transform
@@ -32,7 +33,7 @@ class Miss:
 
 
 @dataclass
-class MissesResult:
+class MissesResult(Tabular):
     """Misses (labelled anomalies left unflagged), worst margin first."""
 
     threshold: float
@@ -146,7 +147,7 @@ def never_seen_values(model, table) -> list[UnseenValue]:
 
 
 @dataclass
-class ExplainResult:
+class ExplainResult(Tabular):
     """Per-feature evidence for one case."""
 
     case: str

@@ -45,6 +45,7 @@ from typing import Callable
 import numpy as np
 import pandas as pd
 
+from .frames import Tabular
 from ..core.errors import AfterlookError
 from ..core.histograms import range_counts
 from ..core.numbers import finite_or_none
@@ -331,7 +332,7 @@ def add_to_casebook(book_path, model, cases, case_id, status, *, derive=None, no
 
 
 @dataclass
-class CheckResult:
+class CheckResult(Tabular):
     """Outcome of re-scoring a casebook's cases with a model."""
 
     entries: int
