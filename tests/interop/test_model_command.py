@@ -143,3 +143,19 @@ def test_export_refuses_to_overwrite_what_it_did_not_write(run_cli, demo_written
 def test_model_without_action_is_one_line(run_cli):
     code, _, err = run_cli("model")
     assert code == 2 and "import or export" in err
+
+
+def test_undefined_policy_from_the_command_line(run_cli, tmp_path):
+    doc = {"columns": ["a", "r"], "mean": [1.0, 1.0], "variances": [1.0, 1.0], "threshold": -10.0,
+           "derive": [{"name": "r", "expression": "a / b"}]}
+    (tmp_path / "p.json").write_text(json.dumps(doc))
+    (tmp_path / "c.csv").write_text("id,a,b\nx,1,0\ny,1,1\n")
+    for policy, expected in (("flag", [True, False]), ("skip", [False, False])):
+        out_model = tmp_path / f"{policy}.json"
+        code, _, err = run_cli("model", "import", str(tmp_path / "p.json"), "--out", str(out_model),
+                               "--undefined", policy)
+        assert code == 0, err
+        model = afterlook.load_model(out_model)
+        assert model.undefined == policy
+        frame = afterlook.load_table(tmp_path / "c.csv").frame
+        assert list(model.score(frame)["flagged"]) == expected  # x: a / 0 is outside r's domain

@@ -33,6 +33,9 @@ def register(sub, add_common, add_table_opts, caution) -> dict:
     p.add_argument("--threshold", help="f1 | rate:R | value:V, overriding the file's threshold (default: the "
                                        "file's; else f1 with labelled cases; else rate:0.01 of the model's own "
                                        "Gaussian)")
+    p.add_argument("--undefined", choices=("flag", "skip"),
+                   help="a case whose feature is undefined on finite readings: flag it as outside the feature's "
+                        "domain or leave it unscored (default: the file's 'undefined', else flag)")
     add_table_opts(p)
     add_common(p)
 
@@ -65,6 +68,8 @@ def run_import(args) -> int:
     policy = parse_policy(args.threshold) if args.threshold else None
     doc = read_parameters(args.params)
     cases = load_table(args.cases, **table_options(args), require_labels=True) if args.cases else None
+    if args.undefined:
+        doc = {**doc, "undefined": args.undefined}
     model = model_from_parameters_document(doc, threshold=policy, cases=cases,
                                            source=f"parameter file {args.params}")
     model.save(args.out)
