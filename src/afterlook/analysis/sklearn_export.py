@@ -35,7 +35,7 @@ import io
 import numpy as np
 from sklearn.base import BaseEstimator, OutlierMixin, TransformerMixin
 from sklearn.pipeline import Pipeline
-from sklearn.utils.validation import check_is_fitted, validate_data
+from sklearn.utils.validation import check_array, check_is_fitted, validate_data
 
 from ..core.errors import AfterlookError
 from ..core.gaussian import GaussianModel
@@ -77,6 +77,8 @@ class RecipeFeatures(TransformerMixin, BaseEstimator):
             raise ValueError(exc.message) from None
         self.feature_names_in_ = np.asarray(self.recipe_.required_columns(), dtype=object)
         self.n_features_in_ = len(self.feature_names_in_)
+        if X is not None:  # the recipe is fixed: fit only checks that X carries its columns
+            self._columns(X)
         return self
 
     def transform(self, X):
@@ -104,10 +106,11 @@ class RecipeFeatures(TransformerMixin, BaseEstimator):
             if missing:
                 raise ValueError(f"the table has no column '{missing[0]}', which the model uses")
             return {c: _float_column(X[c]) for c in names}
-        A = np.asarray(X, dtype=np.float64)
-        if A.ndim != 2 or A.shape[1] != len(names):
-            raise ValueError(f"X has {A.shape[-1] if A.ndim else 0} features, but RecipeFeatures expects "
-                             f"{len(names)} ({', '.join(names)}); pass a DataFrame with those columns")
+        # scikit-learn's own validation first (2-D, dense, real, not empty), with its usual messages
+        A = check_array(X, dtype=np.float64, ensure_all_finite=False)
+        if A.shape[1] != len(names):
+            raise ValueError(f"X has {A.shape[1]} features, but RecipeFeatures is expecting {len(names)} features "
+                             f"as input ({', '.join(names)}); pass a DataFrame with those columns")
         return {c: A[:, j] for j, c in enumerate(names)}
 
     def get_feature_names_out(self, input_features=None):
@@ -204,7 +207,8 @@ class GaussianDetector(OutlierMixin, BaseEstimator):
 def _set_parameters(density: GaussianModel, location, covariance, d: int) -> None:
     mean = np.asarray(location, dtype=np.float64)
     if mean.shape != (d,):
-        raise AfterlookError(f"location has {mean.size} values for {d} features")
+        raise AfterlookError(f"X has {d} features, but GaussianDetector is expecting {mean.size} features as input "
+                             "(its location is fixed)")
     density.mean_ = mean
     if density.kind == "independent":
         density._set_variances(np.asarray(covariance, dtype=np.float64).reshape(d))
