@@ -142,12 +142,13 @@ class Model:
     def to_dict(self) -> dict:
         if self.quantiles is None:
             raise AfterlookError("this model was fitted without its quantile grid and cannot be saved")
+        recipe = self.recipe.to_dict()
         return {
             "format": model_file.FORMAT,
-            "version": model_file.VERSION,
+            "version": model_file.version_for(recipe),
             "tool_version": self.tool_version,
             "created": self.created,
-            "recipe": self.recipe.to_dict(),
+            "recipe": recipe,
             "model": self.density.to_dict(),
             "threshold": {
                 "value": self.threshold,

@@ -404,6 +404,7 @@ def _raw_values(session: WorkbenchSession, source: HistogramSource) -> tuple[np.
     if source.kind == "feature":
         return session.scope("normal")[source.name], session.scope("cases")[source.name]
     expr = expressions.parse(source.expression, known_columns=session.known_columns)
+    expr = expr.fit(session.scope("normal", expr.columns))  # zscore(...) frozen on the normal rows, as a fit does
     normal = expr.evaluate(session.scope("normal", expr.columns))
     cases = expr.evaluate(session.scope("cases", expr.columns))
     return normal, cases
