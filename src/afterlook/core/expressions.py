@@ -32,6 +32,7 @@ from typing import Callable, Mapping
 import numpy as np
 
 from . import frozen as frozen_calls
+from . import units as unit_stats
 from .errors import AfterlookError
 
 MAX_LENGTH = 2000  # characters; a derived feature is a formula, not a program
@@ -46,7 +47,7 @@ _UNARY_FUNCTIONS: dict[str, Callable[[np.ndarray], np.ndarray]] = {
 }
 _VARIADIC_FUNCTIONS = {"min": np.minimum, "max": np.maximum}  # NaN propagates
 FUNCTIONS = tuple(sorted([*_UNARY_FUNCTIONS, *_VARIADIC_FUNCTIONS, "clip", *frozen_calls.STATEFUL,
-                          *frozen_calls.NAMED]))
+                          *frozen_calls.NAMED, *unit_stats.RECENT]))
 
 _BINARY_OPS = {
     ast.Add: np.add,
@@ -88,6 +89,7 @@ class Expression:
     _call_nodes: Mapping[str, ast.Call] = field(default_factory=dict, repr=False, compare=False)
     _call_keys: Mapping[int, str] = field(default_factory=dict, repr=False, compare=False)  # id(node) -> key
     frozen: Mapping[str, dict] = field(default_factory=dict, repr=False, compare=False)
+    history: int = 0  # earlier readings of the unit a row needs (lag k, rolling n - 1; summed: an upper bound)
 
     @property
     def is_fitted(self) -> bool:
@@ -109,14 +111,16 @@ class Expression:
         if not self.calls:
             return self
         env, n = self._env(normal)
+        context = _context(normal)
         done: dict[str, dict] = {}
         with np.errstate(all="ignore"):
             for key in self.calls:
                 node = self._call_nodes[key]
-                values = _Evaluator(env, done, self._call_keys, self.text).visit(node.args[0])
-                values = np.broadcast_to(np.asarray(values, dtype=np.float64), (n if n is not None else 1,))
                 try:
-                    done[key] = frozen_calls.fit_call(node.func.id, key[len(node.func.id) + 1:-1], values)
+                    values = _Evaluator(env, done, self._call_keys, self.text, context).visit(node.args[0])
+                    values = np.broadcast_to(np.asarray(values, dtype=np.float64), (n if n is not None else 1,))
+                    done[key] = frozen_calls.fit_call(node.func.id, key[len(node.func.id) + 1:-1], values,
+                                                      context[0])
                 except AfterlookError as exc:
                     raise AfterlookError(f"expression '{_short(self.text)}': {exc.message}") from None
         return replace(self, frozen=done)
@@ -144,7 +148,7 @@ class Expression:
         """
         env, n = self._env(columns)
         with np.errstate(all="ignore"):
-            out = _Evaluator(env, self.frozen, self._call_keys, self.text).visit(self._tree)
+            out = _Evaluator(env, self.frozen, self._call_keys, self.text, _context(columns)).visit(self._tree)
             out = np.asarray(out, dtype=np.float64)
             if out.ndim == 0:
                 out = np.full(n if n is not None else 1, float(out))
@@ -214,7 +218,7 @@ def parse(text: str, known_columns: list[str] | tuple[str, ...] | None = None) -
         call_keys[id(node)] = key
         call_nodes.setdefault(key, node)
     expr = Expression(text=source, columns=tuple(ordered), _tree=tree.body, _names=names,
-                      calls=tuple(call_nodes), _call_nodes=call_nodes, _call_keys=call_keys)
+                      calls=tuple(call_nodes), _call_nodes=call_nodes, _call_keys=call_keys, history=checker.history)
     if known_columns is not None:
         known = list(known_columns)
         for col in expr.columns:
@@ -262,6 +266,7 @@ class _Checker:
     def __init__(self, back: dict[str, str], names: dict[str, str], ordered: list[str], source: str):
         self.back, self.names, self.ordered, self.source = back, names, ordered, source
         self.stateful: list[ast.Call] = []
+        self.history = 0
 
     def fail(self, what: str) -> None:
         raise AfterlookError(f"expression '{_short(self.source)}': {what} is not allowed")
@@ -322,6 +327,13 @@ class _Checker:
                 if _number_of(node.args[1]) is None:
                     raise AfterlookError(f"expression '{_short(self.source)}': the power p of {name}(x, p) must "
                                          "be a number")
+            if name in unit_stats.RECENT:
+                what = unit_stats.RECENT[name]
+                count = _number_of(node.args[1]) if n == 2 else None
+                if n != 2 or count is None or count != int(count) or count < 1 or count > 100_000:
+                    raise AfterlookError(f"expression '{_short(self.source)}': {name}() takes (x, {what}) with {what} "
+                                         "a whole number of readings, at least 1")
+                self.history += int(count) - (1 if name == "rolling_median" else 0)
             for arg in node.args:
                 if isinstance(arg, ast.Starred):
                     self.fail("'*' unpacking")
@@ -345,8 +357,9 @@ class _Evaluator(ast.NodeVisitor):
     so ``1 / (x / 0)`` stays NaN instead of quietly turning into 0."""
 
     def __init__(self, env: Mapping[str, np.ndarray], frozen: Mapping[str, dict] | None = None,
-                 call_keys: Mapping[int, str] | None = None, text: str = ""):
+                 call_keys: Mapping[int, str] | None = None, text: str = "", context=(None, None)):
         self.env = env
+        self.units, self.times = context
         self.frozen = frozen or {}
         self.call_keys = call_keys or {}
         self.text = text
@@ -377,6 +390,13 @@ class _Evaluator(ast.NodeVisitor):
         name = node.func.id
         if name in frozen_calls.NAMED:
             return frozen_calls.apply_named(name, self.visit(node.args[0]), _number_of(node.args[1]))
+        if name in unit_stats.RECENT:
+            values = np.asarray(self.visit(node.args[0]), dtype=np.float64)
+            if values.ndim == 0:
+                values = np.full(len(self.units) if self.units is not None else 1, float(values))
+            fn = unit_stats.lag if name == "lag" else unit_stats.rolling_median
+            return fn(values, int(_number_of(node.args[1])), self.units, self.times,
+                      f"{name}() in '{_short(self.text)}'")
         args = [self.visit(a) for a in node.args]
         if name in frozen_calls.STATEFUL:
             key = self.call_keys[id(node)]
@@ -384,7 +404,7 @@ class _Evaluator(ast.NodeVisitor):
             if params is None:
                 raise AfterlookError(f"expression '{_short(self.text)}': {_short(key)} has no statistics frozen "
                                      "from normal rows (fit it on the normal population first)")
-            return frozen_calls.apply_call(name, args[0], params)
+            return frozen_calls.apply_call(name, args[0], params, self.units)
         if name in _UNARY_FUNCTIONS:
             return _UNARY_FUNCTIONS[name](np.asarray(args[0], dtype=np.float64))
         if name in _VARIADIC_FUNCTIONS:
@@ -419,6 +439,16 @@ def _unparse(node: ast.AST, names: Mapping[str, str], parent_prec: int = 0, righ
         text = f"{left} {_BINARY_SYMBOLS[type(node.op)]} {right_text}"
         return f"({text})" if prec < parent_prec else text
     raise AfterlookError(f"cannot print '{type(node).__name__}'")  # pragma: no cover
+
+
+def _context(columns: Mapping) -> tuple:
+    """The rows' unit labels and time keys, when the layer that read the table put them in ``columns``."""
+    try:
+        units = columns[unit_stats.UNITS] if unit_stats.UNITS in columns else None
+        times = columns[unit_stats.TIMES] if unit_stats.TIMES in columns else None
+    except KeyError:
+        return None, None
+    return units, times
 
 
 def _number_of(node: ast.AST) -> float | None:

@@ -28,6 +28,9 @@ transform of a column reads as one word):
     (2000), Biometrika 87(4), 954-959), computed by ``scipy.stats.yeojohnson``
     with ``lmbda=p``; defined for every real ``x``.
 
+``unit_median(x)``, ``unit_scale(x)``
+    Each unit's own baseline, frozen per unit (see :mod:`afterlook.core.units`).
+
 ``p`` must be a number written in the expression (a power chosen once, not a
 column).
 
@@ -41,10 +44,11 @@ from __future__ import annotations
 
 import numpy as np
 
+from . import units as unit_stats
 from .errors import AfterlookError
 
 #: Functions that need statistics frozen at fit, and their number of arguments.
-STATEFUL = {"zscore": 1}
+STATEFUL = {"zscore": 1, "unit_median": 1, "unit_scale": 1}
 #: Named stateless transforms: (x, p) with p a number.
 NAMED = {"boxcox": 2, "yeojohnson": 2}
 
@@ -57,8 +61,9 @@ def call_key(function: str, argument: str) -> str:
     return f"{function}({argument})"
 
 
-def fit_call(function: str, argument: str, values: np.ndarray) -> dict:
-    """Statistics of ``function`` frozen from ``values`` (its argument over the normal rows).
+def fit_call(function: str, argument: str, values: np.ndarray, units=None) -> dict:
+    """Statistics of ``function`` frozen from ``values`` (its argument over the normal rows;
+    ``units``: each row's unit label, for the per-unit baselines).
 
     Raises :class:`AfterlookError` when the statistic is undefined (a constant
     argument, fewer than two finite values).
@@ -66,6 +71,8 @@ def fit_call(function: str, argument: str, values: np.ndarray) -> dict:
     x = np.asarray(values, dtype=np.float64)
     x = x[np.isfinite(x)]
     key = call_key(function, argument)
+    if function in unit_stats.BASELINES:
+        return unit_stats.fit_baseline(function, argument, key, values, units)
     if function == "zscore":
         if x.size < 2:
             raise AfterlookError(f"{key}: {x.size} finite normal value(s); a z-score needs at least 2")
@@ -78,8 +85,11 @@ def fit_call(function: str, argument: str, values: np.ndarray) -> dict:
     raise AfterlookError(f"unknown stateful function '{function}'")  # pragma: no cover - the parser checks
 
 
-def apply_call(function: str, values: np.ndarray, params: dict) -> np.ndarray:
-    """``function`` of ``values`` with its frozen statistics ``params``."""
+def apply_call(function: str, values: np.ndarray, params: dict, units=None) -> np.ndarray:
+    """``function`` of ``values`` with its frozen statistics ``params`` (``units``: each row's unit)."""
+    if function in unit_stats.BASELINES:
+        n = np.asarray(values).shape[0] if np.ndim(values) else (len(units) if units is not None else 1)
+        return unit_stats.apply_baseline(params, units, n, call_key(function, params["argument"]))
     if function == "zscore":
         return (np.asarray(values, dtype=np.float64) - params["mean"]) / params["sd"]
     raise AfterlookError(f"unknown stateful function '{function}'")  # pragma: no cover
@@ -121,6 +131,12 @@ def frozen_from_list(items) -> dict[str, dict]:
         function, argument = item.get("function"), item.get("argument")
         if function not in STATEFUL or not isinstance(argument, str):
             raise AfterlookError(f"recipe.frozen: unknown function {function!r}")
+        if function in unit_stats.BASELINES:
+            fleet, per_unit = item.get("fleet"), item.get("units")
+            numbers = [fleet, *(per_unit.values() if isinstance(per_unit, dict) else [None])]
+            if not all(isinstance(v, (int, float)) and not isinstance(v, bool) and np.isfinite(v) for v in numbers):
+                raise AfterlookError(f"recipe.frozen: {call_key(function, argument)} needs a finite fleet value and "
+                                     "finite unit values")
         if function == "zscore":
             mean, sd = item.get("mean"), item.get("sd")
             if not all(isinstance(v, (int, float)) and not isinstance(v, bool) for v in (mean, sd)) \

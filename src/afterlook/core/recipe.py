@@ -242,6 +242,11 @@ class Recipe:
         """Keys of the calls whose statistics :meth:`fit` freezes, in order of use."""
         return list(dict.fromkeys(k for name, _ in self.derived for k in self._parsed[name].calls))
 
+    @property
+    def history(self) -> int:
+        """Earlier readings of its unit a row needs for every feature (lag, rolling_median; an upper bound)."""
+        return sum(self._parsed[name].history for name, _ in self.derived)
+
     def needs_fit(self) -> bool:
         """Whether :meth:`fit` has something to compute: a lambda or a frozen statistic."""
         return (any(t.kind in POWER_KINDS and t.lmbda is None for t in self.transforms.values())
