@@ -53,3 +53,29 @@ def test_time_without_unit_and_the_streamed_engine_are_refused(fitted, run_cli):
     code, _, err = run_cli("fit", str(fitted / "train.csv"), "--out", str(fitted / "y.json"), "--unit-col",
                            "station", "--engine", "chunked")
     assert code == 2 and "need the memory engine" in err
+
+
+def test_context_gives_the_cases_their_units_past(fitted, run_cli, one_json, tmp_path):
+    cases = pd.read_csv(fitted / "cases.csv").sort_values("hour", kind="mergesort")
+    half = len(cases) // 2
+    cases.iloc[:half].to_csv(tmp_path / "early.csv", index=False)
+    cases.iloc[half:].to_csv(tmp_path / "late.csv", index=False)
+    model = str(fitted / "m.json")
+
+    def scores(*args):
+        code, out, err = run_cli("score", model, *args, "--json")
+        assert code == 0, err
+        return {r["case"]: r["log_density"] for r in one_json(out)["rows"]}, err
+
+    full, _ = scores(str(fitted / "cases.csv"))
+    alone, err = scores(str(tmp_path / "late.csv"))
+    with_past, err_past = scores(str(tmp_path / "late.csv"), "--context", str(tmp_path / "early.csv"))
+    assert sum(v is None for v in alone.values()) > 0  # a unit's first late reading has no past alone
+    assert all(v is not None for v in with_past.values()) and "NaN" not in err_past
+    for case, value in with_past.items():  # the same numbers as scoring the whole table at once
+        assert value == pytest.approx(full[case], rel=1e-12)
+    code, out, err = run_cli("try", model, str(tmp_path / "late.csv"), "--context", str(tmp_path / "early.csv"),
+                             "--derive", "vib=rolling_median(vibration_mm_s, 3)", "--json")
+    assert code == 0, err
+    doc = one_json(out)
+    assert doc["before"]["unscored"] == 0 and doc["after"]["unscored"] == 0

@@ -44,6 +44,7 @@ def fit(
     undefined: str = "flag",
     unit_col: str | None = None,
     time_col: str | None = None,
+    context=None,
 ) -> Model:
     """Fit a model on the normal rows of ``train``.
 
@@ -70,6 +71,8 @@ def fit(
         domain, or left unscored (see :class:`~afterlook.analysis.model.Model`)
     unit_col, time_col : the unit of each row and its time (``unit_median``, ``unit_scale``,
         ``lag``, ``rolling_median``; see :mod:`afterlook.analysis.unit_rows`), recorded in the model
+    context : DataFrame of the readings before ``cases`` (their units' past for ``lag`` and
+        ``rolling_median``), kept on the model for scoring those cases (not saved)
     """
     if undefined not in UNDEFINED_POLICIES:
         raise AfterlookError(f"undefined must be one of {', '.join(UNDEFINED_POLICIES)}, got {undefined!r}")
@@ -123,7 +126,7 @@ def fit(
         warnings.append(f"robust fit kept {density.support_fraction_:.1%} of the training rows as its core")
 
     policy, value, basis = _pick_threshold(density, recipe, threshold, cases, X, warnings, undefined,
-                                           f"training rows ({X.shape[0]})", units=(unit_col, time_col))
+                                           f"training rows ({X.shape[0]})", units=(unit_col, time_col, context))
 
     stats, grid = training_summary(X, fm.names, quantiles=quantiles)
     training = {
@@ -140,12 +143,12 @@ def fit(
         training["constant_columns"] = constants
     return Model(recipe=recipe, density=density, threshold=value, policy=policy, threshold_basis=basis,
                  training=training, quantiles=grid, warnings=warnings + list(table.warnings), undefined=undefined,
-                 unit_col=unit_col, time_col=time_col)
+                 unit_col=unit_col, time_col=time_col, context_frame=context)
 
 
 def _pick_threshold(density, recipe: Recipe, threshold, cases, normal_rows: np.ndarray, warnings: list[str],
                     undefined: str,
-                    normal_basis: str, rate_note: str = "", units=(None, None)):
+                    normal_basis: str, rate_note: str = "", units=(None, None, None)):
     """Threshold by policy: labelled cases when given, else the normal rows.
 
     Returns ``(policy, value, basis)``; the default policy is f1 with
@@ -159,12 +162,13 @@ def _pick_threshold(density, recipe: Recipe, threshold, cases, normal_rows: np.n
         inputs_ok = np.all(np.column_stack([np.isfinite(v) for v in case_cols.values()]), axis=1) \
             if case_cols else np.ones(len(case_table.frame), bool)
         if units[0]:
-            from ..core.units import TIMES, UNITS, with_history
+            from ..core.units import PAST, TIMES, UNITS, with_history
             from .unit_rows import row_context
 
-            case_cols = {**case_cols, **row_context(case_table.frame, *units, table_name(case_table))}
+            case_cols = {**case_cols, **row_context(case_table.frame, units[0], units[1], table_name(case_table),
+                                                    units[2])}
             if recipe.history and TIMES in case_cols:
-                inputs_ok &= with_history(case_cols[UNITS], case_cols[TIMES], recipe.history)
+                inputs_ok &= with_history(case_cols[UNITS], case_cols[TIMES], recipe.history, case_cols.get(PAST))
         case_ld = density.log_density(recipe.apply(case_cols).values)
         case_ld = apply_undefined_policy(case_ld, inputs_ok, undefined)
         case_y = case_table.labels
@@ -232,7 +236,8 @@ def refit(model: Model, recipe: Recipe, train: TrainingRows, cases: Table, *, qu
     """Re-fit the model's kind and options with another recipe, threshold by the same policy."""
     return fit(train.table, cases=cases, kind=model.density.kind, robust=model.density.robust,
                shrinkage=model.density.shrinkage, threshold=model.policy, recipe=recipe, quantiles=quantiles,
-               undefined=model.undefined, unit_col=model.unit_col, time_col=model.time_col)
+               undefined=model.undefined, unit_col=model.unit_col, time_col=model.time_col,
+               context=model.context_frame)
 
 
 @with_limited_blas

@@ -69,6 +69,7 @@ class Model:
     undefined: str = "flag"
     unit_col: str | None = None  # --unit-col / --time-col recorded at fit (analysis/unit_rows.py)
     time_col: str | None = None
+    context_frame: pd.DataFrame | None = None  # --context: readings before the cases (not saved)
 
     # -- features and scores ---------------------------------------------
     @property
@@ -98,10 +99,11 @@ class Model:
         """Rows whose every reading the recipe uses is finite."""
         needed = [np.isfinite(np.asarray(columns[c], dtype=np.float64)) for c in self.recipe.required_columns()]
         if self.recipe.history:  # a unit's first readings have no past: like a missing reading, never "outside"
-            from ..core.units import TIMES, UNITS, with_history
+            from ..core.units import PAST, TIMES, UNITS, with_history
 
             if UNITS in columns and TIMES in columns:
-                needed.append(with_history(columns[UNITS], columns[TIMES], self.recipe.history))
+                past = columns[PAST] if PAST in columns else None
+                needed.append(with_history(columns[UNITS], columns[TIMES], self.recipe.history, past))
         if not needed:
             return np.ones(len(next(iter(columns.values()))) if columns else 0, dtype=bool)
         return np.all(np.column_stack(needed), axis=1)
@@ -133,7 +135,7 @@ class Model:
         if self.unit_col and isinstance(obj, pd.DataFrame):
             from .unit_rows import row_context
 
-            cols.extra = row_context(obj, self.unit_col, self.time_col)
+            cols.extra = row_context(obj, self.unit_col, self.time_col, context=self.context_frame)
         return cols
 
     def fingerprint(self) -> str:

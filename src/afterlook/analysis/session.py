@@ -274,7 +274,8 @@ class Session:
             from .unit_rows import row_context
 
             cache.update(row_context(self._frame(which), self.model.unit_col, self.model.time_col,
-                                     table_name(self.cases) if which == CASES else self.training.source))
+                                     table_name(self.cases) if which == CASES else self.training.source,
+                                     self.model.context_frame if which == CASES else None))
         return cache
 
     def _frame(self, which: str):
@@ -314,15 +315,17 @@ class Session:
             if self.model.unit_col:  # said once with the table's own warnings (misses, explain, score)
                 from .unit_rows import fallback_warnings
 
-                from ..core.units import TIMES, with_history
+                from ..core.units import PAST, TIMES, with_history
 
                 cols = self.columns(CASES)
                 lines = fallback_warnings(self.model.recipe, cols)
                 if self.model.recipe.history and TIMES in cols:
-                    short = int((~with_history(cols[UNITS], cols[TIMES], self.model.recipe.history)).sum())
+                    short = int((~with_history(cols[UNITS], cols[TIMES], self.model.recipe.history,
+                                               cols.get(PAST))).sum())
                     if short:
                         lines.append(f"{short} case(s) lack the {self.model.recipe.history} earlier reading(s) of their "
-                                     "unit that lag / rolling_median need: not scored")
+                                     "unit that lag / rolling_median need: not scored (--context gives earlier "
+                                     "readings)")
                 for line in lines:
                     if line not in self.cases.warnings:
                         self.cases.warnings.append(line)

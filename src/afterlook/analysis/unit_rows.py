@@ -29,19 +29,26 @@ from ..core import units as unit_stats
 __all__ = ["row_context", "apply_unit_options", "fallback_warnings", "model_columns"]
 
 
-def apply_unit_options(model, unit_col: str | None = None, time_col: str | None = None):
-    """``model`` using ``unit_col`` / ``time_col`` instead of the recorded ones (None: keep the recorded)."""
+def apply_unit_options(model, unit_col: str | None = None, time_col: str | None = None, context=None):
+    """``model`` using ``unit_col`` / ``time_col`` instead of the recorded ones (None: keep the recorded);
+    ``context``: a table (or DataFrame) of the readings that precede the cases (``--context``)."""
+    if context is not None:
+        model.context_frame = getattr(context, "frame", context)
     if unit_col:
         model.unit_col = unit_col
     if time_col:
         model.time_col = time_col
     if model.time_col and not model.unit_col:
         raise AfterlookError("--time-col needs --unit-col (a time orders the readings of one unit)")
+    if getattr(model, "context_frame", None) is not None and not model.time_col:
+        raise AfterlookError("--context needs the unit and time columns (--unit-col, --time-col)")
     return model
 
 
-def row_context(frame: pd.DataFrame, unit_col: str | None, time_col: str | None, what: str = "table") -> dict:
-    """``{UNITS: labels, TIMES: keys}`` of the rows of ``frame`` (empty when no unit column is named)."""
+def row_context(frame: pd.DataFrame, unit_col: str | None, time_col: str | None, what: str = "table",
+                context: pd.DataFrame | None = None) -> dict:
+    """``{UNITS: labels, TIMES: keys}`` of the rows of ``frame`` (empty when no unit column is named),
+    and ``PAST``: the rows of ``context`` (the readings before them) not also in ``frame``."""
     if not unit_col:
         return {}
     if unit_col not in frame.columns:
@@ -60,7 +67,25 @@ def row_context(frame: pd.DataFrame, unit_col: str | None, time_col: str | None,
                                  f"{printable(str(shown))}; a unit's readings need one order by "
                                  f"{printable(repr(time_col))}")
         out[unit_stats.TIMES] = times
+        if context is not None:
+            out[unit_stats.PAST] = _past(context, unit_col, time_col, out)
     return out
+
+
+def _past(context: pd.DataFrame, unit_col: str, time_col: str, rows: dict) -> dict:
+    """The context's readings as a column mapping with its own units and times (rows of the cases left out)."""
+    from ..store.columns import numeric_columns_of
+
+    keys = row_context(context, unit_col, time_col, "--context table")
+    units, times = keys[unit_stats.UNITS].astype(str), keys[unit_stats.TIMES]
+    seen = set(zip(rows[unit_stats.UNITS].astype(str), rows[unit_stats.TIMES].tolist()))
+    keep = np.array([(u, t) not in seen for u, t in zip(units, times.tolist())], dtype=bool)
+    numeric = [c for c in context.columns if pd.api.types.is_numeric_dtype(context[c])
+               and not pd.api.types.is_bool_dtype(context[c]) and c not in (unit_col, time_col)]
+    past = {name: values[keep] for name, values in numeric_columns_of(context, numeric).items()}
+    past[unit_stats.UNITS] = units[keep].astype(object)
+    past[unit_stats.TIMES] = times[keep]
+    return past
 
 
 def _first_row(units, times, first) -> int:
@@ -106,7 +131,8 @@ def model_columns(model, frame: pd.DataFrame, columns: dict, what: str = "table"
     """``columns`` (numeric columns of ``frame``) with the rows' unit and time for ``model``."""
     if not getattr(model, "unit_col", None):
         return columns
-    return {**columns, **row_context(frame, model.unit_col, model.time_col, what)}
+    return {**columns, **row_context(frame, model.unit_col, model.time_col, what,
+                                     getattr(model, "context_frame", None))}
 
 
 def fallback_warnings(recipe, columns) -> list[str]:

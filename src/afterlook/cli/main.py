@@ -95,6 +95,8 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("data", metavar="DATA")
     p.add_argument("--out", metavar="FILE", help="write the scored table (CSV or Parquet by extension)")
     p.add_argument("--force", action="store_true", help="replace an existing table scored by afterlook at --out")
+    p.add_argument("--context", metavar="TABLE", help="readings before DATA's rows (their units' past for lag and "
+                   "rolling_median), when DATA holds only the rows to score")
     _add_table_opts(p)
     _add_common(p)
 
@@ -209,7 +211,8 @@ def cmd_score(args) -> int:
         check_output(args.out, kind="table", inputs=[args.model, args.data], force=args.force)
     from ..analysis.unit_rows import apply_unit_options, fallback_warnings, model_columns
 
-    model = apply_unit_options(load_model(args.model), args.unit_col, args.time_col)
+    context = load_table(args.context, **table_options(args)) if args.context else None
+    model = apply_unit_options(load_model(args.model), args.unit_col, args.time_col, context)
     table = load_table(args.data, **table_options(args))
     scored, overflowed = model.score_with_overflow(table.frame)
     warn(table.warnings)

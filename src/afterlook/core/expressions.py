@@ -148,7 +148,8 @@ class Expression:
         """
         env, n = self._env(columns)
         with np.errstate(all="ignore"):
-            out = _Evaluator(env, self.frozen, self._call_keys, self.text, _context(columns)).visit(self._tree)
+            out = _Evaluator(env, self.frozen, self._call_keys, self.text,
+                             _context(columns, self._names)).visit(self._tree)
             out = np.asarray(out, dtype=np.float64)
             if out.ndim == 0:
                 out = np.full(n if n is not None else 1, float(out))
@@ -357,9 +358,9 @@ class _Evaluator(ast.NodeVisitor):
     so ``1 / (x / 0)`` stays NaN instead of quietly turning into 0."""
 
     def __init__(self, env: Mapping[str, np.ndarray], frozen: Mapping[str, dict] | None = None,
-                 call_keys: Mapping[int, str] | None = None, text: str = "", context=(None, None)):
+                 call_keys: Mapping[int, str] | None = None, text: str = "", context=(None, None, None)):
         self.env = env
-        self.units, self.times = context
+        self.units, self.times, self.past = context
         self.frozen = frozen or {}
         self.call_keys = call_keys or {}
         self.text = text
@@ -395,8 +396,17 @@ class _Evaluator(ast.NodeVisitor):
             if values.ndim == 0:
                 values = np.full(len(self.units) if self.units is not None else 1, float(values))
             fn = unit_stats.lag if name == "lag" else unit_stats.rolling_median
-            return fn(values, int(_number_of(node.args[1])), self.units, self.times,
-                      f"{name}() in '{_short(self.text)}'")
+            units, times = self.units, self.times
+            m = 0
+            if self.past is not None and units is not None:  # the units' earlier readings come first
+                env, past_units, past_times = self.past
+                before = _Evaluator(env, self.frozen, self.call_keys, self.text, (past_units, past_times, None))
+                earlier = np.broadcast_to(np.asarray(before.visit(node.args[0]), dtype=np.float64), (len(past_units),))
+                m = earlier.shape[0]
+                values = np.concatenate([earlier, values])
+                units = np.concatenate([np.asarray(past_units, dtype=object), np.asarray(units, dtype=object)])
+                times = np.concatenate([np.asarray(past_times), np.asarray(times)])
+            return fn(values, int(_number_of(node.args[1])), units, times, f"{name}() in '{_short(self.text)}'")[m:]
         args = [self.visit(a) for a in node.args]
         if name in frozen_calls.STATEFUL:
             key = self.call_keys[id(node)]
@@ -441,14 +451,21 @@ def _unparse(node: ast.AST, names: Mapping[str, str], parent_prec: int = 0, righ
     raise AfterlookError(f"cannot print '{type(node).__name__}'")  # pragma: no cover
 
 
-def _context(columns: Mapping) -> tuple:
-    """The rows' unit labels and time keys, when the layer that read the table put them in ``columns``."""
+def _context(columns: Mapping, names: Mapping[str, str] | None = None) -> tuple:
+    """The rows' unit labels and time keys, when the layer that read the table put them in ``columns``,
+    and the preceding readings (``--context``) as (placeholder env, units, times) or None."""
     try:
         units = columns[unit_stats.UNITS] if unit_stats.UNITS in columns else None
         times = columns[unit_stats.TIMES] if unit_stats.TIMES in columns else None
+        past = columns[unit_stats.PAST] if unit_stats.PAST in columns else None
     except KeyError:
-        return None, None
-    return units, times
+        return None, None, None
+    if past is None or names is None or not len(past.get(unit_stats.UNITS, ())):
+        return units, times, None
+    m = len(past[unit_stats.UNITS])
+    env = {ph: (np.asarray(past[col], dtype=np.float64) if col in past else np.full(m, np.nan))
+           for ph, col in names.items()}
+    return units, times, (env, past[unit_stats.UNITS], past[unit_stats.TIMES])
 
 
 def _number_of(node: ast.AST) -> float | None:

@@ -56,6 +56,9 @@ from .errors import AfterlookError
 #: Reserved keys of a column mapping: the unit label of each row (str objects) and its time key (numbers).
 UNITS = "\x00unit"
 TIMES = "\x00time"
+#: Reserved key of the readings that precede the rows evaluated (``--context``): a mapping of column name ->
+#: values with its own UNITS and TIMES; ``lag`` and ``rolling_median`` read them as the units' past.
+PAST = "\x00past"
 #: Fewest finite training values for a unit's own baseline (see the module docstring).
 MIN_UNIT_ROWS = 30
 #: MAD to standard deviation under normality: 1 / Phi^-1(3/4) (scipy.stats.median_abs_deviation, scale="normal").
@@ -168,10 +171,16 @@ def rolling_median(values: np.ndarray, window: int, units, times, key: str = "ro
     return out
 
 
-def with_history(units, times, need: int) -> np.ndarray:
-    """Rows that have at least ``need`` earlier readings of their unit (all rows when ``need`` is 0)."""
+def with_history(units, times, need: int, past: dict | None = None) -> np.ndarray:
+    """Rows that have at least ``need`` earlier readings of their unit (all rows when ``need`` is 0);
+    ``past``: the preceding readings (:data:`PAST`), counted as earlier readings."""
     if need <= 0 or units is None or times is None:
         return np.ones(len(units) if units is not None else 0, dtype=bool) if units is not None else np.ones(0, bool)
+    if past is not None and len(past.get(UNITS, ())):
+        m = len(past[UNITS])
+        both = with_history(np.concatenate([past[UNITS], np.asarray(units, dtype=object)]),
+                            np.concatenate([past[TIMES], np.asarray(times)]), need)
+        return both[m:]
     labels = np.asarray(units, dtype=object).astype(str)
     n = labels.shape[0]
     order, codes = _unit_order(units, times, n, "history")
