@@ -163,3 +163,17 @@ def test_a_model_records_its_unit_and_time_columns_and_scores_with_the_training_
     ld = loaded.log_density(new)
     first = ~with_history(new["unit"].astype(str).to_numpy(object), pd.to_datetime(new["time"]).to_numpy(), 1)
     assert np.isnan(ld[first]).all() and np.isfinite(ld[~first]).all()  # no past: unscored, never flagged
+
+
+def test_unit_relative_texts_read_back_as_the_robust_z_against_the_units_baseline():
+    from afterlook.core.shaped_text import unit_relative_text
+
+    frame = _table()
+    cols = _columns(frame)
+    assert unit_relative_text("x") == "x - unit_median(x)"
+    got = expressions.parse(unit_relative_text("x", "scaled")).fit(cols).evaluate(cols)
+    med = frame.groupby("unit")["x"].transform("median")
+    mad = frame.groupby("unit")["x"].transform(lambda v: stats.median_abs_deviation(v.dropna(), scale="normal"))
+    big = (frame.groupby("unit")["x"].transform("count") >= MIN_UNIT_ROWS).to_numpy()
+    ok = big & frame["x"].notna().to_numpy()
+    np.testing.assert_allclose(got[ok], ((frame["x"] - med) / mad).to_numpy()[ok], rtol=1e-12)

@@ -25,7 +25,7 @@ import ast
 from . import expressions
 from .errors import AfterlookError
 
-__all__ = ["shaped_text", "standardized_text", "power_text"]
+__all__ = ["shaped_text", "standardized_text", "power_text", "unit_relative_text"]
 
 
 def _number(p: float) -> str:
@@ -79,3 +79,24 @@ def _readable_power(name: str, text: str) -> str:
     if power is None or power == 0 or (power < 0) != negated:
         return expr.text  # -(x ** 0.5) decreases: it is not an affine map of a Box-Cox transform
     return power_text(name, "boxcox", power)
+
+
+#: How a reading is set against its unit's baseline (see :mod:`afterlook.core.units`).
+UNIT_RELATIONS = ("difference", "ratio", "scaled")
+
+
+def unit_relative_text(name: str, how: str = "difference") -> str:
+    """Column ``name`` against its unit's own normal, as text a search can propose.
+
+    ``difference``: ``x - unit_median(x)``; ``ratio``: ``x / unit_median(x)``;
+    ``scaled``: ``(x - unit_median(x)) / unit_scale(x)`` (a robust z against
+    the unit's own baseline). The baselines are frozen per unit at fit.
+    """
+    q = expressions.quote_name(name)
+    if how == "difference":
+        return f"{q} - unit_median({q})"
+    if how == "ratio":
+        return f"{q} / unit_median({q})"
+    if how == "scaled":
+        return f"({q} - unit_median({q})) / unit_scale({q})"
+    raise AfterlookError(f"unknown unit relation '{how}' (choose: {', '.join(UNIT_RELATIONS)})")
