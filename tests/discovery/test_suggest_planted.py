@@ -33,16 +33,39 @@ def relation_statistic(kind: str, a: np.ndarray, b: np.ndarray) -> np.ndarray:
     return b / a**2  # square, signed_square
 
 
-def numpy_eval(expression: str, columns: dict) -> np.ndarray:
+def numpy_eval(expression: str, columns: dict, normal: dict | None = None) -> np.ndarray:
     """Evaluate a candidate's text with plain numpy, as a reference for afterlook's own engine.
 
     The candidate texts are Python-compatible arithmetic over plain column
     names; the input is produced by the test itself, so ``eval`` with no
     builtins is acceptable here (the product never evaluates this way).
+    ``zscore(x)`` standardises by the mean and sd (ddof 0) of ``x`` over the
+    ``normal`` rows (default: ``columns`` themselves), as a fit freezes them;
+    ``boxcox(x, p)`` is (x ** p - 1) / p, log at p = 0 (Box and Cox 1964).
     """
-    env = {"__builtins__": {}, "log": np.log, "sqrt": np.sqrt, "abs": np.abs, "exp": np.exp}
-    with np.errstate(all="ignore"):
-        return np.asarray(eval(expression, env, dict(columns)), dtype=np.float64)  # noqa: S307
+    frozen: list[tuple[float, float]] = []
+
+    def boxcox(x, p):
+        return np.log(x) if p == 0 else (x**p - 1) / p
+
+    def record(x):
+        frozen.append((x.mean(), x.std()))
+        return (x - frozen[-1][0]) / frozen[-1][1]
+
+    def run(cols, zscore):
+        env = {"__builtins__": {}, "log": np.log, "sqrt": np.sqrt, "abs": np.abs, "exp": np.exp,
+               "boxcox": boxcox, "zscore": zscore}
+        with np.errstate(all="ignore"):
+            return np.asarray(eval(expression, env, dict(cols)), dtype=np.float64)  # noqa: S307
+
+    run(columns if normal is None else normal, record)
+    replay = iter(list(frozen))
+
+    def use(x):
+        mean, sd = next(replay)
+        return (x - mean) / sd
+
+    return run(columns, use)
 
 
 def columns_of(frame, names="abcdef") -> dict:
@@ -199,7 +222,7 @@ def test_empirical_tail_is_add_one_count(fleet_factory):
     checked = 0
     for c in result.candidates:
         v = numpy_eval(c.expression, train_cols)
-        t = float(numpy_eval(c.expression, target_cols)[0])
+        t = float(numpy_eval(c.expression, target_cols, normal=train_cols)[0])
         med = np.median(v)
         count = int(np.sum(np.abs(v - med) >= abs(t - med)))
         if c.tail_method == "empirical":
@@ -309,11 +332,10 @@ def test_first_pass_z_equals_direct_evaluation(fleet_factory, kind):
         v, t = _definition(c.kind, *c.inputs, sample, target)
         z = abs((t[0] - v.mean()) / v.std())
         assert c.first_pass_z == pytest.approx(z, rel=1e-6), (c.kind, c.expression)
-        # the text is what `try` will use: it must describe the same feature. Standardized kinds
-        # print their means and sds to 6 significant digits, so allow for that rounding there.
+        # the text is what `try` will use: it must describe the same feature (z-scores frozen on the
+        # same normal sample the screen used, so no rounded constant is left in the text)
         vt = numpy_eval(c.expression, sample)
-        tt = numpy_eval(c.expression, target)
+        tt = numpy_eval(c.expression, target, normal=sample)
         zt = abs((tt[0] - vt.mean()) / vt.std())
-        rel = 1e-3 if "difference" in c.kind else 1e-9
-        assert zt == pytest.approx(z, rel=rel), (c.kind, c.expression)
+        assert zt == pytest.approx(z, rel=1e-9), (c.kind, c.expression)
     assert kinds == set(cand.KINDS)

@@ -195,7 +195,7 @@ def _addable(model: Model, sample: dict, ranked: list, progress=None) -> tuple[l
     for k, c in enumerate(ranked):
         if k % 20 == 0:  # a report is also where the workbench can stop a stale search
             _report(progress, "checking candidates can join the model", 0.35 + 0.05 * k / len(ranked))
-        values = (c.parsed or expressions.parse(c.expression)).evaluate(sample)
+        values = (c.parsed or expressions.parse(c.expression).fit(sample)).evaluate(sample)
         if span.contains(values):
             continue
         keep.append(c)
@@ -372,6 +372,8 @@ class AddedFeatureRefit:
         """:class:`Refitted` cases after adding ``expression`` (text or parsed), or None."""
         try:
             expr = expression if isinstance(expression, expressions.Expression) else expressions.parse(expression)
+            if not expr.is_fitted:  # frozen on the normal rows it is re-fitted on, never on the cases
+                expr = expr.fit(self.raw_train)
             y = expr.evaluate(self.raw_train)
             y_cases = expr.evaluate(self.case_raw)
         except AfterlookError:
@@ -449,16 +451,12 @@ def _digest(values) -> bytes:
 
 
 def _as_expression(transform, name: str) -> str | None:
-    from ..core.expressions import quote_name
+    from ..core.shaped_text import shaped_text
 
     if transform is None:
         return None
-    if transform.kind == "expression":
-        return transform.expression
-    lam = transform.lmbda
-    q = quote_name(name)
-    if transform.kind == "boxcox" and lam is not None:
-        return f"log({q})" if abs(lam) < 1e-12 else f"({q} ** {lam:.6g} - 1) / {lam:.6g}"
+    if transform.kind == "expression" or (transform.kind == "boxcox" and transform.lmbda is not None):
+        return shaped_text(name, transform)  # boxcox(x, p) for a power; the search offers no Yeo-Johnson
     return None
 
 

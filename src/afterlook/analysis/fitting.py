@@ -42,6 +42,9 @@ def fit(
     recipe: Recipe | None = None,
     quantiles: bool = True,
     undefined: str = "flag",
+    unit_col: str | None = None,
+    time_col: str | None = None,
+    context=None,
 ) -> Model:
     """Fit a model on the normal rows of ``train``.
 
@@ -66,6 +69,10 @@ def fit(
     undefined : "flag" (default) or "skip": a case whose feature is undefined on
         finite readings (a zero divisor) is flagged as outside the feature's
         domain, or left unscored (see :class:`~afterlook.analysis.model.Model`)
+    unit_col, time_col : the unit of each row and its time (``unit_median``, ``unit_scale``,
+        ``lag``, ``rolling_median``; see :mod:`afterlook.analysis.unit_rows`), recorded in the model
+    context : DataFrame of the readings before ``cases`` (their units' past for ``lag`` and
+        ``rolling_median``), kept on the model for scoring those cases (not saved)
     """
     if undefined not in UNDEFINED_POLICIES:
         raise AfterlookError(f"undefined must be one of {', '.join(UNDEFINED_POLICIES)}, got {undefined!r}")
@@ -95,6 +102,12 @@ def fit(
     # Lambdas are fitted on the rows whose raw inputs are all finite (the
     # rows a streamed fit sees too), so both engines give the same recipe.
     raw_ok = np.all(np.column_stack([np.isfinite(v) for v in columns_map.values()]), axis=1)
+    if time_col and not unit_col:
+        raise AfterlookError("--time-col needs --unit-col (a time orders the readings of one unit)")
+    if unit_col:
+        from .unit_rows import row_context
+
+        columns_map = {**columns_map, **row_context(normal_frame, unit_col, time_col, table_name(table))}
     recipe = recipe.fit(columns_map if raw_ok.all() else {k: v[raw_ok] for k, v in columns_map.items()})
     fm = recipe.apply(columns_map)
     finite = fm.finite_rows
@@ -113,7 +126,7 @@ def fit(
         warnings.append(f"robust fit kept {density.support_fraction_:.1%} of the training rows as its core")
 
     policy, value, basis = _pick_threshold(density, recipe, threshold, cases, X, warnings, undefined,
-                                           f"training rows ({X.shape[0]})")
+                                           f"training rows ({X.shape[0]})", units=(unit_col, time_col, context))
 
     stats, grid = training_summary(X, fm.names, quantiles=quantiles)
     training = {
@@ -129,12 +142,13 @@ def fit(
         # left out of the model (zero variance), kept so misses can report values never seen in normal rows
         training["constant_columns"] = constants
     return Model(recipe=recipe, density=density, threshold=value, policy=policy, threshold_basis=basis,
-                 training=training, quantiles=grid, warnings=warnings + list(table.warnings), undefined=undefined)
+                 training=training, quantiles=grid, warnings=warnings + list(table.warnings), undefined=undefined,
+                 unit_col=unit_col, time_col=time_col, context_frame=context)
 
 
 def _pick_threshold(density, recipe: Recipe, threshold, cases, normal_rows: np.ndarray, warnings: list[str],
                     undefined: str,
-                    normal_basis: str, rate_note: str = ""):
+                    normal_basis: str, rate_note: str = "", units=(None, None, None)):
     """Threshold by policy: labelled cases when given, else the normal rows.
 
     Returns ``(policy, value, basis)``; the default policy is f1 with
@@ -145,9 +159,17 @@ def _pick_threshold(density, recipe: Recipe, threshold, cases, normal_rows: np.n
     case_ld = case_y = None
     if case_table is not None and case_table.labels is not None:
         case_cols = numeric_columns_of(case_table.frame, recipe.required_columns())
-        case_ld = density.log_density(recipe.apply(case_cols).values)
         inputs_ok = np.all(np.column_stack([np.isfinite(v) for v in case_cols.values()]), axis=1) \
-            if case_cols else np.ones(len(case_ld), bool)
+            if case_cols else np.ones(len(case_table.frame), bool)
+        if units[0]:
+            from ..core.units import PAST, TIMES, UNITS, with_history
+            from .unit_rows import row_context
+
+            case_cols = {**case_cols, **row_context(case_table.frame, units[0], units[1], table_name(case_table),
+                                                    units[2])}
+            if recipe.history and TIMES in case_cols:
+                inputs_ok &= with_history(case_cols[UNITS], case_cols[TIMES], recipe.history, case_cols.get(PAST))
+        case_ld = density.log_density(recipe.apply(case_cols).values)
         case_ld = apply_undefined_policy(case_ld, inputs_ok, undefined)
         case_y = case_table.labels
     if policy is None:
@@ -214,7 +236,8 @@ def refit(model: Model, recipe: Recipe, train: TrainingRows, cases: Table, *, qu
     """Re-fit the model's kind and options with another recipe, threshold by the same policy."""
     return fit(train.table, cases=cases, kind=model.density.kind, robust=model.density.robust,
                shrinkage=model.density.shrinkage, threshold=model.policy, recipe=recipe, quantiles=quantiles,
-               undefined=model.undefined)
+               undefined=model.undefined, unit_col=model.unit_col, time_col=model.time_col,
+               context=model.context_frame)
 
 
 @with_limited_blas

@@ -67,6 +67,9 @@ class Model:
     source_path: str | None = None
     warnings: list[str] = field(default_factory=list)
     undefined: str = "flag"
+    unit_col: str | None = None  # --unit-col / --time-col recorded at fit (analysis/unit_rows.py)
+    time_col: str | None = None
+    context_frame: pd.DataFrame | None = None  # --context: readings before the cases (not saved)
 
     # -- features and scores ---------------------------------------------
     @property
@@ -79,12 +82,12 @@ class Model:
 
     def feature_matrix(self, columns: Mapping[str, np.ndarray] | pd.DataFrame) -> FeatureMatrix:
         """Model features of ``columns`` (a DataFrame or a name -> array mapping) after the recipe."""
-        return self.recipe.apply(_columns_of(columns))
+        return self.recipe.apply(self._columns_of(columns))
 
     def log_density(self, columns: Mapping[str, np.ndarray] | pd.DataFrame) -> np.ndarray:
         """Log-density of each row: NaN where a reading is missing; -inf where a feature is
         undefined on finite readings and the model's ``undefined`` policy is "flag"."""
-        cols = _columns_of(columns)
+        cols = self._columns_of(columns)
         ld = self.density.log_density(self.recipe.apply(cols).values)
         return self.with_undefined_policy(ld, cols)
 
@@ -95,6 +98,12 @@ class Model:
     def inputs_finite(self, columns: Mapping[str, np.ndarray]) -> np.ndarray:
         """Rows whose every reading the recipe uses is finite."""
         needed = [np.isfinite(np.asarray(columns[c], dtype=np.float64)) for c in self.recipe.required_columns()]
+        if self.recipe.history:  # a unit's first readings have no past: like a missing reading, never "outside"
+            from ..core.units import PAST, TIMES, UNITS, with_history
+
+            if UNITS in columns and TIMES in columns:
+                past = columns[PAST] if PAST in columns else None
+                needed.append(with_history(columns[UNITS], columns[TIMES], self.recipe.history, past))
         if not needed:
             return np.ones(len(next(iter(columns.values()))) if columns else 0, dtype=bool)
         return np.all(np.column_stack(needed), axis=1)
@@ -113,13 +122,21 @@ class Model:
 
     def score_with_overflow(self, df: pd.DataFrame) -> tuple[pd.DataFrame, np.ndarray]:
         """:meth:`score` and the rows at -inf because a finite reading overflowed (not a feature's domain)."""
-        cols = _columns_of(df)
+        cols = self._columns_of(df)
         raw = self.density.log_density(self.recipe.apply(cols).values)  # -inf only on overflow
         ld = self.with_undefined_policy(raw, cols)
         out = df.copy()
         out["log_density"] = ld
         out["flagged"] = flag(ld, self.threshold)
         return out, np.isneginf(raw)
+
+    def _columns_of(self, obj) -> Mapping[str, np.ndarray]:
+        cols = _columns_of(obj)
+        if self.unit_col and isinstance(obj, pd.DataFrame):
+            from .unit_rows import row_context
+
+            cols.extra = row_context(obj, self.unit_col, self.time_col, context=self.context_frame)
+        return cols
 
     def fingerprint(self) -> str:
         """16 hex digits that identify this fit on any machine (see :mod:`afterlook.core.fingerprint`).
@@ -156,12 +173,14 @@ class Model:
         training = dict(self.training)
         if self.quantiles is not None:  # an imported model has no training rows, hence no grid
             training["quantiles"] = {"points": int(self.quantiles.shape[0]), "values": self.quantiles.T.tolist()}
+        recipe = self.recipe.to_dict()
+        units = {"unit_col": self.unit_col, "time_col": self.time_col} if self.unit_col else None
         return {
             "format": model_file.FORMAT,
-            "version": model_file.VERSION,
+            "version": model_file.version_for(recipe),
             "tool_version": self.tool_version,
             "created": self.created,
-            "recipe": self.recipe.to_dict(),
+            "recipe": recipe,
             "model": self.density.to_dict(),
             "threshold": {
                 "value": self.threshold,
@@ -171,6 +190,7 @@ class Model:
                 "undefined": self.undefined,
             },
             "training": training,
+            **({"units": units} if units else {}),
         }
 
     def save(self, path) -> None:
@@ -210,6 +230,7 @@ class Model:
             threshold_basis=str(thr.get("chosen_on", "")), training=training, quantiles=quantiles,
             created=str(doc.get("created", "")), tool_version=str(doc.get("tool_version", "")),
             source_path=source_path, undefined=undefined,
+            unit_col=(doc.get("units") or {}).get("unit_col"), time_col=(doc.get("units") or {}).get("time_col"),
         )
 
     def describe_kind(self) -> str:
@@ -262,8 +283,11 @@ class _FrameColumns(Mapping):
     def __init__(self, frame: pd.DataFrame):
         self.frame = frame
         self.n_rows = len(frame)
+        self.extra: dict = {}  # the rows' unit and time (reserved keys), when the model names them
 
     def __getitem__(self, key):
+        if key in self.extra:
+            return self.extra[key]
         if key not in self.frame.columns:
             raise KeyError(key)
         col = self.frame[key]
@@ -276,7 +300,7 @@ class _FrameColumns(Mapping):
         return numeric_column(self.frame, key)
 
     def __contains__(self, key):
-        return key in self.frame.columns
+        return key in self.extra or key in self.frame.columns
 
     def __iter__(self):
         return iter(self.frame.columns)

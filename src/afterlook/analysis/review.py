@@ -277,9 +277,16 @@ def _snapshot(model: Model, table, i: int) -> dict:
     columns = {}
     for col in table.numeric_columns:
         columns[str(col)] = finite_or_none(pd.to_numeric(frame[col].iloc[i], errors="coerce"))
-    row = frame.iloc[[i]]
-    raw = model.recipe.raw_features(numeric_columns_of(row, model.recipe.required_columns()))
-    features = {name: finite_or_none(raw[name][0]) for name in model.features}
+    if model.unit_col:  # a unit's baseline or recent past: the row needs its unit (and the rows before it)
+        from .unit_rows import model_columns
+
+        raw = model.recipe.raw_features(model_columns(model, frame, numeric_columns_of(
+            frame, model.recipe.required_columns())))
+        features = {name: finite_or_none(raw[name][i]) for name in model.features}
+    else:
+        row = frame.iloc[[i]]
+        raw = model.recipe.raw_features(numeric_columns_of(row, model.recipe.required_columns()))
+        features = {name: finite_or_none(raw[name][0]) for name in model.features}
     return {"columns": columns, "features": features, "context": case_context(table, i)}
 
 
@@ -289,7 +296,10 @@ def _histogram(model: Model, feature: str, population) -> dict:
     if population is not None:
         normal = np.ones(len(population.frame), bool) if population.labels is None else ~population.labels
         frame = population.frame.loc[normal]
-        values = model.recipe.apply(numeric_columns_of(frame, model.recipe.required_columns())).values[:, j]
+        from .unit_rows import model_columns
+
+        values = model.recipe.apply(model_columns(model, frame, numeric_columns_of(
+            frame, model.recipe.required_columns()))).values[:, j]
         where = (f"normal rows of {os.path.basename(population.path)}" if population.path
                  else "cases labelled normal")
     elif model.quantiles is None:

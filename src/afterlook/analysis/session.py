@@ -25,6 +25,7 @@ import numpy as np
 import pandas as pd
 
 from ..core.errors import AfterlookError
+from ..core.units import UNITS
 from ..core.recipe import parse_assignment
 from ..core.thresholds import Confusion, confusion, flag, outside_domain
 from ..store.columns import numeric_columns_of
@@ -277,7 +278,18 @@ class Session:
             else:
                 frame = self.cases.frame
             cache.update(numeric_columns_of(frame, want))
+        if self.model.unit_col and UNITS not in cache:
+            from .unit_rows import row_context
+
+            cache.update(row_context(self._frame(which), self.model.unit_col, self.model.time_col,
+                                     table_name(self.cases) if which == CASES else self.training.source,
+                                     self.model.context_frame if which == CASES else None))
         return cache
+
+    def _frame(self, which: str):
+        if which == NORMAL:
+            return self.training.table.frame.loc[self.training.normal_mask()]
+        return self.cases.frame
 
     def raw_features(self, which: str) -> dict[str, np.ndarray]:
         """Base and derived features before the recipe's transforms."""
@@ -308,6 +320,23 @@ class Session:
             domain = outside_domain(ld, inputs_ok)
             ld = self.model.with_undefined_policy(ld, self.columns(CASES))
             self._scored = ScoredCases(self.model, self.cases, fm.values, ld, flag(ld, self.model.threshold), domain)
+            if self.model.unit_col:  # said once with the table's own warnings (misses, explain, score)
+                from .unit_rows import fallback_warnings
+
+                from ..core.units import PAST, TIMES, with_history
+
+                cols = self.columns(CASES)
+                lines = fallback_warnings(self.model.recipe, cols)
+                if self.model.recipe.history and TIMES in cols:
+                    short = int((~with_history(cols[UNITS], cols[TIMES], self.model.recipe.history,
+                                               cols.get(PAST))).sum())
+                    if short:
+                        lines.append(f"{short} case(s) lack the {self.model.recipe.history} earlier reading(s) of their "
+                                     "unit that lag / rolling_median need: not scored (--context gives earlier "
+                                     "readings)")
+                for line in lines:
+                    if line not in self.cases.warnings:
+                        self.cases.warnings.append(line)
         return self._scored
 
 

@@ -88,13 +88,16 @@ def default_casebook(cases_path) -> str:
 
 @with_limited_blas
 def open_session(model_path, cases_path, *, train_path=None, casebook=None, id_col: str | None = None,
-                 label_col: str | None = None, **table) -> WorkbenchSession:
+                 label_col: str | None = None, unit_col: str | None = None, time_col: str | None = None,
+                 **table) -> WorkbenchSession:
     """Load the model and cases, resolve the normal population, score the cases once.
 
     Raises :class:`AfterlookError` (one line) for any bad input, before any
     screen is drawn.
     """
-    model = load_model(model_path)
+    from .unit_rows import apply_unit_options
+
+    model = apply_unit_options(load_model(model_path), unit_col, time_col)
     cases = load_table(cases_path, id_col=id_col, label_col=label_col, require_labels=True, **table)
     train = load_table(train_path, id_col=id_col, label_col=label_col, **table) if train_path else None
     book = str(casebook) if casebook else default_casebook(cases_path)
@@ -404,6 +407,7 @@ def _raw_values(session: WorkbenchSession, source: HistogramSource) -> tuple[np.
     if source.kind == "feature":
         return session.scope("normal")[source.name], session.scope("cases")[source.name]
     expr = expressions.parse(source.expression, known_columns=session.known_columns)
+    expr = expr.fit(session.scope("normal", expr.columns))  # zscore(...) frozen on the normal rows, as a fit does
     normal = expr.evaluate(session.scope("normal", expr.columns))
     cases = expr.evaluate(session.scope("cases", expr.columns))
     return normal, cases

@@ -35,6 +35,8 @@ def register(sub, add_common, add_table_opts, caution) -> dict:
     p.add_argument("--train", metavar="TRAIN", help="normal population (default: the model's recorded training file)")
     p.add_argument("--case", action="append", default=[], metavar="CASE_ID", help="always list this case (repeatable)")
     p.add_argument("--out", metavar="NEW_MODEL", help="write the re-fitted model with the feature in its recipe")
+    p.add_argument("--context", metavar="TABLE", help="readings before the cases (their units' past for lag and "
+                   "rolling_median), when CASES holds only the labelled rows")
     p.add_argument("--force", action="store_true", help="replace an existing afterlook model file at --out")
     p.add_argument("--holdout", metavar="TABLE",
                    help="labelled cases kept apart: threshold picked on CASES, held-out metrics counted here "

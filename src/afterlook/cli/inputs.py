@@ -16,7 +16,12 @@ def open_session(args, *, require_labels: bool = True):
     from ..analysis.session import Session
     from ..store.tables import load_table
 
-    model = load_model(args.model)
+    from ..analysis.unit_rows import apply_unit_options
+
+    context = getattr(args, "context", None)
+    context = load_table(context, **table_options(args)) if context else None
+    model = apply_unit_options(load_model(args.model), getattr(args, "unit_col", None), getattr(args, "time_col", None),
+                               context)
     cases = load_table(args.cases, **table_options(args), require_labels=require_labels)
     train = getattr(args, "train", None)
     train = load_table(train, **table_options(args)) if train else None

@@ -34,7 +34,16 @@ def _add_common(p: argparse.ArgumentParser) -> None:
     p.add_argument("--json", action="store_true", help="print one JSON document on stdout and nothing else")
 
 
+#: Commands that take --unit-col / --time-col (recorded in the model at fit).
+UNIT_COMMANDS = ("fit", "suggest", "try", "review", "score", "misses", "explain")
+
+
 def _add_table_opts(p: argparse.ArgumentParser) -> None:
+    if p.prog.split()[-1] in UNIT_COMMANDS:
+        p.add_argument("--unit-col", metavar="COL", help="the unit (machine) of each row: unit_median(x), "
+                       "unit_scale(x) (default: the one recorded in the model)")
+        p.add_argument("--time-col", metavar="COL", help="the time of each row (ISO 8601 or a number) ordering a "
+                       "unit's readings: lag(x, k), rolling_median(x, n) (default: the one recorded in the model)")
     p.add_argument("--id-col", help="id column (default: 'id' if present, else row number)")
     p.add_argument("--label-col", help="label column (default: 'label'; values 1/0, true/false, anomaly/normal, yes/no)")
     p.add_argument("--encoding", help="text encoding of CSV tables (default utf-8; e.g. latin-1, cp1252)")
@@ -86,6 +95,8 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("data", metavar="DATA")
     p.add_argument("--out", metavar="FILE", help="write the scored table (CSV or Parquet by extension)")
     p.add_argument("--force", action="store_true", help="replace an existing table scored by afterlook at --out")
+    p.add_argument("--context", metavar="TABLE", help="readings before DATA's rows (their units' past for lag and "
+                   "rolling_median), when DATA holds only the rows to score")
     _add_table_opts(p)
     _add_common(p)
 
@@ -132,12 +143,14 @@ def cmd_fit(args) -> int:
         train = load_table(args.train, **table_options(args))
         model = fitting.fit(train, cases=cases, kind=args.kind, robust=args.robust, shrinkage=args.shrinkage,
                             derive=derive, transform=transform, threshold=args.threshold, columns=args.columns,
-                            undefined=args.undefined)
+                            undefined=args.undefined, unit_col=args.unit_col, time_col=args.time_col)
     else:
         if args.engine not in ("chunked", "dask"):
             raise AfterlookError(f"unknown --engine '{args.engine}' (choose: memory, chunked, dask)")
         if args.robust:
             raise AfterlookError("--robust needs every row in memory; drop --engine or --robust")
+        if args.unit_col or args.time_col:
+            raise AfterlookError("--unit-col and --time-col need the memory engine; drop --engine")
         if args.encoding or args.delimiter or args.decimal:
             raise AfterlookError("--encoding, --delimiter and --decimal need the memory engine (the streamed "
                                  "engines read UTF-8 CSV with its usual separator); drop --engine or save as UTF-8")
@@ -196,10 +209,15 @@ def cmd_score(args) -> int:
 
     if args.out:
         check_output(args.out, kind="table", inputs=[args.model, args.data], force=args.force)
-    model = load_model(args.model)
+    from ..analysis.unit_rows import apply_unit_options, fallback_warnings, model_columns
+
+    context = load_table(args.context, **table_options(args)) if args.context else None
+    model = apply_unit_options(load_model(args.model), args.unit_col, args.time_col, context)
     table = load_table(args.data, **table_options(args))
     scored, overflowed = model.score_with_overflow(table.frame)
     warn(table.warnings)
+    if model.unit_col:
+        warn(fallback_warnings(model.recipe, model_columns(model, table.frame, {})))
     n_bad = int(scored["log_density"].isna().sum())
     if n_bad:
         warn([f"{n_bad} row(s) have NaN or infinite features: log_density is empty and they are not flagged"])

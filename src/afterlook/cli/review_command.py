@@ -42,7 +42,8 @@ def run(args) -> int:
     from .inputs import table_options
 
     refuse_input_as_book(args.casebook, [args.model, args.cases, args.train])
-    app = create_app(args.model, args.cases, train_path=args.train, casebook=args.casebook, **table_options(args))
+    app = create_app(args.model, args.cases, train_path=args.train, casebook=args.casebook, **table_options(args),
+                     unit_col=args.unit_col, time_col=args.time_col)
     if args.json:
         from ..analysis.workbench import status_summary
 

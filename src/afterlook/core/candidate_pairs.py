@@ -17,6 +17,7 @@ import numpy as np
 
 from . import expressions
 from .errors import AfterlookError
+from .shaped_text import standardized_text
 
 __all__ = ["Group", "Moments", "moments", "difference_and_product_groups", "ratio_groups", "shaped_groups"]
 
@@ -34,22 +35,6 @@ class Group:
 
     def text(self, k: int) -> str:
         return self.texts(k) if callable(self.texts) else self.texts[k]
-
-
-def _fmt(x: float) -> str:
-    return f"{x:.6g}"
-
-
-def _centred(expression: str, mean: float) -> str:
-    """``(expression - mean)`` written without a double sign (``+ 0.82`` rather than ``- -0.82``)."""
-    sign = "-" if mean >= 0 else "+"
-    return f"(({expression}) {sign} {_fmt(abs(mean))})"
-
-
-def _std_expr(name: str, mean: float, sd: float) -> str:
-    q = expressions.quote_name(name)
-    sign = "-" if mean >= 0 else "+"
-    return f"({q} {sign} {_fmt(abs(mean))}) / {_fmt(sd)}"
 
 
 @dataclass
@@ -109,8 +94,7 @@ def difference_and_product_groups(m: Moments, groups: list) -> None:
     _add(groups, "standardized_difference", iu, ju, np.zeros(len(iu)), 2.0 - 2.0 * np.abs(r),
          Z_t[:, iu] + sgn * Z_t[:, ju],
          lambda k, iu=iu, ju=ju, sgn=sgn: (
-             f"{_std_expr(names[iu[k]], mu[iu[k]], sd[iu[k]])} {'-' if sgn[k] < 0 else '+'} "
-             f"{_std_expr(names[ju[k]], mu[ju[k]], sd[ju[k]])}"))
+             f"{standardized_text(names[iu[k]])} {'-' if sgn[k] < 0 else '+'} {standardized_text(names[ju[k]])}"))
     n = m.A.shape[0]
     G1 = m.As.T @ m.As / n  # E[ab] (scaled)
     A2 = m.As**2
@@ -188,9 +172,9 @@ def shaped_groups(m: Moments, sample, shaped: Mapping[str, str], groups: list) -
         ma, sa, mb, sb = va.mean(), va.std(), vb.mean(), vb.std()
         rr = float(np.mean((va - ma) * (vb - mb)) / (sa * sb))
         s = -1.0 if rr >= 0 else 1.0
-        ea = shaped[na] if na in sh_cols else q[a]
-        eb = shaped[nb] if nb in sh_cols else q[b]
-        texts.append(f"{_centred(ea, ma)} / {_fmt(sa)} {'-' if s < 0 else '+'} {_centred(eb, mb)} / {_fmt(sb)}")
+        ea = standardized_text(na, shaped[na] if na in sh_cols else None)
+        eb = standardized_text(nb, shaped[nb] if nb in sh_cols else None)
+        texts.append(f"{ea} {'-' if s < 0 else '+'} {eb}")  # z-scores frozen on this normal sample
         ii.append(a)
         jj.append(b)
         means.append(0.0)

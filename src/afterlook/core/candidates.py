@@ -369,7 +369,8 @@ def second_pass(
     chosen += reserve[: settings.correlated_reserve]
     out = []
     for c in chosen:
-        expr = c.parsed = expressions.parse(c.expression)
+        # zscore(...) in a candidate is frozen on the normal sample the screen used (never on the targets)
+        expr = c.parsed = expressions.parse(c.expression).fit(sample)
         v = expr.evaluate(sample)
         v = v[np.isfinite(v)]
         if v.size < 30 or v.std() == 0:

@@ -5,7 +5,12 @@ Grammar (a strict subset of Python's expression syntax):
 * numbers, column names, backtick-quoted column names (```flow rate```);
 * ``+ - * / **``, unary ``-`` and ``+``, parentheses;
 * functions ``log log1p sqrt abs exp`` (one argument), ``min max`` (two or
-  more, element-wise) and ``clip(x, lo, hi)``.
+  more, element-wise) and ``clip(x, lo, hi)``;
+* ``boxcox(x, p)`` and ``yeojohnson(x, p)`` with ``p`` a number, and
+  ``zscore(x)``, whose mean and sd are frozen from the normal rows by an
+  explicit fit (:meth:`Expression.fit`; see :mod:`afterlook.core.frozen`).
+  Evaluating ``zscore`` without frozen statistics is an error, never a
+  silent standardisation by the rows being evaluated.
 
 The text is parsed with :mod:`ast` and every node is checked against a
 whitelist before anything is evaluated; nothing is ever passed to ``eval``.
@@ -21,11 +26,13 @@ import keyword
 import warnings
 import difflib
 import re
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from typing import Callable, Mapping
 
 import numpy as np
 
+from . import frozen as frozen_calls
+from . import units as unit_stats
 from .errors import AfterlookError
 
 MAX_LENGTH = 2000  # characters; a derived feature is a formula, not a program
@@ -39,7 +46,8 @@ _UNARY_FUNCTIONS: dict[str, Callable[[np.ndarray], np.ndarray]] = {
     "exp": np.exp,
 }
 _VARIADIC_FUNCTIONS = {"min": np.minimum, "max": np.maximum}  # NaN propagates
-FUNCTIONS = tuple(sorted([*_UNARY_FUNCTIONS, *_VARIADIC_FUNCTIONS, "clip"]))
+FUNCTIONS = tuple(sorted([*_UNARY_FUNCTIONS, *_VARIADIC_FUNCTIONS, "clip", *frozen_calls.STATEFUL,
+                          *frozen_calls.NAMED, *unit_stats.RECENT]))
 
 _BINARY_OPS = {
     ast.Add: np.add,
@@ -65,18 +73,59 @@ class Expression:
         The source as the user wrote it.
     columns : tuple of str
         Column names the expression reads, in order of first use.
+    calls : tuple of str
+        Keys of the calls whose statistics are frozen at fit
+        (``zscore(boxcox(x, 0.5))``), inner calls first.
+    frozen : mapping of key -> statistics
+        The frozen statistics this expression evaluates with (see :meth:`fit`,
+        :meth:`with_frozen`).
     """
 
     text: str
     columns: tuple[str, ...]
     _tree: ast.AST = field(repr=False, compare=False)
     _names: Mapping[str, str] = field(repr=False, compare=False)  # placeholder -> column
+    calls: tuple[str, ...] = ()
+    _call_nodes: Mapping[str, ast.Call] = field(default_factory=dict, repr=False, compare=False)
+    _call_keys: Mapping[int, str] = field(default_factory=dict, repr=False, compare=False)  # id(node) -> key
+    frozen: Mapping[str, dict] = field(default_factory=dict, repr=False, compare=False)
+    history: int = 0  # earlier readings of the unit a row needs (lag k, rolling n - 1; summed: an upper bound)
 
-    def evaluate(self, columns: Mapping[str, np.ndarray]) -> np.ndarray:
-        """Evaluate on a mapping of column name -> 1-D array.
+    @property
+    def is_fitted(self) -> bool:
+        """Whether every stateful call has its frozen statistics (always true without one)."""
+        return all(k in self.frozen for k in self.calls)
 
-        Returns a float64 array; non-finite results are NaN.
+    def with_frozen(self, frozen: Mapping[str, dict]) -> "Expression":
+        """This expression evaluating with the statistics of ``frozen`` (keys it does not use are ignored)."""
+        if not self.calls:
+            return self
+        return replace(self, frozen={k: frozen[k] for k in self.calls if k in frozen})
+
+    def fit(self, normal: Mapping[str, np.ndarray]) -> "Expression":
+        """Freeze the statistics of every stateful call on ``normal`` (rows of the normal population).
+
+        Inner calls are fitted first; each on the finite values of its
+        argument. Returns a new expression (``self`` when there is no such call).
         """
+        if not self.calls:
+            return self
+        env, n = self._env(normal)
+        context = _context(normal)
+        done: dict[str, dict] = {}
+        with np.errstate(all="ignore"):
+            for key in self.calls:
+                node = self._call_nodes[key]
+                try:
+                    values = _Evaluator(env, done, self._call_keys, self.text, context).visit(node.args[0])
+                    values = np.broadcast_to(np.asarray(values, dtype=np.float64), (n if n is not None else 1,))
+                    done[key] = frozen_calls.fit_call(node.func.id, key[len(node.func.id) + 1:-1], values,
+                                                      context[0])
+                except AfterlookError as exc:
+                    raise AfterlookError(f"expression '{_short(self.text)}': {exc.message}") from None
+        return replace(self, frozen=done)
+
+    def _env(self, columns: Mapping[str, np.ndarray]) -> tuple[dict, int | None]:
         missing = [c for c in self.columns if c not in columns]
         if missing:
             raise AfterlookError(
@@ -89,8 +138,18 @@ class Expression:
             n = getattr(columns, "n_rows", None)
             if n is None and len(columns):
                 n = len(np.asarray(columns[next(iter(columns))]))
+        return env, n
+
+    def evaluate(self, columns: Mapping[str, np.ndarray]) -> np.ndarray:
+        """Evaluate on a mapping of column name -> 1-D array.
+
+        Returns a float64 array; non-finite results are NaN. A stateful call
+        uses the frozen statistics (:meth:`fit`); without them it is an error.
+        """
+        env, n = self._env(columns)
         with np.errstate(all="ignore"):
-            out = _Evaluator(env).visit(self._tree)
+            out = _Evaluator(env, self.frozen, self._call_keys, self.text,
+                             _context(columns, self._names)).visit(self._tree)
             out = np.asarray(out, dtype=np.float64)
             if out.ndim == 0:
                 out = np.full(n if n is not None else 1, float(out))
@@ -151,8 +210,16 @@ def parse(text: str, known_columns: list[str] | tuple[str, ...] | None = None) -
         raise AfterlookError(f"cannot parse expression '{_short(source)}': {detail}") from None
     back = {ph: col for col, ph in quoted.items()}
     ordered: list[str] = []
-    _Checker(back, names, ordered, source).check(tree.body, 0)
-    expr = Expression(text=source, columns=tuple(ordered), _tree=tree.body, _names=names)
+    checker = _Checker(back, names, ordered, source)
+    checker.check(tree.body, 0)
+    call_nodes: dict[str, ast.Call] = {}
+    call_keys: dict[int, str] = {}
+    for node in checker.stateful:  # post-order: inner calls first
+        key = frozen_calls.call_key(node.func.id, _unparse(node.args[0], names))
+        call_keys[id(node)] = key
+        call_nodes.setdefault(key, node)
+    expr = Expression(text=source, columns=tuple(ordered), _tree=tree.body, _names=names,
+                      calls=tuple(call_nodes), _call_nodes=call_nodes, _call_keys=call_keys, history=checker.history)
     if known_columns is not None:
         known = list(known_columns)
         for col in expr.columns:
@@ -199,6 +266,8 @@ def unparse(expr: Expression) -> str:
 class _Checker:
     def __init__(self, back: dict[str, str], names: dict[str, str], ordered: list[str], source: str):
         self.back, self.names, self.ordered, self.source = back, names, ordered, source
+        self.stateful: list[ast.Call] = []
+        self.history = 0
 
     def fail(self, what: str) -> None:
         raise AfterlookError(f"expression '{_short(self.source)}': {what} is not allowed")
@@ -250,10 +319,28 @@ class _Checker:
                 raise AfterlookError(f"expression '{_short(self.source)}': {name}() takes two or more arguments")
             if name == "clip" and n != 3:
                 raise AfterlookError(f"expression '{_short(self.source)}': clip() takes (x, lo, hi)")
+            if name in frozen_calls.STATEFUL and n != frozen_calls.STATEFUL[name]:
+                raise AfterlookError(f"expression '{_short(self.source)}': {name}() takes one argument, got {n}")
+            if name in frozen_calls.NAMED:
+                if n != 2:
+                    raise AfterlookError(f"expression '{_short(self.source)}': {name}() takes (x, p), got {n} "
+                                         "argument(s)")
+                if _number_of(node.args[1]) is None:
+                    raise AfterlookError(f"expression '{_short(self.source)}': the power p of {name}(x, p) must "
+                                         "be a number")
+            if name in unit_stats.RECENT:
+                what = unit_stats.RECENT[name]
+                count = _number_of(node.args[1]) if n == 2 else None
+                if n != 2 or count is None or count != int(count) or count < 1 or count > 100_000:
+                    raise AfterlookError(f"expression '{_short(self.source)}': {name}() takes (x, {what}) with {what} "
+                                         "a whole number of readings, at least 1")
+                self.history += int(count) - (1 if name == "rolling_median" else 0)
             for arg in node.args:
                 if isinstance(arg, ast.Starred):
                     self.fail("'*' unpacking")
                 self.check(arg, depth + 1)
+            if name in frozen_calls.STATEFUL:
+                self.stateful.append(node)
         else:
             label = {
                 ast.Compare: "a comparison",
@@ -270,8 +357,13 @@ class _Evaluator(ast.NodeVisitor):
     """Evaluates a checked tree; every intermediate non-finite value becomes NaN,
     so ``1 / (x / 0)`` stays NaN instead of quietly turning into 0."""
 
-    def __init__(self, env: Mapping[str, np.ndarray]):
+    def __init__(self, env: Mapping[str, np.ndarray], frozen: Mapping[str, dict] | None = None,
+                 call_keys: Mapping[int, str] | None = None, text: str = "", context=(None, None, None)):
         self.env = env
+        self.units, self.times, self.past = context
+        self.frozen = frozen or {}
+        self.call_keys = call_keys or {}
+        self.text = text
 
     def visit(self, node):
         value = super().visit(node)
@@ -297,7 +389,32 @@ class _Evaluator(ast.NodeVisitor):
 
     def visit_Call(self, node: ast.Call):
         name = node.func.id
+        if name in frozen_calls.NAMED:
+            return frozen_calls.apply_named(name, self.visit(node.args[0]), _number_of(node.args[1]))
+        if name in unit_stats.RECENT:
+            values = np.asarray(self.visit(node.args[0]), dtype=np.float64)
+            if values.ndim == 0:
+                values = np.full(len(self.units) if self.units is not None else 1, float(values))
+            fn = unit_stats.lag if name == "lag" else unit_stats.rolling_median
+            units, times = self.units, self.times
+            m = 0
+            if self.past is not None and units is not None:  # the units' earlier readings come first
+                env, past_units, past_times = self.past
+                before = _Evaluator(env, self.frozen, self.call_keys, self.text, (past_units, past_times, None))
+                earlier = np.broadcast_to(np.asarray(before.visit(node.args[0]), dtype=np.float64), (len(past_units),))
+                m = earlier.shape[0]
+                values = np.concatenate([earlier, values])
+                units = np.concatenate([np.asarray(past_units, dtype=object), np.asarray(units, dtype=object)])
+                times = np.concatenate([np.asarray(past_times), np.asarray(times)])
+            return fn(values, int(_number_of(node.args[1])), units, times, f"{name}() in '{_short(self.text)}'")[m:]
         args = [self.visit(a) for a in node.args]
+        if name in frozen_calls.STATEFUL:
+            key = self.call_keys[id(node)]
+            params = self.frozen.get(key)
+            if params is None:
+                raise AfterlookError(f"expression '{_short(self.text)}': {_short(key)} has no statistics frozen "
+                                     "from normal rows (fit it on the normal population first)")
+            return frozen_calls.apply_call(name, args[0], params, self.units)
         if name in _UNARY_FUNCTIONS:
             return _UNARY_FUNCTIONS[name](np.asarray(args[0], dtype=np.float64))
         if name in _VARIADIC_FUNCTIONS:
@@ -332,6 +449,38 @@ def _unparse(node: ast.AST, names: Mapping[str, str], parent_prec: int = 0, righ
         text = f"{left} {_BINARY_SYMBOLS[type(node.op)]} {right_text}"
         return f"({text})" if prec < parent_prec else text
     raise AfterlookError(f"cannot print '{type(node).__name__}'")  # pragma: no cover
+
+
+def _context(columns: Mapping, names: Mapping[str, str] | None = None) -> tuple:
+    """The rows' unit labels and time keys, when the layer that read the table put them in ``columns``,
+    and the preceding readings (``--context``) as (placeholder env, units, times) or None."""
+    try:
+        units = columns[unit_stats.UNITS] if unit_stats.UNITS in columns else None
+        times = columns[unit_stats.TIMES] if unit_stats.TIMES in columns else None
+        past = columns[unit_stats.PAST] if unit_stats.PAST in columns else None
+    except KeyError:
+        return None, None, None
+    if past is None or names is None or not len(past.get(unit_stats.UNITS, ())):
+        return units, times, None
+    m = len(past[unit_stats.UNITS])
+    env = {ph: (np.asarray(past[col], dtype=np.float64) if col in past else np.full(m, np.nan))
+           for ph, col in names.items()}
+    return units, times, (env, past[unit_stats.UNITS], past[unit_stats.TIMES])
+
+
+def _number_of(node: ast.AST) -> float | None:
+    """The value of a number written in the expression (``0.5``, ``-0.05``), else None."""
+    sign = 1.0
+    while isinstance(node, ast.UnaryOp) and isinstance(node.op, (ast.USub, ast.UAdd)):
+        sign = -sign if isinstance(node.op, ast.USub) else sign
+        node = node.operand
+    if isinstance(node, ast.Constant) and isinstance(node.value, (int, float)) and not isinstance(node.value, bool):
+        try:
+            value = sign * float(node.value)
+        except OverflowError:
+            return None
+        return value if np.isfinite(value) else None
+    return None
 
 
 def _common_length(arrays) -> int | None:

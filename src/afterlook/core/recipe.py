@@ -13,6 +13,12 @@ Yeo-Johnson power transform with a fixed or fitted lambda. Fitted lambdas
 are the maximum-likelihood values of ``scipy.stats.boxcox`` and
 ``scipy.stats.yeojohnson`` on the finite training values.
 
+Derived features may call functions whose statistics are frozen at fit
+(``zscore(x)``, see :mod:`afterlook.core.frozen`): :meth:`Recipe.fit`
+computes them on the training rows and keeps them in ``Recipe.frozen`` (the
+model file's ``recipe.frozen``); every later evaluation uses them. A
+transform cannot call them (write a derived feature instead).
+
 Columns are passed as a mapping of name -> 1-D array so the core stays free
 of pandas.
 """
@@ -27,6 +33,7 @@ from typing import Mapping
 import numpy as np
 
 from . import expressions
+from .frozen import frozen_from_list, frozen_to_list
 from .errors import AfterlookError
 
 POWER_KINDS = ("boxcox", "yeojohnson")
@@ -51,6 +58,7 @@ class Transform:
         expr = self.__dict__.get("_parsed")
         if expr is None:
             expr = expressions.parse(self.expression)
+            _refuse_stateful_transform(expr, self.expression)
             object.__setattr__(self, "_parsed", expr)  # a cache on a frozen instance; not a field
         return expr
 
@@ -82,7 +90,7 @@ class Transform:
 def parse_transform(feature: str, text: str) -> Transform:
     """Parse the right-hand side of ``--transform FEATURE=TEXT``."""
     m = _POWER_RE.match(text)
-    if m:
+    if m and "," not in (m.group(2) or ""):  # boxcox(x, 0.5) is the expression function, not a lambda
         kind = m.group(1).lower().replace("-", "")
         arg = m.group(2)
         if arg is None or not arg.strip():
@@ -95,6 +103,7 @@ def parse_transform(feature: str, text: str) -> Transform:
             raise AfterlookError(f"transform '{feature}={text}': lambda must be finite")
         return Transform(kind, lmbda=lam)
     expr = expressions.parse(text)
+    _refuse_stateful_transform(expr, f"{feature}={text}")
     if set(expr.columns) - {feature}:
         other = sorted(set(expr.columns) - {feature})[0]
         raise AfterlookError(
@@ -103,6 +112,12 @@ def parse_transform(feature: str, text: str) -> Transform:
     t = Transform("expression", expression=expr.text)
     object.__setattr__(t, "_parsed", expr)  # already parsed: Transform.parsed() reuses it
     return t
+
+
+def _refuse_stateful_transform(expr: "expressions.Expression", text: str) -> None:
+    if expr.calls:
+        raise AfterlookError(f"transform '{text}': {expr.calls[0]} needs statistics frozen at fit, which a "
+                             "transform does not keep (use a derived feature, --derive)")
 
 
 def apply_transform(t: Transform, feature: str, values: np.ndarray) -> np.ndarray:
@@ -163,11 +178,16 @@ class FeatureMatrix:
 
 @dataclass
 class Recipe:
-    """Base columns, derived features (name, expression) and transforms."""
+    """Base columns, derived features (name, expression), transforms and frozen statistics.
+
+    ``frozen`` maps a stateful call's key (``zscore(x)``) to the statistics
+    :meth:`fit` froze on the training rows.
+    """
 
     base: list[str]
     derived: list[tuple[str, str]] = field(default_factory=list)
     transforms: dict[str, Transform] = field(default_factory=dict)
+    frozen: dict[str, dict] = field(default_factory=dict)
 
     def __post_init__(self) -> None:
         # Each derived expression is parsed here, once; apply, raw_features and
@@ -187,7 +207,8 @@ class Recipe:
             if name in seen:
                 raise AfterlookError(f"derived feature '{name}' clashes with an existing feature name")
             seen.add(name)
-            self._parsed[name] = expressions.parse(text)  # syntax and whitelist now; columns on apply
+            # syntax and whitelist now; columns on apply; frozen statistics bound (any missing: error on apply)
+            self._parsed[name] = expressions.parse(text).with_frozen(self.frozen)
             known.append(name)
         for name in self.transforms:
             if name not in seen:
@@ -214,7 +235,22 @@ class Recipe:
 
     def with_derived(self, extra: list[tuple[str, str]]) -> "Recipe":
         """A new recipe with ``extra`` (name, expression) pairs appended to the derived features."""
-        return Recipe(self.base, self.derived + list(extra), dict(self.transforms))
+        return Recipe(self.base, self.derived + list(extra), dict(self.transforms), dict(self.frozen))
+
+    @property
+    def stateful_calls(self) -> list[str]:
+        """Keys of the calls whose statistics :meth:`fit` freezes, in order of use."""
+        return list(dict.fromkeys(k for name, _ in self.derived for k in self._parsed[name].calls))
+
+    @property
+    def history(self) -> int:
+        """Earlier readings of its unit a row needs for every feature (lag, rolling_median; an upper bound)."""
+        return sum(self._parsed[name].history for name, _ in self.derived)
+
+    def needs_fit(self) -> bool:
+        """Whether :meth:`fit` has something to compute: a lambda or a frozen statistic."""
+        return (any(t.kind in POWER_KINDS and t.lmbda is None for t in self.transforms.values())
+                or bool(self.stateful_calls))
 
     def raw_features(self, columns: Mapping[str, np.ndarray]) -> dict[str, np.ndarray]:
         """Base columns and derived features by name, before any transform.
@@ -243,8 +279,22 @@ class Recipe:
         return env
 
     def fit(self, columns: Mapping[str, np.ndarray]) -> "Recipe":
-        """Resolve fitted lambdas on training columns; returns a new recipe."""
-        env = self.raw_features(columns)
+        """Freeze statistics and resolve fitted lambdas on training columns; returns a new recipe.
+
+        Every stateful call (``zscore``) is fitted afresh on ``columns`` (the
+        normal rows: a re-fit on new rows freezes new statistics), each on
+        the finite values of its argument.
+        """
+        frozen: dict[str, dict] = {}
+        if self.stateful_calls:
+            scope = _DerivedScope(frozen, columns, self)
+            for name, _text in self.derived:
+                expr = self._parsed[name]
+                if expr.calls:
+                    frozen.update(expr.with_frozen({}).fit(scope).frozen)
+                scope.earlier.add(name)  # later features may read this one (with what is frozen so far)
+        recipe = Recipe(self.base, self.derived, dict(self.transforms), frozen) if self.stateful_calls else self
+        env = recipe.raw_features(columns)
         fitted = {}
         for name, t in self.transforms.items():
             if t.kind in POWER_KINDS and t.lmbda is None:
@@ -254,7 +304,7 @@ class Recipe:
                     raise AfterlookError(f"transform of '{name}': {exc.message}") from None
             else:
                 fitted[name] = t
-        return Recipe(self.base, self.derived, fitted)
+        return Recipe(self.base, self.derived, fitted, dict(recipe.frozen))
 
     def apply(self, columns: Mapping[str, np.ndarray]) -> FeatureMatrix:
         """Model features of ``columns``: derived features, then the per-feature transforms."""
@@ -289,22 +339,57 @@ class Recipe:
         return lines
 
     def to_dict(self) -> dict:
-        return {
+        out = {
             "base": list(self.base),
             "derived": [{"name": n, "expression": e} for n, e in self.derived],
             "transforms": {n: t.to_dict() for n, t in self.transforms.items()},
         }
+        if self.frozen:  # absent otherwise: a recipe without them writes (and fingerprints) as before
+            out["frozen"] = frozen_to_list(self.frozen)
+        return out
 
     @classmethod
     def from_dict(cls, data: dict) -> "Recipe":
         try:
-            return cls(
+            recipe = cls(
                 base=[str(c) for c in data["base"]],
                 derived=[(d["name"], d["expression"]) for d in data.get("derived", [])],
                 transforms={n: Transform.from_dict(t) for n, t in data.get("transforms", {}).items()},
+                frozen=frozen_from_list(data.get("frozen", [])),
             )
         except (KeyError, TypeError) as exc:
             raise AfterlookError(f"model recipe is malformed ({exc})") from None
+        missing = [k for k in recipe.stateful_calls if k not in recipe.frozen]
+        if missing:
+            raise AfterlookError(f"model recipe: {missing[0]} has no frozen statistics (recipe.frozen)")
+        return recipe
+
+
+class _DerivedScope(Mapping):
+    """Table columns and the derived features computed so far with ``frozen`` (for :meth:`Recipe.fit`)."""
+
+    def __init__(self, frozen: dict, columns: Mapping[str, np.ndarray], recipe: Recipe):
+        self.frozen, self.columns, self.recipe = frozen, columns, recipe
+        self.cache: dict[str, np.ndarray] = {}
+        self.n_rows = getattr(columns, "n_rows", None)
+        self.earlier: set[str] = set()  # derived features defined before the one being fitted
+
+    def __getitem__(self, key):
+        if key in self.earlier:
+            if key not in self.cache:
+                expr = self.recipe._parsed[key].with_frozen(self.frozen)
+                self.cache[key] = expr.evaluate(self)
+            return self.cache[key]
+        return self.columns[key]
+
+    def __contains__(self, key):
+        return key in self.earlier or key in self.columns
+
+    def __iter__(self):
+        return iter(dict.fromkeys([*self.columns, *self.earlier]))
+
+    def __len__(self):
+        return len(dict.fromkeys([*self.columns, *self.earlier]))
 
 
 def free_name(stem: str, existing) -> str:

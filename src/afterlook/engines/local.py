@@ -22,7 +22,7 @@ import numpy as np
 
 from ..core.errors import AfterlookError
 from ..core.gaussian import SufficientStats
-from ..core.recipe import POWER_KINDS, Recipe
+from ..core.recipe import Recipe
 
 SAMPLE_ROWS = 100_000
 
@@ -116,8 +116,9 @@ def raw_chunks_to_features(recipe: Recipe, raw_names: list[str]) -> Callable[[np
 
 
 def needs_fitted_lambda(recipe: Recipe) -> bool:
-    """Whether a transform of the recipe still needs its lambda (fitted from the seeded sample)."""
-    return any(t.kind in POWER_KINDS and t.lmbda is None for t in recipe.transforms.values())
+    """Whether a transform of the recipe still needs its lambda, or a derived feature its frozen
+    statistics (both fitted from the seeded sample)."""
+    return recipe.needs_fit()
 
 
 def stream(chunks: Iterable[np.ndarray], convert, names, sample_size, random_state) -> StreamedTraining:

@@ -1,6 +1,10 @@
 """The model file: JSON with a format name and a schema version.
 
-``{"format": "afterlook-model", "version": 1, ...}``. A file that is not
+``{"format": "afterlook-model", "version": 1, ...}``. Version 2 adds the
+recipe's frozen statistics (``recipe.frozen``: the training mean and sd of
+each ``zscore(...)`` call); a model without them is still written as
+version 1, so every reader that read it before still does, and a version-1
+file reads as it always did. A file that is not
 JSON, names another format, carries a newer major version or does not
 match ``schemas/afterlook-model.schema.json`` (the documented format) is
 refused with one clear line (:func:`afterlook.store.documents.check_document`);
@@ -19,7 +23,12 @@ from ..core.printable import printable
 from .documents import check_document, load_json
 
 FORMAT = "afterlook-model"
-VERSION = 1
+VERSION = 2  # the newest version this afterlook reads and writes
+
+
+def version_for(recipe_doc: dict) -> int:
+    """The version a model with this recipe is written as: 2 only when it needs frozen statistics."""
+    return 2 if recipe_doc.get("frozen") else 1
 
 
 def read_model_document(path: str | os.PathLike) -> dict:
