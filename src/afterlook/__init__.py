@@ -11,6 +11,7 @@ CLI's ``--json`` document::
     afterlook.suggest(model, cases, train=afterlook.load_table("train.csv"))
     afterlook.try_features(model, cases, derive={"r": "a / b"})
     afterlook.shape(df)
+    afterlook.from_estimator(MinCovDet().fit(X), columns=[...])  # your own detector
 
 Names are imported lazily so that ``import afterlook.core`` stays light
 (numpy and scipy only).
@@ -29,6 +30,9 @@ _EXPORTS = {
     "suggest": "afterlook.analysis.discovery",
     "try_features": "afterlook.analysis.trial",
     "AfterlookError": "afterlook.core.errors",
+    # bring your own detector (scikit-learn is imported inside these functions only)
+    "from_estimator": "afterlook.analysis.interop",
+    "from_parameters": "afterlook.analysis.interop",
     # casebook: reviewed misses, regression check against a model
     "Casebook": "afterlook.store.casebook_file",
     "review_entry": "afterlook.analysis.review",

@@ -13,6 +13,7 @@ from typing import NamedTuple
 
 import numpy as np
 
+from .frames import Tabular
 from ..core import candidates as cand
 from ..core import expressions
 from ..core.collinear import LinearSpan
@@ -31,7 +32,7 @@ __all__ = ["SuggestResult", "suggest", "AddedFeatureRefit"]
 
 
 @dataclass
-class SuggestResult:
+class SuggestResult(Tabular):
     """Ranked candidates for one or more misses."""
 
     cases: list[str]

@@ -7,6 +7,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from .frames import Tabular
 from ..core.errors import AfterlookError
 from ..core.explain import FeatureEvidence, evidence, transform_direction
 from ..core.recipe import apply_transform
@@ -32,7 +33,7 @@ class Miss:
 
 
 @dataclass
-class MissesResult:
+class MissesResult(Tabular):
     """Misses (labelled anomalies left unflagged), worst margin first."""
 
     threshold: float
@@ -146,7 +147,7 @@ def never_seen_values(model, table) -> list[UnseenValue]:
 
 
 @dataclass
-class ExplainResult:
+class ExplainResult(Tabular):
     """Per-feature evidence for one case."""
 
     case: str
@@ -158,6 +159,7 @@ class ExplainResult:
     context: dict
     model_kind: str
     outside_domain: bool = False  # -inf because a feature is undefined on finite readings (not an overflow)
+    percentiles: bool = True  # False for an imported model: no training rows, no quantile grid
 
     @property
     def overflow(self) -> bool:
@@ -230,4 +232,5 @@ def explain_case(session: Session, case_id) -> ExplainResult:
     label = None if sc.labels is None else bool(sc.labels[i])
     domain = sc.outside_domain is not None and bool(sc.outside_domain[i])
     return ExplainResult(str(sc.table.ids[i]), float(sc.log_density[i]), model.threshold, ev,
-                         bool(sc.flagged[i]), label, case_context(sc.table, i), model.describe_kind(), domain)
+                         bool(sc.flagged[i]), label, case_context(sc.table, i), model.describe_kind(), domain,
+                         model.quantiles is not None)

@@ -139,9 +139,23 @@ class Model:
             self.recipe.to_dict(), self.density.to_dict(), self.threshold))
 
     # -- file ------------------------------------------------------------
+    @property
+    def imported(self) -> dict | None:
+        """What an imported model came from (:mod:`afterlook.analysis.interop`); None for a fitted one."""
+        return (self.training or {}).get("imported")
+
+    def to_sklearn(self):
+        """A scikit-learn Pipeline (recipe, then an outlier detector scoring this log-density)."""
+        from .sklearn_export import to_sklearn
+
+        return to_sklearn(self)
+
     def to_dict(self) -> dict:
-        if self.quantiles is None:
+        if self.quantiles is None and not self.imported:
             raise AfterlookError("this model was fitted without its quantile grid and cannot be saved")
+        training = dict(self.training)
+        if self.quantiles is not None:  # an imported model has no training rows, hence no grid
+            training["quantiles"] = {"points": int(self.quantiles.shape[0]), "values": self.quantiles.T.tolist()}
         return {
             "format": model_file.FORMAT,
             "version": model_file.VERSION,
@@ -156,10 +170,7 @@ class Model:
                 "chosen_on": self.threshold_basis,
                 "undefined": self.undefined,
             },
-            "training": {
-                **self.training,
-                "quantiles": {"points": int(self.quantiles.shape[0]), "values": self.quantiles.T.tolist()},
-            },
+            "training": training,
         }
 
     def save(self, path) -> None:
@@ -181,10 +192,13 @@ class Model:
             if undefined not in UNDEFINED_POLICIES:
                 raise AfterlookError(f"model file: threshold.undefined must be one of {', '.join(UNDEFINED_POLICIES)}")
             training = dict(doc["training"])
-            q = training.pop("quantiles")
-            quantiles = np.asarray(q["values"], dtype=np.float64).T
-            if quantiles.ndim != 2 or quantiles.shape[1] != len(recipe.features):
-                raise ValueError("quantile grid does not match the features")
+            q = training.pop("quantiles", None)
+            if q is None and training.get("imported"):
+                quantiles = None  # an imported model: no training rows, no grid
+            else:
+                quantiles = np.asarray(q["values"], dtype=np.float64).T
+                if quantiles.ndim != 2 or quantiles.shape[1] != len(recipe.features):
+                    raise ValueError("quantile grid does not match the features")
         except AfterlookError as exc:
             where = f"model file {source_path}: " if source_path else ""
             raise AfterlookError(where + exc.message) from None
@@ -205,6 +219,8 @@ class Model:
             parts.append("robust")
         if self.density.shrinkage_:
             parts.append(f"shrinkage {self.density.shrinkage_:.3g}")
+        if self.imported:
+            parts.append("imported")
         return ", ".join(parts)
 
 

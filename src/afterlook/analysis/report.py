@@ -231,8 +231,10 @@ def _md_entry(e: dict) -> list[str]:
     if d:
         h = d.get("histogram") or {}
         out += ["", f"Deciding feature {md_code(d.get('name', ''))} ({md_text(d.get('why', ''))}): case value "
-                f"{shown.reading(d.get('value'))}, z {shown.z(d.get('z'))}, percentile {shown.percentile(d.get('percentile'))} "
-                f"among {h.get('rows', 0)} {md_text(h.get('population', 'rows'))}."]
+                f"{shown.reading(d.get('value'))}, z {shown.z(d.get('z'))}, percentile "
+                f"{shown.percentile(d.get('percentile'))} "
+                + (f"among {h.get('rows', 0)} {md_text(h.get('population', 'rows'))}." if h else
+                   "(normal population not available for an imported model).")]
     hist = history_rows(e, shown.log_density)
     if hist:
         out += ["", "### Earlier reviews (oldest first)", ""]

@@ -48,6 +48,7 @@ from typing import Callable
 import numpy as np
 import pandas as pd
 
+from .frames import Tabular
 from ..core.errors import AfterlookError
 from ..core.histograms import range_counts
 from ..core.numbers import finite_or_none
@@ -329,6 +330,8 @@ def _histogram(model: Model, feature: str, population) -> dict:
         values = model.recipe.apply(numeric_columns_of(frame, model.recipe.required_columns())).values[:, j]
         where = (f"normal rows of {os.path.basename(population.path)}" if population.path
                  else "cases labelled normal")
+    elif model.quantiles is None:
+        return None  # an imported model without --train: no normal rows to draw (the schema allows null)
     else:
         values = model.quantiles[:, j]
         where = f"the model's quantile grid ({model.quantiles.shape[0]} points)"
@@ -368,7 +371,7 @@ def add_to_casebook(book_path, model, cases, case_id, status, *, derive=None, no
 
 
 @dataclass
-class CheckResult:
+class CheckResult(Tabular):
     """Outcome of re-scoring a casebook's cases with a model."""
 
     entries: int

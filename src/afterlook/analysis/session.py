@@ -163,7 +163,15 @@ def resolve_training(model: Model, cases: Table, train=None) -> TrainingRows:
     """The normal population for re-fits (see the module docstring)."""
     if train is not None:
         t = as_table(train)
-        return TrainingRows(t, t.path or "given table")
+        notes = []
+        if model.imported:
+            notes.append("the model was imported: a re-fit is afterlook's fit of the given normal rows, compared with "
+                         "the imported detector, so part of a before/after change is the re-fit itself")
+        return TrainingRows(t, t.path or "given table", notes)
+    if model.imported:
+        # Never stand in the cases labelled normal for rows the detector was never shown to have seen.
+        raise AfterlookError("this model was imported and has no training rows: give the normal rows to re-fit on "
+                             "(--train TRAIN, or train= in Python)")
     recorded = model.training.get("path")
     digest = model.training.get("sha256")
     tried = []

@@ -6,6 +6,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from .frames import Tabular
 from ..core.errors import AfterlookError
 from ..core.blas import with_limited_blas
 from .session import as_table
@@ -14,7 +15,7 @@ __all__ = ["shape", "ShapeReport"]
 
 
 @dataclass
-class ShapeReport:
+class ShapeReport(Tabular):
     """Transform suggestions per column; ``to_dict()`` is ``afterlook shape --json``."""
 
     features: list  # list[core.shaping.ShapeResult]

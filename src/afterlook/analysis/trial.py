@@ -6,6 +6,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from .frames import Tabular
 from ..core import expressions
 from ..core.errors import AfterlookError
 from ..core.numbers import finite_or_none
@@ -23,7 +24,7 @@ __all__ = ["TryResult", "try_features", "TrialView", "trial_view", "MetricChange
 
 
 @dataclass
-class TryResult:
+class TryResult(Tabular):
     """Before/after a re-fit with extra derived features."""
 
     before: Confusion

@@ -103,10 +103,10 @@ def build_parser() -> argparse.ArgumentParser:
     _add_table_opts(p)
     _add_common(p)
 
-    from . import casebook_command, discovery_commands, review_command, shape_command
+    from . import casebook_command, discovery_commands, model_command, review_command, shape_command
 
     # The command registry: each module adds its subcommands and returns their handlers.
-    for module in (shape_command, discovery_commands, casebook_command, review_command):
+    for module in (shape_command, discovery_commands, casebook_command, review_command, model_command):
         COMMANDS.update(module.register(sub, _add_common, _add_table_opts, CAUTION))
     return parser
 

@@ -166,7 +166,9 @@ def explain_table(result: ExplainResult) -> Group:
     note = Text(
         f"reading: the value before any transform; z: standard deviations from the normal mean, signed as the "
         f"reading (+ = higher; bar: - left, + right, full at {BAR_FULL_SCALE:g}); "
-        "pct: % of normal rows at or below the reading; contrib: nats of log-density below its peak"
+        + ("pct: % of normal rows at or below the reading" if result.percentiles
+           else "pct: not available for an imported model (no training rows)")
+        + "; contrib: nats of log-density below its peak"
         + ("; model value: after the feature's transform" if shaped else ""),
         style="dim",
     )

@@ -100,6 +100,8 @@ def check_model_numbers(doc: dict, what: str) -> None:
     threshold = doc["threshold"]["value"]
     if not np.isfinite(float(threshold)):
         raise AfterlookError(f"{what}: the threshold is not a finite number")
+    if "quantiles" not in doc["training"] and doc["training"].get("imported"):
+        return  # an imported model (no training rows) carries no quantile grid
     grid = doc["training"]["quantiles"]
     values = grid.get("values") if isinstance(grid, dict) else None
     if not isinstance(values, list) or len(values) != d or any(not isinstance(v, list) for v in values):

@@ -32,6 +32,8 @@ OUTPUT_KINDS = {
     "model": "an afterlook model file",
     "table": "a table scored by afterlook",
     "report": "a casebook report",
+    "parameters": "an afterlook parameter document",
+    "pipeline": "a scikit-learn pipeline file (.joblib)",
 }
 
 _SNIFF_LIMIT = 64 * 1024 * 1024  # a larger JSON file is not parsed to see what it is
@@ -117,6 +119,8 @@ def kind_of_file(p: Path) -> str | None:
         return "a file afterlook cannot read"
     if head.startswith(b"PAR1"):
         return _table_kind(_parquet_columns(p))
+    if head.startswith(b"\x80") and p.suffix == ".joblib":
+        return "pipeline"  # a pickle is never opened to look inside: its name and header say what it is
     stripped = head.lstrip()
     if stripped.startswith((b"{", b"[")) and size <= _SNIFF_LIMIT:
         try:
@@ -129,6 +133,8 @@ def kind_of_file(p: Path) -> str | None:
                 return "model"
             if fmt == "afterlook-casebook":
                 return "a casebook"
+            if fmt == "afterlook-parameters":
+                return "parameters"
             if isinstance(fmt, str) and fmt.startswith("afterlook-"):
                 return f"an afterlook file ({printable(fmt)})"
         if doc is not None:

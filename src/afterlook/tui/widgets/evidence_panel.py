@@ -135,8 +135,10 @@ class EvidencePanel(Vertical):
             if keep in self.feature_names:
                 table.move_cursor(row=self.feature_names.index(keep), animate=False)
         legend = Text(style=self._style("evidence--dim"))
-        legend.append(f"z: sd from the normal mean (bar full at {BAR_FULL_SCALE:g}; - below, + above); pct: % of "
-                      "normal rows at or below; share: % of the case's log-density cost")
+        pct = ("% of normal rows at or below" if getattr(view.explain, "percentiles", True)
+               else "not available for an imported model")
+        legend.append(f"z: sd from the normal mean (bar full at {BAR_FULL_SCALE:g}; - below, + above); pct: {pct}; "
+                      "share: % of the case's log-density cost")
         if any(r.transform for r in view.rows):
             legend.append("; * transformed by the recipe: value is the reading; z, pct and share are on the "
                           "transformed scale, with + meaning a higher reading")
