@@ -99,7 +99,8 @@ def test_report_md_and_html(flow, demo, run_cli, parse_json):
     p = Tags()
     p.feed(html_path.read_text(encoding="utf-8"))
     p.close()
-    assert p.tags.count("svg") == 2 and p.tags.count("section") == 2
+    # a histogram per entry, and the pair picture of the explained entry's two-column derived feature
+    assert p.tags.count("svg") == 3 and p.tags.count("section") == 2
 
 
 def test_check_passes_with_the_refitted_model_and_fails_with_the_original(flow, demo, run_cli, parse_json):

@@ -133,3 +133,19 @@ def test_histogram_view(snap_compare, demo, tmp_path, size):
 def test_help_view(snap_compare, demo, tmp_path, size):
     assert snap_compare(make_app(demo, tmp_path), terminal_size=size, press=["question_mark"],
                         run_before=settle)
+
+
+@SIZES
+def test_pair_view(snap_compare, demo, tmp_path, size):
+    async def run_before(pilot):
+        app = pilot.app
+        await pilot.pause()
+        app.post_message(CandidatesReady(app.selected_case, fixed_candidates(app.selected_case)))
+        await pilot.pause()
+        await pilot.press("c")
+        await settle(pilot)
+        await pilot.press("p")
+        await settle(pilot)
+        assert app.pair is not None and app.pair.expression == "motor_current_a / hydraulic_power"
+
+    assert snap_compare(make_app(demo, tmp_path), terminal_size=size, run_before=run_before)

@@ -26,6 +26,7 @@ from typing import Iterable
 
 from . import shown
 from .case_history import HISTORY_HEAD, history_rows
+from .pair_svg import pair_svg
 from .wording import flag_word
 from ..core.printable import printable
 from ..store.casebook_file import STATUSES, Casebook
@@ -276,6 +277,8 @@ code { font: 0.9em ui-monospace, monospace; background: #f0f1ec; padding: 0 0.2e
 .warn { color: #8a5a00; font-size: 0.9rem; }
 figure { margin: 0.6rem 0; } figcaption { font-size: 0.85rem; color: #45505b; }
 svg .bar { fill: #8fa3b5; } svg .case { stroke: #c0392b; stroke-width: 2; }
+svg .dens { fill: #4f6f8f; } svg.pair .case { fill: none; } svg .band { fill: #b5651d; }
+svg .other { stroke: #8a1c1c; stroke-width: 1.2; }
 svg .caselabel { fill: #c0392b; font: 11px system-ui, sans-serif; }
 svg .axis { stroke: #45505b; stroke-width: 1; } svg .tick { fill: #45505b; font: 10px system-ui, sans-serif; }
 footer { color: #45505b; font-size: 0.85rem; border-top: 1px solid #d5d8d0; margin-top: 2rem; padding-top: 0.8rem; }
@@ -380,6 +383,13 @@ def _html_entry(e: dict) -> str:
                    f"z {shown.z(d.get('z'))}, percentile {shown.percentile(d.get('percentile'))}).")
         out.append(f"<figure>{histogram_svg(h, d.get('value'), label=str(d.get('name', '')))}"
                    f"<figcaption>{_e(caption)}</figcaption></figure>")
+    p = d.get("pair") if d else None
+    if p:
+        caption = (f"{p.get('up')} against {p.get('across')}: {p.get('rows', 0)} normal rows of "
+                   f"{p.get('population', '')} (darker: denser), dots: the edge of {d.get('name')}'s normal band "
+                   "(its 1% to 99% over normal rows), crosses: other labelled anomalies, ring: the case.")
+        out.append(f"<figure>{pair_svg(p, label=str(d.get('name', '')))}<figcaption>{_e(caption)}</figcaption>"
+                   "</figure>")
     hist = history_rows(e, shown.log_density)
     if hist:
         out.append("<h3>Earlier reviews (oldest first)</h3>")

@@ -22,7 +22,9 @@ Entry keys (a JSON-ready dict; more may be added)::
     deciding_feature {name, expression, why, value, z, percentile, histogram}
                  the derived feature when one was chosen, else the feature with the most negative
                  contribution; histogram = {edges, counts, bins, rows, population} of that feature
-                 over the normal population (numpy.histogram, 30 bins)
+                 over the normal population (numpy.histogram, 30 bins); pair (a derived feature of
+                 two readings): {up, across, x_edges, y_edges, normal, others, in_band, band, case,
+                 rows, population}, the grids (rows from the lowest y up) of analysis.pair_view
     warnings     [str]  what the re-fit had to assume (e.g. no training file found)
     history      [earlier entries of the case, whole but for case/created/snapshot/history], newest
                  last (kept by the file layer; shown by analysis.case_history)
@@ -189,6 +191,8 @@ def _review(session: Session, case_id, status: str, pairs, *, note: str, reviewe
         after = explain_case(Session(tried.model, table, training=session.training), cid)
     population = _population(session, bool(pairs), warnings)
     deciding = _deciding_feature(model, pairs, before, after, tried, population)
+    if pairs and population is not None:
+        deciding["pair"] = _pair(session, pairs[0], cid)
     metrics_before = None
     if table.labels is not None:
         metrics_before = {"threshold": model.threshold, **session.scored.confusion().to_dict()}
@@ -246,6 +250,40 @@ def _deciding_feature(model: Model, pairs, before, after, tried, population) -> 
                      "percentile": finite_or_none(ev.percentile)})
     deciding["histogram"] = _histogram(source_model, ev.name, population)
     return deciding
+
+
+PAIR_GRID = (48, 20)  # cells across and up of the pair picture a report draws
+
+
+def _pair(session: Session, pair, case_id: str) -> dict | None:
+    """The derived feature's two readings against each other (the report's pair picture), or None."""
+    from ..core import expressions
+    from .pair_view import pair_view
+
+    name, text = pair
+    columns = expressions.parse(text, known_columns=session.known_columns).columns
+    if len(columns) != 2:
+        return None
+    try:
+        v = pair_view(session, name, text, (columns[0], columns[1]), case_id, nx=PAIR_GRID[0], ny=PAIR_GRID[1])
+    except AfterlookError:
+        return None
+    c = v.counts
+    return {
+        "up": v.y_name, "across": v.x_name,
+        "x_edges": [float(e) for e in c.x_edges], "y_edges": [float(e) for e in c.y_edges],
+        # grids as one line of text per row (lowest y first), so a casebook diff stays readable
+        "normal": grid_rows(c.normal), "others": grid_rows(c.others),
+        "in_band": None if c.in_band is None else ["".join("1" if b else "0" for b in row) for row in c.in_band],
+        "band": None if c.band is None else [finite_or_none(b) for b in c.band],
+        "case": [finite_or_none(x) for x in v.case_xy], "rows": int(c.n_normal),
+        "population": os.path.basename(v.normal_source) if v.normal_source else "normal rows",
+    }
+
+
+def grid_rows(grid) -> list[str]:
+    """A grid of counts as text, one row per string: ``"0 0 3 12 ..."``."""
+    return [" ".join(str(int(v)) for v in row) for row in np.asarray(grid)]
 
 
 def _find(features, name):

@@ -201,3 +201,100 @@ def bar_heights(counts, rows: int, steps: int = STEPS_PER_CELL) -> np.ndarray:
     full = int(rows) * int(steps)
     h = np.rint(c / c.max() * full).astype(np.int64)
     return np.where(c > 0, np.maximum(h, 1), 0)
+
+
+# --------------------------------------------------------------------------
+# two readings against each other (the pair view)
+# --------------------------------------------------------------------------
+
+#: The candidate's normal band: its values between these quantiles over the normal rows.
+PAIR_BAND = (0.01, 0.99)
+
+
+@dataclass(frozen=True)
+class PairCounts:
+    """Counts of two readings against each other on a grid, with one case and the candidate's normal band.
+
+    Grids are ``(ny, nx)``; row 0 is the lowest ``y`` bin. Edges are
+    :func:`shared_edges` of each reading (the same window rule as the
+    one-feature histogram), so the case is always inside the picture.
+    """
+
+    x_edges: np.ndarray
+    y_edges: np.ndarray
+    normal: np.ndarray  # normal rows per cell
+    others: np.ndarray  # other labelled anomalies per cell
+    case_cell: tuple[int, int] | None  # (column, row) of the case; None when a reading is missing
+    in_band: np.ndarray | None  # the candidate at the cell's centre lies inside its normal band
+    band: tuple[float, float] | None  # the band's two quantiles of the candidate over normal rows
+    n_normal: int  # finite normal pairs
+    normal_outside: int  # finite normal pairs outside the window
+    others_outside: int
+
+
+def _grid_counts(x, y, x_edges, y_edges) -> tuple[np.ndarray, int, int]:
+    x = np.asarray(x, dtype=np.float64).ravel()
+    y = np.asarray(y, dtype=np.float64).ravel()
+    ok = np.isfinite(x) & np.isfinite(y)
+    x, y = x[ok], y[ok]
+    inside = (x >= x_edges[0]) & (x <= x_edges[-1]) & (y >= y_edges[0]) & (y <= y_edges[-1])
+    counts, _, _ = np.histogram2d(y[inside], x[inside], bins=[y_edges, x_edges])
+    return counts.astype(np.int64), int(ok.sum()), int((~inside).sum())
+
+
+def _bin_of(value: float, edges: np.ndarray) -> int:
+    return int(min(np.searchsorted(edges, value, side="right") - 1, edges.size - 2))
+
+
+def pair_counts(x, y, case_xy, others_x=(), others_y=(), *, nx: int = 40, ny: int = 12, feature=None,
+                band: tuple[float, float] = PAIR_BAND, tail: float = DEFAULT_TAIL) -> PairCounts:
+    """Normal rows, other anomalies and one case on an ``nx`` x ``ny`` grid of two readings.
+
+    Parameters
+    ----------
+    x, y : array_like, shape (n,)
+        The two readings over the normal rows (pairs with a NaN or infinite
+        value are left out and not counted).
+    case_xy : (float, float)
+    others_x, others_y : array_like, shape (m,)
+        The other labelled anomalies' readings (the case itself excluded).
+    feature : callable(x, y) -> values, optional
+        The candidate as a function of the two readings. Its normal band is
+        its ``band`` quantiles over the normal rows; ``in_band`` marks the
+        cells whose centre falls inside (for a ratio ``y / x``: the wedge
+        between the lines through the origin with those two slopes).
+    """
+    cx, cy = (float(v) for v in case_xy)
+    x_edges = shared_edges(x, cx, nx, tail)
+    y_edges = shared_edges(y, cy, ny, tail)
+    normal, n_normal, normal_outside = _grid_counts(x, y, x_edges, y_edges)
+    others, _, others_outside = _grid_counts(others_x, others_y, x_edges, y_edges)
+    case_cell = (_bin_of(cx, x_edges), _bin_of(cy, y_edges)) if np.isfinite(cx) and np.isfinite(cy) else None
+    in_band = quantiles = None
+    if feature is not None:
+        xs = np.asarray(x, dtype=np.float64).ravel()
+        ys = np.asarray(y, dtype=np.float64).ravel()
+        ok = np.isfinite(xs) & np.isfinite(ys)
+        with np.errstate(all="ignore"):
+            values = np.asarray(feature(xs[ok], ys[ok]), dtype=np.float64)
+        values = values[np.isfinite(values)]
+        if values.size:
+            lo, hi = (float(q) for q in np.quantile(values, band))
+            quantiles = (lo, hi)
+            gx, gy = np.meshgrid(0.5 * (x_edges[:-1] + x_edges[1:]), 0.5 * (y_edges[:-1] + y_edges[1:]))
+            with np.errstate(all="ignore"):
+                at = np.asarray(feature(gx.ravel(), gy.ravel()), dtype=np.float64).reshape(gx.shape)
+            in_band = np.isfinite(at) & (at >= lo) & (at <= hi)
+    return PairCounts(x_edges, y_edges, normal, others, case_cell, in_band, quantiles, n_normal, normal_outside,
+                      others_outside)
+
+
+def band_edge(in_band: np.ndarray) -> np.ndarray:
+    """Cells inside the band with a 4-neighbour outside it: the band's boundary, drawn as lines.
+
+    The grid's own border does not count as outside (``numpy.pad`` in edge mode).
+    """
+    b = np.asarray(in_band, dtype=bool)
+    padded = np.pad(b, 1, mode="edge")
+    inner = padded[:-2, 1:-1] & padded[2:, 1:-1] & padded[1:-1, :-2] & padded[1:-1, 2:]
+    return b & ~inner

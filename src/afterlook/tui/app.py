@@ -29,6 +29,7 @@ from . import format as fmt
 from . import messages as msg
 from .casebook_flow import CasebookFlow
 from .histogram_flow import HistogramFlow
+from .pair_flow import PairFlow
 from .failures import internal_error
 from .screens.help import HelpScreen
 from .screens.workbench_screen import WorkbenchScreen
@@ -36,6 +37,7 @@ from .widgets.candidates_panel import CandidatesPanel
 from .widgets.case_list import CaseList, context_widths
 from .widgets.evidence_panel import EvidencePanel
 from .widgets.histogram_panel import HistogramPanel
+from .widgets.pair_panel import PairPanel
 from .widgets.status_line import StatusLine
 from .widgets.try_panel import TryPanel
 
@@ -63,7 +65,7 @@ class _Stale(Exception):
     """Raised inside a worker's progress callback once the worker was cancelled."""
 
 
-class WorkbenchApp(CasebookFlow, HistogramFlow, App[int]):
+class WorkbenchApp(CasebookFlow, HistogramFlow, PairFlow, App[int]):
     CSS_PATH = "app.tcss"
     TITLE = "afterlook"
     ENABLE_COMMAND_PALETTE = False
@@ -145,6 +147,10 @@ class WorkbenchApp(CasebookFlow, HistogramFlow, App[int]):
         return next(iter(self.workbench.query(HistogramPanel)), None)
 
     @property
+    def pair_panel(self) -> PairPanel | None:
+        return next(iter(self.workbench.query(PairPanel)), None)
+
+    @property
     def try_panel(self) -> TryPanel | None:
         return next(iter(self.workbench.query(TryPanel)), None)
 
@@ -159,6 +165,8 @@ class WorkbenchApp(CasebookFlow, HistogramFlow, App[int]):
                 self.try_panel.running(self.trial_running)
         elif message.panel == "histogram" and self.tabs.active == "histogram":
             self.request_histogram()
+        elif message.panel == "pair" and self.tabs.active == "pair":
+            self.request_pair()
 
     def _try_status_hint(self) -> None:
         if self.try_panel is not None:
@@ -235,6 +243,8 @@ class WorkbenchApp(CasebookFlow, HistogramFlow, App[int]):
             self._candidate_timer = self.set_timer(self.candidate_delay, lambda: self.start_candidates(case_id))
         if self.tabs.active == "histogram":
             self.request_histogram()
+        elif self.tabs.active == "pair":
+            self.request_pair()
 
     # -- filter and toggles -------------------------------------------------------
     def on_filter_changed(self, message: msg.FilterChanged) -> None:
@@ -280,6 +290,8 @@ class WorkbenchApp(CasebookFlow, HistogramFlow, App[int]):
     def _tab_activated(self, event: TabbedContent.TabActivated) -> None:
         if event.pane.id == "histogram":
             self._ensure_histogram()
+        elif event.pane.id == "pair":
+            self.request_pair()
 
     def action_help(self) -> None:
         self.push_screen(HelpScreen(), callback=lambda _: self.flush_notes())
@@ -381,6 +393,7 @@ class WorkbenchApp(CasebookFlow, HistogramFlow, App[int]):
 
     def on_candidate_highlighted(self, message: msg.CandidateHighlighted) -> None:
         self.candidate_index = message.index
+        self.request_pair()
 
     def on_candidate_chosen(self, message: msg.CandidateChosen) -> None:
         self.candidate_index = message.index
@@ -490,5 +503,8 @@ class WorkbenchApp(CasebookFlow, HistogramFlow, App[int]):
         elif message.what == "histogram":
             if self.histogram_panel is not None:
                 self.histogram_panel.failed(message.message)
+        elif message.what == "pair":
+            if self.pair_panel is not None:
+                self.pair_panel.failed(message.message)
         elif message.what == "casebook":
             self.saving = False

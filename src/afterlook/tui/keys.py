@@ -30,6 +30,7 @@ WORKBENCH_KEYS: tuple[Key, ...] = (
     Key("", "enter", "", "on a candidate: apply it (re-fit and re-score)", False),
     Key("t", "t", "type_expression", "try"),
     Key("h", "h", "histogram", "histogram"),
+    Key("p", "p", "pair", "pair", False),  # the tab's title shows the key; the footer is full at 80 columns
     Key("s", "s", "toggle_shaped", "shaped", False),
     Key("left_square_bracket", "[", "histogram_step(-1)", "previous feature in the histogram", False),
     Key("right_square_bracket", "]", "histogram_step(1)", "next feature in the histogram", False),
@@ -52,6 +53,8 @@ HELP_WORDS = {
     "apply": "apply the highlighted candidate (the top one if none is highlighted)",
     "try": "type your own derived feature (NAME = EXPR or EXPR), enter to try it",
     "histogram": "histogram of the highlighted feature or candidate",
+    "pair": "pair view of the highlighted pair candidate: its two readings against each other, the normal "
+            "rows as a density, the other anomalies, the case and the candidate's normal band",
     "shaped": "histogram: switch between plain and shaped (the transform shape picks)",
     "save": "save the selected case to the casebook (status and note)",
     "zoom": "hide or show the case list, for more room below",

@@ -101,6 +101,12 @@ class HistogramReady(Message):
         self.view = view
 
 
+class PairReady(Message):
+    def __init__(self, view) -> None:
+        super().__init__()
+        self.view = view
+
+
 class CasebookLoaded(Message):
     def __init__(self, case_ids: set[str]) -> None:
         super().__init__()

@@ -13,6 +13,7 @@ from ..widgets.candidates_panel import CandidatesPanel
 from ..widgets.case_list import CaseList
 from ..widgets.evidence_panel import EvidencePanel
 from ..widgets.histogram_panel import HistogramPanel
+from ..widgets.pair_panel import PairPanel
 from ..widgets.status_line import StatusLine
 from ..widgets.try_panel import TryPanel
 
@@ -43,6 +44,8 @@ class WorkbenchScreen(Screen):
                 yield Lazy(CandidatesPanel(id="candidates-panel"))
             with TabPane("histogram \\[h]", id="histogram"):
                 yield Lazy(HistogramPanel(id="histogram-panel"))
+            with TabPane("pair \\[p]", id="pair"):
+                yield Lazy(PairPanel(id="pair-panel"))
             with TabPane("try \\[t]", id="try"):
                 yield Lazy(TryPanel(id="try-panel"))
         yield Footer(show_command_palette=False, compact=True)
