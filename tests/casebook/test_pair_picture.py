@@ -68,6 +68,8 @@ def test_the_html_report_draws_it(entry):
 def test_a_damaged_grid_draws_nothing_rather_than_failing():
     assert pair_svg({"normal": ["1 2", "x y"], "x_edges": [0, 1, 2], "y_edges": [0, 1, 2]}) == ""
     assert pair_svg({"normal": []}) == ""
+    assert pair_svg({"normal": ["1 2", "3 4"]}) == ""  # no edges
+    assert pair_svg({"normal": ["1 2", "3 4"], "x_edges": [0, 1], "y_edges": [0, 1, 2]}) == ""  # wrong length
     svg = pair_svg({"up": "<b>", "across": "a&b", "normal": ["1 0", "0 2"], "others": ["0 1", "0 0"],
                     "in_band": ["11", "10"], "x_edges": [0, 1, 2], "y_edges": [0, 1, 2], "case": [0.5, 1.5]})
     assert "<b>" not in svg and "&lt;b&gt;" in svg

@@ -32,16 +32,29 @@ def _grid(rows) -> np.ndarray:
     return out if out.ndim == 2 else np.zeros((0, 0))
 
 
+def _edges(values, n: int) -> list[float] | None:
+    try:
+        edges = [float(v) for v in values]
+    except (TypeError, ValueError):
+        return None
+    ok = len(edges) == n + 1 and all(math.isfinite(v) for v in edges) and edges[-1] > edges[0]
+    return edges if ok else None
+
+
 def pair_svg(pair: dict, *, label: str = "", width: int = 420, height: int = 220) -> str:
+    """The picture, or "" when the stored grid is missing or inconsistent (a damaged entry draws nothing)."""
+    if not isinstance(pair, dict):
+        return ""
     normal = _grid(pair.get("normal"))
     if normal.size == 0:
         return ""
     others = _grid(pair.get("others"))
     if others.shape != normal.shape:
         others = np.zeros_like(normal)
-    xe = [float(v) for v in pair["x_edges"]]
-    ye = [float(v) for v in pair["y_edges"]]
     ny, nx = normal.shape
+    xe, ye = _edges(pair.get("x_edges") or [], nx), _edges(pair.get("y_edges") or [], ny)
+    if xe is None or ye is None:
+        return ""
     left, right, top, bottom = 48.0, 10.0, 10.0, 30.0
     cw, ch = (width - left - right) / nx, (height - top - bottom) / ny
     title = f"{pair.get('up')} against {pair.get('across')}" + (f" ({label})" if label else "")
@@ -71,7 +84,7 @@ def pair_svg(pair: dict, *, label: str = "", width: int = 420, height: int = 220
         parts.append(f'<path class="other" d="M{x + 1:.1f},{y + 1:.1f}L{x + cw - 1:.1f},{y + ch - 1:.1f}'
                      f'M{x + cw - 1:.1f},{y + 1:.1f}L{x + 1:.1f},{y + ch - 1:.1f}"/>')
     case = pair.get("case") or [None, None]
-    if all(isinstance(v, (int, float)) for v in case):
+    if len(case) == 2 and all(isinstance(v, (int, float)) and math.isfinite(v) for v in case):
         px = left + (case[0] - xe[0]) / (xe[-1] - xe[0]) * nx * cw
         py = top + (1 - (case[1] - ye[0]) / (ye[-1] - ye[0])) * ny * ch
         parts.append(f'<circle class="case" cx="{px:.1f}" cy="{py:.1f}" r="4"><title>case '
