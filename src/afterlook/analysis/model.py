@@ -7,6 +7,7 @@ scoring call the pure functions in :mod:`afterlook.core`; only ``save`` and
 
 from __future__ import annotations
 
+import threading
 from dataclasses import dataclass, field
 from datetime import datetime, timezone
 from typing import Mapping
@@ -18,7 +19,7 @@ from .._version import __version__
 from ..core import fingerprint as fingerprints
 from ..core.errors import AfterlookError
 from ..core.explain import QUANTILE_POINTS, grid_of_sorted_columns, quantile_grid
-from ..core.gaussian import GaussianModel
+from ..core.gaussian import GaussianModel, RowMoments
 from ..core.recipe import FeatureMatrix, Recipe
 from ..core.thresholds import UNDEFINED_POLICIES, ThresholdPolicy, apply_undefined_policy, flag, parse_policy
 from ..core.blas import with_limited_blas
@@ -67,6 +68,17 @@ class Model:
     source_path: str | None = None
     warnings: list[str] = field(default_factory=list)
     undefined: str = "flag"
+
+    def defer_quantiles(self, rows: np.ndarray) -> None:
+        """Make the quantile grid from ``rows`` (n, d) when it is first read, not now.
+
+        ``rows`` must be the model's own Fortran-ordered copy of its finite
+        training features: it is kept until then and sorted in place, so a fit
+        whose grid is never used (a notebook that only scores) never pays the
+        sort, and one that is saved pays it once.
+        """
+        self.__dict__["_grid_rows"] = rows
+        self.__dict__["_quantiles"] = None
 
     # -- features and scores ---------------------------------------------
     @property
@@ -208,30 +220,59 @@ class Model:
         return ", ".join(parts)
 
 
+_GRID_LOCK = threading.Lock()  # two workbench threads must not sort the same rows at once
+
+
+def _get_quantiles(self) -> np.ndarray | None:
+    if self.__dict__.get("_grid_rows") is not None:
+        with _GRID_LOCK:
+            rows = self.__dict__.get("_grid_rows")
+            if rows is not None:
+                self.__dict__["_quantiles"] = _grid_of_own_rows(rows)
+                self.__dict__["_grid_rows"] = None
+    return self.__dict__.get("_quantiles")
+
+
+def _set_quantiles(self, value) -> None:
+    self.__dict__["_grid_rows"] = None
+    self.__dict__["_quantiles"] = value
+
+
+# Set after the dataclass is made, so that ``quantiles`` stays an __init__ field.
+Model.quantiles = property(_get_quantiles, _set_quantiles, doc="Quantile grid (points, d), made on first use.")
+
+
 def load_model(path) -> Model:
     """Read a model file (clear error for anything that is not one)."""
     return Model.from_dict(model_file.read_model_document(path), source_path=str(path))
 
 
-def training_summary(X: np.ndarray, names: list[str], quantiles: bool = True) -> tuple[dict, np.ndarray | None]:
-    """Per-feature statistics and (optionally) the quantile grid of the normal rows."""
-    X = np.asarray(X, dtype=np.float64)
-    # One contiguous copy of the columns serves the statistics and then, sorted
-    # in place, the grid: reading the columns of a (n, d) matrix one by one is
-    # strided and was slower than the fit itself. The reductions are the same
-    # (numpy sums a strided column and a contiguous one the same way).
-    columns = np.ascontiguousarray(X.T)
-    stats = {}
-    for j, name in enumerate(names):
-        col = columns[j]
-        stats[name] = {"mean": float(col.mean()), "std": float(col.std()), "min": float(col.min()),
-                       "max": float(col.max())}
+def training_summary(X: np.ndarray, names: list[str], quantiles: bool = True,
+                     moments: RowMoments | None = None) -> tuple[dict, np.ndarray | None]:
+    """Per-feature statistics and (optionally) the quantile grid of the normal rows.
+
+    ``moments``: :meth:`RowMoments.of` of the same rows when the caller has
+    them (the fit does); the standard deviation comes from the scatter's
+    diagonal, which agrees with ``numpy.std`` to rounding (about 1e-16 relative).
+    """
+    if moments is None:
+        X = np.asfortranarray(X, dtype=np.float64)  # columns contiguous, as the fit keeps them
+        moments = RowMoments.of(X, full=False)
+    sd = moments.std()
+    stats = {name: {"mean": float(moments.mean[j]), "std": float(sd[j]), "min": float(moments.minimum[j]),
+                    "max": float(moments.maximum[j])}
+             for j, name in enumerate(names)}
     if not quantiles:
         return stats, None
-    if X.shape[0] < 2 or not np.isfinite(columns).all():
-        return stats, quantile_grid(X, QUANTILE_POINTS)
-    columns.sort(axis=1)
-    return stats, grid_of_sorted_columns(columns, QUANTILE_POINTS)
+    return stats, quantile_grid(X, QUANTILE_POINTS)
+
+
+def _grid_of_own_rows(X: np.ndarray) -> np.ndarray:
+    """The quantile grid of ``X`` (n, d), Fortran-ordered and finite, sorting ``X`` in place (no copy)."""
+    if X.shape[0] < 2 or not np.isfortran(X):
+        return quantile_grid(X, QUANTILE_POINTS)
+    X.sort(axis=0)  # each column is contiguous: one in-place sort per column
+    return grid_of_sorted_columns(X.T, QUANTILE_POINTS)
 
 
 def _columns_of(obj) -> Mapping[str, np.ndarray]:
