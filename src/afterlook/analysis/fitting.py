@@ -246,7 +246,7 @@ def _build_recipe(table: Table, normal_frame: pd.DataFrame, columns, derive, tra
     else:
         base = list(table.numeric_columns)
         values = (columns_of or (lambda names: numeric_columns_of(normal_frame, names)))(base)
-        constant = [c for c in base if np.nanmin(values[c]) == np.nanmax(values[c])] if len(normal_frame) else []
+        constant = [c for c in base if _is_constant(values[c])] if len(normal_frame) else []
         if constant:
             warnings.append(f"left out {len(constant)} constant column(s): {', '.join(constant)} (a value they "
                             "take on a case but never in normal rows is reported by misses)")
@@ -258,6 +258,15 @@ def _build_recipe(table: Table, normal_frame: pd.DataFrame, columns, derive, tra
         raise AfterlookError("no numeric columns to model")
     transforms = {name: parse_transform(name, text) for name, text in derive_pairs(transform, "--transform")}
     return Recipe(base, derived, transforms)
+
+
+def _is_constant(values: np.ndarray) -> bool:
+    """``nanmin == nanmax``; two different values among the first rows settle it without reading the rest."""
+    head = values[:1024]
+    head = head[~np.isnan(head)]
+    if head.size and (head != head[0]).any():
+        return False
+    return bool(np.nanmin(values) == np.nanmax(values))
 
 
 @with_limited_blas

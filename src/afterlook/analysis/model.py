@@ -20,7 +20,7 @@ from ..core import fingerprint as fingerprints
 from ..core.errors import AfterlookError
 from ..core.explain import QUANTILE_POINTS, grid_of_sorted_columns, quantile_grid
 from ..core.gaussian import GaussianModel, RowMoments
-from ..core.recipe import FeatureMatrix, Recipe
+from ..core.recipe import FeatureMatrix, Recipe, apply_transform
 from ..core.thresholds import UNDEFINED_POLICIES, ThresholdPolicy, apply_undefined_policy, flag, parse_policy
 from ..core.blas import with_limited_blas
 from ..store import model_file
@@ -93,23 +93,56 @@ class Model:
         """Model features of ``columns`` (a DataFrame or a name -> array mapping) after the recipe."""
         return self.recipe.apply(_columns_of(columns))
 
+    def feature_columns(self, columns: Mapping[str, np.ndarray] | pd.DataFrame) -> list[np.ndarray]:
+        """The model's features of ``columns`` as d 1-D arrays, without building the (n, d) matrix.
+
+        A feature the recipe takes as it is stays a view of the table's float64
+        column; derived and transformed ones are computed (as :meth:`feature_matrix`
+        does, except that non-finite values are left as they are: the density
+        treats NaN and infinity alike).
+        """
+        cols = _columns_of(columns)
+        env = self.recipe.raw_features(cols)
+        out = []
+        for name in self.recipe.features:
+            t = self.recipe.transforms.get(name)
+            out.append(apply_transform(t, name, env[name]) if t is not None else np.asarray(env[name], np.float64))
+        if any(v.ndim == 0 for v in out):  # a derived feature that is a constant
+            n = next((len(v) for v in out if v.ndim), getattr(cols, "n_rows", None))
+            if n is None:
+                n = len(next(iter(cols.values()))) if len(cols) else 0
+            out = [np.broadcast_to(v, (n,)) if v.ndim == 0 else v for v in out]
+        return out
+
     def log_density(self, columns: Mapping[str, np.ndarray] | pd.DataFrame) -> np.ndarray:
         """Log-density of each row: NaN where a reading is missing; -inf where a feature is
         undefined on finite readings and the model's ``undefined`` policy is "flag"."""
         cols = _columns_of(columns)
-        ld = self.density.log_density(self.recipe.apply(cols).values)
+        ld = self.density.log_density(self.feature_columns(cols))
         return self.with_undefined_policy(ld, cols)
 
     def with_undefined_policy(self, log_density: np.ndarray, columns: Mapping[str, np.ndarray]) -> np.ndarray:
-        """``log_density`` with the model's undefined-value policy applied (``columns``: the raw readings)."""
-        return apply_undefined_policy(log_density, self.inputs_finite(columns), self.undefined)
+        """``log_density`` with the model's undefined-value policy applied (``columns``: the raw readings).
 
-    def inputs_finite(self, columns: Mapping[str, np.ndarray]) -> np.ndarray:
-        """Rows whose every reading the recipe uses is finite."""
-        needed = [np.isfinite(np.asarray(columns[c], dtype=np.float64)) for c in self.recipe.required_columns()]
-        if not needed:
-            return np.ones(len(next(iter(columns.values()))) if columns else 0, dtype=bool)
-        return np.all(np.column_stack(needed), axis=1)
+        A new array. Only the rows whose log-density is NaN can change, so only
+        their readings are looked at.
+        """
+        ld = np.array(log_density, dtype=np.float64)
+        rows = np.flatnonzero(np.isnan(ld))
+        ld[rows] = apply_undefined_policy(ld[rows], self.inputs_finite(columns, rows), self.undefined)
+        return ld
+
+    def inputs_finite(self, columns: Mapping[str, np.ndarray], rows: np.ndarray | None = None) -> np.ndarray:
+        """Rows whose every reading the recipe uses is finite (of the rows at positions ``rows``, when given)."""
+        ok = None
+        for c in self.recipe.required_columns():
+            values = np.asarray(columns[c], dtype=np.float64)
+            finite = np.isfinite(values if rows is None else values[rows])
+            ok = finite if ok is None else np.logical_and(ok, finite, out=ok)
+        if ok is None:
+            n = len(rows) if rows is not None else (len(next(iter(columns.values()))) if columns else 0)
+            return np.ones(n, dtype=bool)
+        return ok
 
     @with_limited_blas
     def score(self, df: pd.DataFrame) -> pd.DataFrame:
@@ -123,12 +156,13 @@ class Model:
         out["flagged"] = flag(ld, self.threshold)
         return out
 
+    @with_limited_blas
     def score_with_overflow(self, df: pd.DataFrame) -> tuple[pd.DataFrame, np.ndarray]:
         """:meth:`score` and the rows at -inf because a finite reading overflowed (not a feature's domain)."""
         cols = _columns_of(df)
-        raw = self.density.log_density(self.recipe.apply(cols).values)  # -inf only on overflow
+        raw = self.density.log_density(self.feature_columns(cols))  # -inf only on overflow
         ld = self.with_undefined_policy(raw, cols)
-        out = df.copy()
+        out = df.copy(deep=False)  # as in score: the caller's frame is never written
         out["log_density"] = ld
         out["flagged"] = flag(ld, self.threshold)
         return out, np.isneginf(raw)

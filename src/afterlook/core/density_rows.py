@@ -28,9 +28,11 @@ def triangular_inverse(chol: np.ndarray) -> np.ndarray:
     return np.tril(np.linalg.inv(chol))
 
 
-# Rows per block of the scoring kernel: two (block, d) buffers of at most
-# ~256 KB each stay in a core's L2 cache (2 MB here) while BLAS works on them.
-_BLOCK_VALUES = 32_768
+# Values per block of rows: two (block, d) buffers of 1 MB each stay in a
+# core's L2 cache (2 MB here) while BLAS works on them. Measured on 1,000,000 x
+# 32: blocks of 1,024 rows were 6% slower (a numpy call per column per block),
+# 16,384 rows 60% slower (out of cache).
+_BLOCK_VALUES = 131_072
 
 
 def full_log_density(X, mean: np.ndarray, chol: np.ndarray) -> np.ndarray:
@@ -45,9 +47,9 @@ def full_log_density(X, mean: np.ndarray, chol: np.ndarray) -> np.ndarray:
     the explicit ``L^-T``; ``L`` is well conditioned because fit() refuses or
     shrinks a singular S) into a second, squared and summed in place.
     """
-    columns = _as_columns(X)
-    d = len(columns)
-    n = len(columns[0]) if d else 0
+    matrix = X if isinstance(X, np.ndarray) and X.ndim == 2 else None
+    columns = None if matrix is not None else _as_columns(X)
+    n, d = matrix.shape if matrix is not None else (len(columns[0]) if columns else 0, len(columns))
     const = -0.5 * d * LOG_2PI - np.log(np.diag(chol)).sum()
     whiten = np.ascontiguousarray(triangular_inverse(chol).T)
     out = np.empty(n)
@@ -58,8 +60,11 @@ def full_log_density(X, mean: np.ndarray, chol: np.ndarray) -> np.ndarray:
         stop = min(n, start + block)
         m = stop - start
         c = centred[:, :m]
-        for j, col in enumerate(columns):
-            np.subtract(col[start:stop], mean[j], out=c[j])
+        if matrix is not None:  # one call per block (the columns are contiguous when X is Fortran-ordered)
+            np.subtract(matrix[start:stop].T, mean[:, None], out=c)
+        else:
+            for j, col in enumerate(columns):
+                np.subtract(col[start:stop], mean[j], out=c[j])
         w = white[:m]
         np.matmul(c.T, whiten, out=w)
         np.einsum("ij,ij->i", w, w, out=out[start:stop])
@@ -116,7 +121,7 @@ class RowMoments:
         mean = X.mean(axis=0) if mean is None else mean
         scatter = np.zeros((d, d))
         squares = np.zeros(d)
-        block = max(1, min(n, 4 * _BLOCK_VALUES // max(d, 1)))
+        block = max(1, min(n, _BLOCK_VALUES // max(d, 1)))
         buf = np.empty((d, block))
         for start in range(0, n, block):
             stop = min(n, start + block)

@@ -343,7 +343,7 @@ class GaussianModel:
             if self.kind == "independent":
                 out = _independent_log_density_columns(columns, self.mean_, self.var_)
             else:
-                out = full_log_density(columns, self.mean_, self.chol_)
+                out = full_log_density(X if isinstance(X, np.ndarray) else columns, self.mean_, self.chol_)
         # A non-finite input always gives a non-finite result (NaN and inf
         # propagate through the sums, and L^-1 has a non-zero diagonal), so
         # only those rows need their inputs looked at: NaN when one is missing,

@@ -462,7 +462,10 @@ def _build_table(frame: pd.DataFrame, name: str, *, id_col, label_col, require_l
     finite = np.ones(len(frame), dtype=bool)
     per_column: list[tuple[int, str]] = []
     for col in numeric_columns:
-        ok = np.isfinite(values[col].to_numpy(dtype=np.float64, na_value=np.nan))
+        series = values[col]
+        # float64 holds NaN for missing: read it in place instead of converting a copy
+        ok = np.isfinite(series.to_numpy(copy=False) if series.dtype == np.float64
+                         else series.to_numpy(dtype=np.float64, na_value=np.nan))
         n_bad = int(len(ok) - ok.sum())
         if n_bad:
             per_column.append((n_bad, col))
