@@ -507,4 +507,11 @@ def sha256_file(path: str | os.PathLike[str]) -> str:
         raise _fail(f"cannot read {name}: {exc.strerror or exc}") from None
 
 
-from afterlook.store.table_write import write_table  # noqa: E402 - re-exported; it imports nothing from here
+def __getattr__(name: str):
+    # write_table is re-exported from table_write, imported when first asked for: it loads
+    # pyarrow.parquet (~20 ms), which a command that only reads a CSV never needs.
+    if name == "write_table":
+        from afterlook.store.table_write import write_table
+
+        return write_table
+    raise AttributeError(f"module {__name__!r} has no attribute {name!r}")
