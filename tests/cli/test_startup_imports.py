@@ -11,7 +11,8 @@ import json
 import subprocess
 import sys
 
-HEAVY = ("numpy", "pandas", "scipy", "scipy.stats", "sklearn", "textual", "rich", "pyarrow")
+HEAVY = ("numpy", "pandas", "scipy", "scipy.stats", "scipy.linalg", "sklearn", "textual", "rich", "pyarrow",
+         "jsonschema")
 
 
 def loaded_after(code: str) -> dict:
@@ -64,3 +65,25 @@ with contextlib.redirect_stdout(io.StringIO()):
     loaded = loaded_after(code)
     assert loaded["numpy"] and loaded["pandas"]  # it did run
     assert not any(loaded[m] for m in ("sklearn", "scipy.stats", "textual")), loaded
+    # scipy.linalg (~0.13 s) is not needed to score: the density uses numpy's LAPACK; and a model
+    # file that passes the plain structural check never imports jsonschema (~0.05 s).
+    assert not loaded["scipy"] and not loaded["jsonschema"], loaded
+
+
+def test_a_damaged_model_file_still_goes_through_jsonschema(demo_written, tmp_path):
+    # The fast path must not weaken the check: a file the plain check doubts is judged by jsonschema,
+    # whose message names the place.
+    doc = json.loads(demo_written.model.read_text("utf-8"))
+    doc["model"]["mean"][0] = "12.5"
+    bad = tmp_path / "model.json"
+    bad.write_text(json.dumps(doc), encoding="utf-8")
+    code = f"""
+import contextlib, io
+from afterlook.cli.main import main
+err = io.StringIO()
+with contextlib.redirect_stdout(io.StringIO()), contextlib.redirect_stderr(err):
+    assert main(["misses", {str(bad)!r}, {str(demo_written.cases)!r}]) == 2
+assert "does not match the afterlook-model format at model/mean/0" in err.getvalue(), err.getvalue()
+"""
+    loaded = loaded_after(code)
+    assert loaded["jsonschema"], loaded

@@ -36,7 +36,10 @@ def test_training_summary_equals_the_column_by_column_statistics():
     stats, grid = training_summary(X, names)
     for j, name in enumerate(names):
         col = X[:, j]
-        assert stats[name] == {"mean": float(col.mean()), "std": float(col.std()), "min": float(col.min()),
-                               "max": float(col.max())}
+        # mean, min and max to the bit; the std comes from the scatter matrix's
+        # diagonal (summed in row blocks), so it agrees with numpy's two-pass std to rounding.
+        assert {k: v for k, v in stats[name].items() if k != "std"} == {
+            "mean": float(col.mean()), "min": float(col.min()), "max": float(col.max())}
+        assert stats[name]["std"] == pytest.approx(float(col.std()), rel=1e-13)
     assert np.array_equal(grid, np.quantile(X, np.linspace(0.0, 1.0, 1001), axis=0))
     assert training_summary(X, names, quantiles=False) == (stats, None)

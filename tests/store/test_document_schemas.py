@@ -116,3 +116,72 @@ def test_schemas_ship_with_the_package():
     assert (SCHEMAS / "afterlook-model.schema.json").is_file()
     assert (SCHEMAS / "afterlook-casebook.schema.json").is_file()
     assert shutil.os.path.basename(SCHEMAS) == "schemas"
+
+
+# -- the plain pre-check that spares jsonschema on every read -------------------------------------------
+
+from hypothesis import HealthCheck, given, settings  # noqa: E402
+from hypothesis import strategies as st  # noqa: E402
+
+from afterlook.store.documents import plainly_valid  # noqa: E402
+
+_SMALL_JSON = st.recursive(
+    st.none() | st.booleans() | st.integers(-3, 3) | st.sampled_from([0.5, 1.0, -2.0, 1e300])
+    | st.sampled_from(["", "x", "full", "independent", "afterlook-model", "afterlook-casebook", "anomaly", "f1"]),
+    lambda inner: st.lists(inner, max_size=3) | st.dictionaries(st.sampled_from(["a", "kind", "value"]), inner,
+                                                                max_size=3),
+    max_leaves=6)
+
+
+def _paths(doc, here=()):
+    yield here
+    if isinstance(doc, dict):
+        for k, v in doc.items():
+            yield from _paths(v, here + (k,))
+    elif isinstance(doc, list):
+        for i, v in enumerate(doc[:3]):  # the first items of long number lists are enough
+            yield from _paths(v, here + (i,))
+
+
+def _mutated(doc, path, how, value):
+    import copy
+
+    doc = copy.deepcopy(doc)
+    if not path:
+        return value if how == "replace" else doc
+    parent = doc
+    for k in path[:-1]:
+        parent = parent[k]
+    key = path[-1]
+    if how == "replace":
+        parent[key] = value
+    elif how == "delete":
+        del parent[key]
+    elif isinstance(parent[key], dict):
+        parent[key]["extra_key"] = value
+    elif isinstance(parent[key], list):
+        parent[key].append(value)
+    return doc
+
+
+@pytest.mark.parametrize("path,name", [(DEMO_BOOK, "afterlook-casebook"), (DEMO_MODEL, "afterlook-model")])
+def test_the_plain_check_accepts_what_afterlook_writes(path, name):
+    # Guards the test below against a check that never says yes (it would then always defer).
+    assert plainly_valid(json.loads(path.read_text("utf-8")), schema_of(name))
+
+
+@settings(max_examples=300, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@given(data=st.data(), which=st.sampled_from(["model", "casebook"]))
+def test_the_plain_check_never_accepts_what_jsonschema_refuses(data, which):
+    # Reference: jsonschema's Draft 2020-12 validator on the same mutated document. The plain check may
+    # defer (say False) on a valid document, but a True must mean jsonschema finds no error.
+    path, name = (DEMO_MODEL, "afterlook-model") if which == "model" else (DEMO_BOOK, "afterlook-casebook")
+    doc = json.loads(path.read_text("utf-8"))
+    where = data.draw(st.sampled_from(list(_paths(doc))))
+    how = data.draw(st.sampled_from(["replace", "delete", "add"]))
+    if how == "delete" and not where:
+        how = "replace"
+    broken = _mutated(doc, where, how, data.draw(_SMALL_JSON))
+    reference = jsonschema.Draft202012Validator(schema_of(name)).is_valid(broken)
+    if plainly_valid(broken, schema_of(name)):
+        assert reference, (where, how)

@@ -14,12 +14,12 @@ import numpy as np
 import pandas as pd
 
 from ..core.errors import AfterlookError
-from ..core.gaussian import GaussianModel
-from ..core.recipe import Recipe, parse_transform
+from ..core.gaussian import GaussianModel, RowMoments
+from ..core.recipe import POWER_KINDS, Recipe, apply_transform, parse_transform
 from ..core.thresholds import UNDEFINED_POLICIES, ThresholdPolicy, apply_undefined_policy, choose_threshold, parse_policy
 from ..core.blas import with_limited_blas
 from ..store.tables import Table, sha256_file
-from .model import Model, training_summary
+from .model import Model, _FrameColumns, training_summary
 from .session import TrainingRows, as_table, derive_pairs, numeric_columns_of, table_name
 
 __all__ = ["fit", "fit_streamed", "refit", "checked_base_columns", "DEFAULT_RATE"]
@@ -86,22 +86,28 @@ def fit(
     if not normal.any():
         raise AfterlookError("nothing normal to fit on: every training row is labelled anomaly")
     normal_frame = frame if normal.all() else frame.loc[normal]  # no copy when every row is normal
+    frame_columns = _FrameColumns(normal_frame)
     converted: dict[str, np.ndarray] = {}
 
     def columns_of(names) -> dict[str, np.ndarray]:
-        """Columns as float arrays, each converted once per fit (the recipe and the fit both read them)."""
+        """Columns as float arrays: views of float64 columns, others converted once per fit."""
         for name in names:
             if name not in converted:
-                converted.update(numeric_columns_of(normal_frame, [name]))
+                if name not in normal_frame.columns:
+                    raise AfterlookError(f"the table has no column '{name}', which the model uses")
+                converted[name] = frame_columns[name]
         return {name: converted[name] for name in names}
 
     constants: dict[str, float] = {}
     if recipe is None:
         recipe = _build_recipe(table, normal_frame, columns, derive, transform, warnings, constants, columns_of)
     columns_map = columns_of(recipe.required_columns())
-    # Lambdas are fitted on the rows whose raw inputs are all finite (the
-    # rows a streamed fit sees too), so both engines give the same recipe.
-    raw_ok = np.all(np.column_stack([np.isfinite(v) for v in columns_map.values()]), axis=1)
+    # Lambdas and frozen statistics are fitted on the rows whose raw inputs are
+    # all finite (the rows a streamed fit sees too), so both engines give the
+    # same recipe; a running AND over the columns, no (n, d) copy.
+    raw_ok = np.ones(len(normal_frame), dtype=bool)
+    for v in columns_map.values():
+        raw_ok &= np.isfinite(v)
     if time_col and not unit_col:
         raise AfterlookError("--time-col needs --unit-col (a time orders the readings of one unit)")
     if unit_col:
@@ -109,26 +115,26 @@ def fit(
 
         columns_map = {**columns_map, **row_context(normal_frame, unit_col, time_col, table_name(table))}
     recipe = recipe.fit(columns_map if raw_ok.all() else {k: v[raw_ok] for k, v in columns_map.items()})
-    fm = recipe.apply(columns_map)
-    finite = fm.finite_rows
-    dropped = int((~finite).sum())
+    density = GaussianModel(kind=kind, shrinkage=shrinkage, robust=robust)
+    # One look at the rows gives the fit's moments and the training summary's statistics.
+    X, nan_by_feature, moments = _training_matrix(recipe, columns_map, full=kind == "full" and not robust)
+    dropped = len(normal_frame) - X.shape[0]
     if dropped:
-        worst = max(fm.nan_by_feature, key=fm.nan_by_feature.get)
+        worst = max(nan_by_feature, key=nan_by_feature.get)
         warnings.append(
             f"dropped {dropped} training row(s) with NaN or infinite features "
-            f"(most in '{worst}': {fm.nan_by_feature[worst]})"
+            f"(most in '{worst}': {nan_by_feature[worst]})"
         )
-    X = fm.values[finite]
     if X.shape[0] < 2:
         raise AfterlookError(f"nothing normal to fit on: {X.shape[0]} usable normal row(s); need at least 2")
-    density = GaussianModel(kind=kind, shrinkage=shrinkage, robust=robust).fit(X, fm.names)
+    density.fit(X, recipe.features, moments=moments)
     if density.support_fraction_ is not None:
         warnings.append(f"robust fit kept {density.support_fraction_:.1%} of the training rows as its core")
 
     policy, value, basis = _pick_threshold(density, recipe, threshold, cases, X, warnings, undefined,
                                            f"training rows ({X.shape[0]})", units=(unit_col, time_col, context))
 
-    stats, grid = training_summary(X, fm.names, quantiles=quantiles)
+    stats, _ = training_summary(X, recipe.features, quantiles=False, moments=moments)
     training = {
         "path": table.path,
         "sha256": sha256_file(table.path) if table.path else None,
@@ -141,9 +147,54 @@ def fit(
     if constants:
         # left out of the model (zero variance), kept so misses can report values never seen in normal rows
         training["constant_columns"] = constants
-    return Model(recipe=recipe, density=density, threshold=value, policy=policy, threshold_basis=basis,
-                 training=training, quantiles=grid, warnings=warnings + list(table.warnings), undefined=undefined,
-                 unit_col=unit_col, time_col=time_col, context_frame=context)
+    model = Model(recipe=recipe, density=density, threshold=value, policy=policy, threshold_basis=basis,
+                  training=training, quantiles=None, warnings=warnings + list(table.warnings), undefined=undefined,
+                  unit_col=unit_col, time_col=time_col, context_frame=context)
+    if quantiles:
+        # The grid (a sort of every column) is made when first used: saving,
+        # a percentile. X is this fit's own copy, sorted then in place.
+        model.defer_quantiles(X)
+    return model
+
+
+def _training_matrix(recipe: Recipe, columns: dict[str, np.ndarray], full: bool) -> tuple[np.ndarray, dict, RowMoments]:
+    """The recipe's finite training rows as one Fortran-ordered (n, d) float64 copy, the count of
+    non-finite values per feature, and the rows' moments.
+
+    Column by column, as :meth:`Recipe.apply` builds them (derived features,
+    then transforms). Each column's mean, min and max are read while it is
+    still in cache from the copy (and min/max tell whether it is all finite,
+    since they propagate NaN and an infinity is one of them); Fortran order
+    keeps each feature contiguous for the moments, the threshold's scores and
+    the sort behind the quantile grid.
+    """
+    env = recipe.raw_features(columns)
+    names = recipe.features
+    n = len(next(iter(columns.values()))) if columns else 0
+    for values in env.values():
+        if np.ndim(values):
+            n = len(values)
+            break
+    d = len(names)
+    X = np.empty((n, d), order="F")
+    mean, minimum, maximum = np.empty(d), np.empty(d), np.empty(d)
+    nan_by_feature = {}
+    for j, name in enumerate(names):
+        t = recipe.transforms.get(name)
+        X[:, j] = apply_transform(t, name, env[name]) if t is not None else env[name]
+        col = X[:, j]
+        minimum[j], maximum[j] = (col.min(), col.max()) if n else (np.nan, np.nan)
+        nan_by_feature[name] = 0
+        if np.isfinite(minimum[j]) and np.isfinite(maximum[j]):
+            mean[j] = col.mean()
+        else:
+            bad = ~np.isfinite(col)
+            nan_by_feature[name] = int(bad.sum())
+            col[bad] = np.nan
+    if not any(nan_by_feature.values()):
+        return X, nan_by_feature, RowMoments.of(X, full, mean=mean, minimum=minimum, maximum=maximum)
+    X = np.asfortranarray(X[np.all(np.isfinite(X), axis=1)])
+    return X, nan_by_feature, RowMoments.of(X, full) if X.shape[0] else None
 
 
 def _pick_threshold(density, recipe: Recipe, threshold, cases, normal_rows: np.ndarray, warnings: list[str],
@@ -217,7 +268,7 @@ def _build_recipe(table: Table, normal_frame: pd.DataFrame, columns, derive, tra
     else:
         base = list(table.numeric_columns)
         values = (columns_of or (lambda names: numeric_columns_of(normal_frame, names)))(base)
-        constant = [c for c in base if np.nanmin(values[c]) == np.nanmax(values[c])] if len(normal_frame) else []
+        constant = [c for c in base if _is_constant(values[c])] if len(normal_frame) else []
         if constant:
             warnings.append(f"left out {len(constant)} constant column(s): {', '.join(constant)} (a value they "
                             "take on a case but never in normal rows is reported by misses)")
@@ -229,6 +280,15 @@ def _build_recipe(table: Table, normal_frame: pd.DataFrame, columns, derive, tra
         raise AfterlookError("no numeric columns to model")
     transforms = {name: parse_transform(name, text) for name, text in derive_pairs(transform, "--transform")}
     return Recipe(base, derived, transforms)
+
+
+def _is_constant(values: np.ndarray) -> bool:
+    """``nanmin == nanmax``; two different values among the first rows settle it without reading the rest."""
+    head = values[:1024]
+    head = head[~np.isnan(head)]
+    if head.size and (head != head[0]).any():
+        return False
+    return bool(np.nanmin(values) == np.nanmax(values))
 
 
 @with_limited_blas

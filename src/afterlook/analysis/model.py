@@ -7,6 +7,7 @@ scoring call the pure functions in :mod:`afterlook.core`; only ``save`` and
 
 from __future__ import annotations
 
+import threading
 from dataclasses import dataclass, field
 from datetime import datetime, timezone
 from typing import Mapping
@@ -18,8 +19,8 @@ from .._version import __version__
 from ..core import fingerprint as fingerprints
 from ..core.errors import AfterlookError
 from ..core.explain import QUANTILE_POINTS, grid_of_sorted_columns, quantile_grid
-from ..core.gaussian import GaussianModel
-from ..core.recipe import FeatureMatrix, Recipe
+from ..core.gaussian import GaussianModel, RowMoments
+from ..core.recipe import FeatureMatrix, Recipe, apply_transform
 from ..core.thresholds import UNDEFINED_POLICIES, ThresholdPolicy, apply_undefined_policy, flag, parse_policy
 from ..core.blas import with_limited_blas
 from ..store import model_file
@@ -71,6 +72,17 @@ class Model:
     time_col: str | None = None
     context_frame: pd.DataFrame | None = None  # --context: readings before the cases (not saved)
 
+    def defer_quantiles(self, rows: np.ndarray) -> None:
+        """Make the quantile grid from ``rows`` (n, d) when it is first read, not now.
+
+        ``rows`` must be the model's own Fortran-ordered copy of its finite
+        training features: it is kept until then and sorted in place, so a fit
+        whose grid is never used (a notebook that only scores) never pays the
+        sort, and one that is saved pays it once.
+        """
+        self.__dict__["_grid_rows"] = rows
+        self.__dict__["_quantiles"] = None
+
     # -- features and scores ---------------------------------------------
     @property
     def kind(self) -> str:
@@ -84,29 +96,64 @@ class Model:
         """Model features of ``columns`` (a DataFrame or a name -> array mapping) after the recipe."""
         return self.recipe.apply(self._columns_of(columns))
 
+    def feature_columns(self, columns: Mapping[str, np.ndarray] | pd.DataFrame) -> list[np.ndarray]:
+        """The model's features of ``columns`` as d 1-D arrays, without building the (n, d) matrix.
+
+        A feature the recipe takes as it is stays a view of the table's float64
+        column; derived and transformed ones are computed (as :meth:`feature_matrix`
+        does, except that non-finite values are left as they are: the density
+        treats NaN and infinity alike).
+        """
+        cols = _columns_of(columns)
+        env = self.recipe.raw_features(cols)
+        out = []
+        for name in self.recipe.features:
+            t = self.recipe.transforms.get(name)
+            out.append(apply_transform(t, name, env[name]) if t is not None else np.asarray(env[name], np.float64))
+        if any(v.ndim == 0 for v in out):  # a derived feature that is a constant
+            n = next((len(v) for v in out if v.ndim), getattr(cols, "n_rows", None))
+            if n is None:
+                n = len(next(iter(cols.values()))) if len(cols) else 0
+            out = [np.broadcast_to(v, (n,)) if v.ndim == 0 else v for v in out]
+        return out
+
     def log_density(self, columns: Mapping[str, np.ndarray] | pd.DataFrame) -> np.ndarray:
         """Log-density of each row: NaN where a reading is missing; -inf where a feature is
         undefined on finite readings and the model's ``undefined`` policy is "flag"."""
         cols = self._columns_of(columns)
-        ld = self.density.log_density(self.recipe.apply(cols).values)
+        ld = self.density.log_density(self.feature_columns(cols))
         return self.with_undefined_policy(ld, cols)
 
     def with_undefined_policy(self, log_density: np.ndarray, columns: Mapping[str, np.ndarray]) -> np.ndarray:
-        """``log_density`` with the model's undefined-value policy applied (``columns``: the raw readings)."""
-        return apply_undefined_policy(log_density, self.inputs_finite(columns), self.undefined)
+        """``log_density`` with the model's undefined-value policy applied (``columns``: the raw readings).
 
-    def inputs_finite(self, columns: Mapping[str, np.ndarray]) -> np.ndarray:
-        """Rows whose every reading the recipe uses is finite."""
-        needed = [np.isfinite(np.asarray(columns[c], dtype=np.float64)) for c in self.recipe.required_columns()]
+        A new array. Only the rows whose log-density is NaN can change, so only
+        their readings are looked at.
+        """
+        ld = np.array(log_density, dtype=np.float64)
+        rows = np.flatnonzero(np.isnan(ld))
+        ld[rows] = apply_undefined_policy(ld[rows], self.inputs_finite(columns, rows), self.undefined)
+        return ld
+
+    def inputs_finite(self, columns: Mapping[str, np.ndarray], rows: np.ndarray | None = None) -> np.ndarray:
+        """Rows whose every reading the recipe uses is finite (of the rows at positions ``rows``, when given)."""
+        ok = None
+        for c in self.recipe.required_columns():
+            values = np.asarray(columns[c], dtype=np.float64)
+            finite = np.isfinite(values if rows is None else values[rows])
+            ok = finite if ok is None else np.logical_and(ok, finite, out=ok)
         if self.recipe.history:  # a unit's first readings have no past: like a missing reading, never "outside"
             from ..core.units import PAST, TIMES, UNITS, with_history
 
             if UNITS in columns and TIMES in columns:
                 past = columns[PAST] if PAST in columns else None
-                needed.append(with_history(columns[UNITS], columns[TIMES], self.recipe.history, past))
-        if not needed:
-            return np.ones(len(next(iter(columns.values()))) if columns else 0, dtype=bool)
-        return np.all(np.column_stack(needed), axis=1)
+                has = with_history(columns[UNITS], columns[TIMES], self.recipe.history, past)
+                has = has if rows is None else has[rows]
+                ok = has if ok is None else np.logical_and(ok, has)
+        if ok is None:
+            n = len(rows) if rows is not None else (len(next(iter(columns.values()))) if columns else 0)
+            return np.ones(n, dtype=bool)
+        return ok
 
     @with_limited_blas
     def score(self, df: pd.DataFrame) -> pd.DataFrame:
@@ -120,12 +167,13 @@ class Model:
         out["flagged"] = flag(ld, self.threshold)
         return out
 
+    @with_limited_blas
     def score_with_overflow(self, df: pd.DataFrame) -> tuple[pd.DataFrame, np.ndarray]:
         """:meth:`score` and the rows at -inf because a finite reading overflowed (not a feature's domain)."""
         cols = self._columns_of(df)
-        raw = self.density.log_density(self.recipe.apply(cols).values)  # -inf only on overflow
+        raw = self.density.log_density(self.feature_columns(cols))  # -inf only on overflow
         ld = self.with_undefined_policy(raw, cols)
-        out = df.copy()
+        out = df.copy(deep=False)  # as in score: the caller's frame is never written
         out["log_density"] = ld
         out["flagged"] = flag(ld, self.threshold)
         return out, np.isneginf(raw)
@@ -245,30 +293,59 @@ class Model:
         return ", ".join(parts)
 
 
+_GRID_LOCK = threading.Lock()  # two workbench threads must not sort the same rows at once
+
+
+def _get_quantiles(self) -> np.ndarray | None:
+    if self.__dict__.get("_grid_rows") is not None:
+        with _GRID_LOCK:
+            rows = self.__dict__.get("_grid_rows")
+            if rows is not None:
+                self.__dict__["_quantiles"] = _grid_of_own_rows(rows)
+                self.__dict__["_grid_rows"] = None
+    return self.__dict__.get("_quantiles")
+
+
+def _set_quantiles(self, value) -> None:
+    self.__dict__["_grid_rows"] = None
+    self.__dict__["_quantiles"] = value
+
+
+# Set after the dataclass is made, so that ``quantiles`` stays an __init__ field.
+Model.quantiles = property(_get_quantiles, _set_quantiles, doc="Quantile grid (points, d), made on first use.")
+
+
 def load_model(path) -> Model:
     """Read a model file (clear error for anything that is not one)."""
     return Model.from_dict(model_file.read_model_document(path), source_path=str(path))
 
 
-def training_summary(X: np.ndarray, names: list[str], quantiles: bool = True) -> tuple[dict, np.ndarray | None]:
-    """Per-feature statistics and (optionally) the quantile grid of the normal rows."""
-    X = np.asarray(X, dtype=np.float64)
-    # One contiguous copy of the columns serves the statistics and then, sorted
-    # in place, the grid: reading the columns of a (n, d) matrix one by one is
-    # strided and was slower than the fit itself. The reductions are the same
-    # (numpy sums a strided column and a contiguous one the same way).
-    columns = np.ascontiguousarray(X.T)
-    stats = {}
-    for j, name in enumerate(names):
-        col = columns[j]
-        stats[name] = {"mean": float(col.mean()), "std": float(col.std()), "min": float(col.min()),
-                       "max": float(col.max())}
+def training_summary(X: np.ndarray, names: list[str], quantiles: bool = True,
+                     moments: RowMoments | None = None) -> tuple[dict, np.ndarray | None]:
+    """Per-feature statistics and (optionally) the quantile grid of the normal rows.
+
+    ``moments``: :meth:`RowMoments.of` of the same rows when the caller has
+    them (the fit does); the standard deviation comes from the scatter's
+    diagonal, which agrees with ``numpy.std`` to rounding (about 1e-16 relative).
+    """
+    if moments is None:
+        X = np.asfortranarray(X, dtype=np.float64)  # columns contiguous, as the fit keeps them
+        moments = RowMoments.of(X, full=False)
+    sd = moments.std()
+    stats = {name: {"mean": float(moments.mean[j]), "std": float(sd[j]), "min": float(moments.minimum[j]),
+                    "max": float(moments.maximum[j])}
+             for j, name in enumerate(names)}
     if not quantiles:
         return stats, None
-    if X.shape[0] < 2 or not np.isfinite(columns).all():
-        return stats, quantile_grid(X, QUANTILE_POINTS)
-    columns.sort(axis=1)
-    return stats, grid_of_sorted_columns(columns, QUANTILE_POINTS)
+    return stats, quantile_grid(X, QUANTILE_POINTS)
+
+
+def _grid_of_own_rows(X: np.ndarray) -> np.ndarray:
+    """The quantile grid of ``X`` (n, d), Fortran-ordered and finite, sorting ``X`` in place (no copy)."""
+    if X.shape[0] < 2 or not np.isfortran(X):
+        return quantile_grid(X, QUANTILE_POINTS)
+    X.sort(axis=0)  # each column is contiguous: one in-place sort per column
+    return grid_of_sorted_columns(X.T, QUANTILE_POINTS)
 
 
 def _columns_of(obj) -> Mapping[str, np.ndarray]:

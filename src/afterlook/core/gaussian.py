@@ -27,8 +27,9 @@ from __future__ import annotations
 from dataclasses import dataclass, field
 
 import numpy as np
-from scipy import linalg
 
+from .density_rows import (  # noqa: F401  (full_log_density, triangular_inverse: public here too)
+    RowMoments, _as_columns, _independent_log_density_columns, full_log_density, triangular_inverse)
 from .errors import AfterlookError
 from .numbers import refuse_overflow
 
@@ -95,45 +96,6 @@ class SufficientStats:
 # --------------------------------------------------------------------------
 # Pure functions
 # --------------------------------------------------------------------------
-
-
-def independent_log_density(X: np.ndarray, mean: np.ndarray, var: np.ndarray) -> np.ndarray:
-    """Sum of univariate normal log-densities, one per column.
-
-    Parameters
-    ----------
-    X : ndarray of shape (n, d)
-    mean, var : ndarray of shape (d,)
-
-    Returns
-    -------
-    ndarray of shape (n,); NaN where a row has a non-finite value.
-    """
-    X = np.asarray(X, dtype=np.float64)
-    z2 = ((X - mean) ** 2) / var
-    const = -0.5 * (X.shape[1] * LOG_2PI + np.log(var).sum())
-    return const - 0.5 * z2.sum(axis=1)
-
-
-def full_log_density(X: np.ndarray, mean: np.ndarray, chol: np.ndarray) -> np.ndarray:
-    """Multivariate normal log-density through the lower Cholesky factor.
-
-    ``log p = -1/2 (d log 2 pi + 2 sum log diag L + ||L^-1 (x - mu)||^2)``.
-    Rows are processed in blocks so memory stays bounded for millions of rows.
-    """
-    X = np.asarray(X, dtype=np.float64)
-    d = X.shape[1]
-    const = -0.5 * d * LOG_2PI - np.log(np.diag(chol)).sum()
-    # Whitening with the explicit inverse of the triangular factor turns the
-    # work into one matrix product per block (BLAS gemm); L is well
-    # conditioned here because fit() refuses or shrinks a singular S.
-    whiten = linalg.solve_triangular(chol, np.eye(d), lower=True).T
-    out = np.empty(X.shape[0])
-    block = max(1, 2_000_000 // max(d, 1))
-    for start in range(0, X.shape[0], block):
-        W = (X[start : start + block] - mean) @ whiten
-        out[start : start + block] = const - 0.5 * np.einsum("ij,ij->i", W, W)
-    return out
 
 
 def collinear_columns(cov: np.ndarray, names: list[str], tol: float = COLLINEAR_TOL) -> list[tuple[str, list[str]]]:
@@ -246,8 +208,13 @@ class GaussianModel:
             self.shrinkage = value
 
     # -- fitting ---------------------------------------------------------
-    def fit(self, X: np.ndarray, names: list[str] | None = None) -> "GaussianModel":
-        """Fit on the rows of ``X`` (all finite; the caller drops the rest)."""
+    def fit(self, X: np.ndarray, names: list[str] | None = None, *,
+            moments: RowMoments | None = None) -> "GaussianModel":
+        """Fit on the rows of ``X`` (all finite; the caller drops the rest).
+
+        ``moments`` may pass :meth:`RowMoments.of` of the same ``X`` when the
+        caller needs them too (the training summary), so the rows are read once.
+        """
         X = np.asarray(X, dtype=np.float64)
         if X.ndim != 2 or X.shape[1] == 0:
             raise AfterlookError("nothing to fit: no feature columns")
@@ -255,13 +222,17 @@ class GaussianModel:
         self.names = list(names) if names is not None else [f"x{j}" for j in range(d)]
         if n < 2:
             raise AfterlookError(f"nothing to fit on: {n} normal row(s) with finite values; need at least 2")
-        if not np.all(np.isfinite(X)):
+        if moments is None:
+            moments = RowMoments.of(X)
+        if not moments.all_finite:
             raise AfterlookError("training rows contain NaN or infinite values")
-        refuse_overflow(np.abs(X).max(axis=0), self.names)
+        refuse_overflow(np.maximum(np.abs(moments.minimum), np.abs(moments.maximum)), self.names)
         if self.kind == "independent" and not self.robust:
-            # Only the variances are needed: O(n d), not the O(n d^2) scatter matrix.
-            mean, var, support = X.mean(axis=0), X.var(axis=0), None
+            mean, var, support = moments.mean, np.diag(moments.scatter) / n, None
             cov = None
+        elif not self.robust:
+            mean, cov, support = moments.mean, moments.scatter / n, None
+            var = np.diag(cov).copy()
         else:
             mean, cov, support = fit_moments(X, robust=self.robust, random_state=self.random_state)
             var = np.diag(cov).copy()
@@ -325,12 +296,12 @@ class GaussianModel:
         # unexplained share 1 - R^2 given the columns before it, so the same
         # collinearity test costs nothing; the slow naming pass runs only on failure.
         try:
-            chol = linalg.cholesky(cov, lower=True)
+            chol = np.linalg.cholesky(cov)
             with np.errstate(divide="ignore", invalid="ignore"):
                 share = np.diag(chol) ** 2 / np.diag(cov)
             if np.all(share >= COLLINEAR_TOL):
                 return chol
-        except (linalg.LinAlgError, ValueError):
+        except (np.linalg.LinAlgError, ValueError):
             pass
         problems = collinear_columns(cov, self.names)
         if problems:
@@ -353,26 +324,43 @@ class GaussianModel:
     def var_(self) -> np.ndarray:
         return np.diag(self.covariance_)
 
-    def log_density(self, X: np.ndarray) -> np.ndarray:
+    def log_density(self, X) -> np.ndarray:
         """Log-density of each row: NaN where a value is missing (NaN/inf), -inf where a finite
-        reading is so extreme (-4.5e205) that its squared distance overflows: flagged, not missing."""
+        reading is so extreme (-4.5e205) that its squared distance overflows: flagged, not missing.
+
+        ``X``: an (n, d) array in any memory order, or a sequence of d columns
+        (1-D arrays, e.g. views of a DataFrame's columns: no (n, d) copy is made).
+        """
         self._check_fitted()
-        X = np.asarray(X, dtype=np.float64)
-        if X.ndim != 2 or X.shape[1] != len(self.mean_):
-            raise AfterlookError(f"expected {len(self.mean_)} feature columns, got {X.shape[-1] if X.ndim else 0}")
+        if isinstance(X, np.ndarray) or not isinstance(X, (list, tuple)):
+            X = np.asarray(X, dtype=np.float64)
+            if X.ndim != 2 or X.shape[1] != len(self.mean_):
+                raise AfterlookError(f"expected {len(self.mean_)} feature columns, got {X.shape[-1] if X.ndim else 0}")
+        elif len(X) != len(self.mean_):
+            raise AfterlookError(f"expected {len(self.mean_)} feature columns, got {len(X)}")
+        columns = _as_columns(X)
         with np.errstate(over="ignore", invalid="ignore"):
             if self.kind == "independent":
-                out = independent_log_density(X, self.mean_, self.var_)
+                out = _independent_log_density_columns(columns, self.mean_, self.var_)
             else:
-                out = full_log_density(X, self.mean_, self.chol_)
-        finite_inputs = np.isfinite(X).all(axis=1)
-        return np.where(finite_inputs, np.where(np.isfinite(out), out, -np.inf), np.nan)
+                out = full_log_density(X if isinstance(X, np.ndarray) else columns, self.mean_, self.chol_)
+        # A non-finite input always gives a non-finite result (NaN and inf
+        # propagate through the sums, and L^-1 has a non-zero diagonal), so
+        # only those rows need their inputs looked at: NaN when one is missing,
+        # -inf when all are finite and the distance overflowed.
+        bad = np.flatnonzero(~np.isfinite(out))
+        if bad.size:
+            finite_inputs = np.ones(bad.size, dtype=bool)
+            for col in columns:
+                finite_inputs &= np.isfinite(col[bad])
+            out[bad] = np.where(finite_inputs, -np.inf, np.nan)
+        return out
 
     def precision(self) -> np.ndarray:
         """Inverse covariance, from the Cholesky factor."""
         self._check_fitted()
         d = len(self.mean_)
-        Linv = linalg.solve_triangular(self.chol_, np.eye(d), lower=True)
+        Linv = triangular_inverse(self.chol_)
         return Linv.T @ Linv
 
     def _check_fitted(self) -> None:

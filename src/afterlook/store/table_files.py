@@ -17,7 +17,6 @@ import pandas as pd
 import pyarrow as pa
 import pyarrow.compute as pc
 import pyarrow.csv as pacsv
-import pyarrow.parquet as pq
 
 from afterlook.core.errors import AfterlookError
 
@@ -141,8 +140,10 @@ def _format_of(name: str, head: bytes) -> tuple[str, str, bool]:
 # --------------------------------------------------------------------------
 
 
-def _open_parquet(name: str, head: bytes, size: int) -> pq.ParquetFile:
+def _open_parquet(name: str, head: bytes, size: int) -> "pq.ParquetFile":
     """The Parquet file, after checking its header and footer magic (one-line errors)."""
+    import pyarrow.parquet as pq  # here: ~20 ms to import, and a CSV never needs it
+
     if not head.startswith(_PARQUET_MAGIC):
         raise _fail(f"cannot read {name}: it is named like a Parquet file but is not one (no Parquet header)")
     if size < 12 or _tail_bytes(name, 4) != _PARQUET_MAGIC:
@@ -351,11 +352,20 @@ def _read_decimal_commas(frame: pd.DataFrame) -> pd.DataFrame:
 def _text_kind(series: pd.Series) -> str | None:
     """'numbers' when every value of a text column is a plain number, 'decimal-comma' for ``10,5``."""
     values = series.dropna()
-    if values.empty or not values.map(lambda v: isinstance(v, str)).all():
+    if values.empty:
+        return None
+    # pandas' string dtype holds only str once NA is dropped: no need to look at each value
+    if not isinstance(values.dtype, pd.StringDtype) and not values.map(lambda v: isinstance(v, str)).all():
         return None
     sample = values.iloc[:2000]
     if pd.to_numeric(sample, errors="coerce").notna().all() and pd.to_numeric(values, errors="coerce").notna().all():
         return "numbers"
+    # At least 90% must match: when more than a tenth of the sample already fails among its first
+    # values, the rest cannot change the answer (a text column of names is settled in a few hundred).
+    allowed_misses = int(0.1 * len(sample))
+    head = sample.iloc[: allowed_misses + 1]
+    if not head.map(lambda v: bool(_DECIMAL_COMMA.match(v))).any() and len(head) > allowed_misses:
+        return None
     if sample.map(lambda v: bool(_DECIMAL_COMMA.match(v))).mean() >= 0.9:
         return "decimal-comma"
     return None
