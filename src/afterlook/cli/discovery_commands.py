@@ -57,8 +57,11 @@ def run_suggest(args) -> int:
         raise AfterlookError("--sample must be at least 100 rows")
     session = open_session(args)
     settings = Settings(sample_size=args.sample, min_correlation=args.min_correlation, alarm_rate=args.alarm_rate)
-    result = suggest(session, None, case_ids=args.case_ids or None, top=args.top,
-                     settings=settings, shaping=not args.no_shaping)
+    from .progress import stage_progress
+
+    with stage_progress(args, "searching") as progress:
+        result = suggest(session, None, case_ids=args.case_ids or None, top=args.top,
+                         settings=settings, shaping=not args.no_shaping, progress=progress)
     warn(result.warnings)
     if args.json:
         emit_json(result.to_dict())
