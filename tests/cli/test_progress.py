@@ -110,3 +110,13 @@ def test_reporters_update_the_display(monkeypatch, at_once):
     with progress.rows_progress(off, "reading") as rows:
         rows(1, 1)  # a reporter that does nothing
         assert rows.display is None
+
+
+def test_a_streamed_fit_reports_its_chunks(demo_scenario, tmp_path, run_cli, terminal, at_once):
+    train = tmp_path / "train.csv"
+    demo_scenario.train.to_csv(train, index=False)
+    code, out, err = run_cli("fit", train, "--out", tmp_path / "m.json", "--engine", "chunked",
+                             "--chunk-rows", "1000", "--threshold", "rate:0.01")
+    assert code == 0, err
+    assert "reading training rows" in err
+    assert "reading training rows" not in out and "fitted on" in out

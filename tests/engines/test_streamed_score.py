@@ -194,7 +194,7 @@ def test_a_label_that_is_not_a_label_in_a_later_chunk_is_refused_as_in_memory(fi
 
 # RLIMIT_DATA caps the process's heap and private mappings (Linux >= 4.7). 400 MiB lets Python, numpy,
 # pandas, pyarrow and afterlook start (about 160 MB resident after imports, measured with /usr/bin/time on
-# a tiny table) and score in chunks of 8192 rows, but cannot hold the ~460 MB table below: the in-memory
+# a tiny table) and score in chunks of 4096 rows (~270 MB peak), but cannot hold the ~460 MB table below: the in-memory
 # engine is refused under the same limit, which shows the limit binds.
 DATA_LIMIT = 400 << 20
 NOTE = "pump-station log line " * 136  # ~3 kB of context text per row: a big file of few rows, fast to score
@@ -233,7 +233,7 @@ def test_scores_a_file_larger_than_the_memory_limit_like_the_in_memory_score(fil
 
     streamed = tmp_path / "streamed.parquet"
     proc = _script("score", files / "model.json", big, "--out", streamed, "--engine", "chunked",
-                   "--chunk-rows", "8192", limit=True)
+                   "--chunk-rows", "4096", limit=True)
     assert proc.returncode == 0, proc.stderr
     refused = _script("score", files / "model.json", big, "--out", tmp_path / "refused.csv", limit=True)
     assert refused.returncode != 0  # the in-memory engine cannot hold this table under the limit
@@ -250,3 +250,13 @@ def test_scores_a_file_larger_than_the_memory_limit_like_the_in_memory_score(fil
     flagged_got = np.flatnonzero(got["flagged"].to_numpy(zero_copy_only=False))
     flagged_want = np.flatnonzero(want["flagged"].to_numpy(zero_copy_only=False))
     assert flagged_got.size > 0 and np.array_equal(flagged_got, flagged_want)
+
+
+def test_a_column_the_model_needs_is_missing(files, run_cli, tmp_path):
+    frame = pd.read_csv(files / "cases.csv", keep_default_na=False, na_values=[""]).drop(columns=["flow_m3h"])
+    data = tmp_path / "no_flow.parquet"
+    frame.to_parquet(data, index=False)
+    code, out, err = run_cli("score", files / "model.json", data, "--out", tmp_path / "s.csv", "--engine", "chunked")
+    assert code == 2 and out == ""
+    assert "flow_m3h" in err and len(err.strip().splitlines()) == 1
+    assert not (tmp_path / "s.csv").exists()

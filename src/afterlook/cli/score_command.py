@@ -22,10 +22,12 @@ from .output import emit_json, warn
 CHUNK_ROWS = 262_144
 
 MEMORY_BOUND = (
-    "Memory with --engine chunked: about rows-per-chunk x (columns + features) x 8 bytes x 4 (the chunk as "
-    "read, as a pandas frame, its scored copy and the feature matrix), plus the model; with the default "
-    f"{CHUNK_ROWS} rows and 20 columns about 200 MB whatever the file's size. With --engine dask: a few "
-    "64 MB blocks of the file per worker and on this process."
+    "Memory with --engine chunked is bounded by the chunk, not the file: about 160 MB for Python and its "
+    "libraries plus roughly five copies of one chunk's rows (the text block read, the chunk in pyarrow and "
+    "pandas, its scored copy, the feature matrix) plus the model. Measured on a 1,000,000-row, 13-column CSV: "
+    f"450 MB peak at the default {CHUNK_ROWS} rows a chunk, 270 MB at --chunk-rows 65536 (in memory: 680 MB). "
+    "With --engine dask: one partition (a 32 MB block of a CSV or one Parquet row group) per worker, at most "
+    "three scored partitions here."
 )
 
 

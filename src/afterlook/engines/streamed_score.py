@@ -1,6 +1,7 @@
 """Scoring a table larger than memory: chunk by chunk here, or partition by partition on Dask.
 
-Both engines yield the scored rows in file order, one frame at a time, for
+Both engines yield the scored rows in file order, one chunk at a time (a
+pandas frame, or an Arrow table from a Dask worker), for
 :func:`afterlook.store.table_write.write_table_chunks` to append to the
 output. What scores a chunk is the caller's ``score_table(table) ->
 (scored_frame, counts)``: the same function the in-memory score applies to
@@ -12,8 +13,8 @@ Memory. The chunked engine holds one chunk at a time: about
 copy, plus the model's feature matrix of that chunk (``chunk_rows x
 features`` float64, two or three copies inside the recipe and the Cholesky
 solve). The Dask engine holds at most ``window`` scored partitions on the
-driver (each about one 64 MB block of the CSV, or one Parquet row group,
-in pandas), and each worker one partition.
+driver (each one :data:`BLOCK_BYTES` block of the CSV, or one Parquet row
+group, in pandas), and each worker one partition.
 """
 
 from __future__ import annotations
@@ -23,12 +24,17 @@ from collections.abc import Callable, Iterator
 from typing import Any
 
 import pandas as pd
+import pyarrow as pa
+import pyarrow.compute as pc
 
 from ..core.blas import with_limited_blas
 from ..core.errors import AfterlookError
 
 # pyarrow's CSV types as pandas dtypes: integers nullable, so a later empty cell is not an error.
 _PANDAS_TYPES = {"double": "float64", "int64": "Int64", "bool": "boolean", "string": "string"}
+BLOCK_BYTES = 32 << 20
+"""Bytes of CSV text a Dask partition reads (a Parquet partition is a row group or a file)."""
+
 ScoreTable = Callable[[Any], "tuple[pd.DataFrame, Any]"]
 Progress = Callable[[int, int], None]
 """``progress(rows_done, chunks_done)`` after each chunk (or partition) is scored."""
@@ -64,13 +70,19 @@ def _score_partition(frame: pd.DataFrame, score_table: ScoreTable, name: str, id
     from ..store.tables import table_from_frame
 
     for col in text_features:  # read as text, so a value that is not a number is named with its column
-        values = pd.to_numeric(frame[col], errors="coerce")
-        bad = frame[col].notna().to_numpy() & values.isna().to_numpy()
-        if bad.any():
+        text = pa.array(frame[col], type=pa.string(), from_pandas=True)
+        try:  # pyarrow's own number parsing: the chunked engine's CSV reader parses alike
+            values = pc.cast(text, pa.float64())
+        except pa.ArrowInvalid:
+            parsed = pd.to_numeric(frame[col], errors="coerce")  # only to find the first bad value
+            bad = frame[col].notna().to_numpy() & parsed.isna().to_numpy()
             raise AfterlookError(f"{name}: column {col!r} has a value that is not a number: "
-                                 f"{frame[col][bad].iloc[0]!r}")
-        frame[col] = values.astype("float64")
-    return score_table(table_from_frame(frame, id_col=id_col, label_col=label_col, name=name))
+                                 f"{frame[col][bad].iloc[0]!r}") from None
+        frame[col] = values.to_numpy(zero_copy_only=False)
+    scored, counts = score_table(table_from_frame(frame, id_col=id_col, label_col=label_col, name=name))
+    # Sent back as an Arrow table: distributed moves it as buffers, where a pandas frame of text
+    # columns is pickled value by value (measured: several times slower on the demo-like file).
+    return pa.Table.from_pandas(scored, preserve_index=False), counts
 
 
 def _is_parquet(path: str) -> bool:
@@ -84,7 +96,7 @@ def _read_all(path: str, float_columns: list[str]):
 
     try:
         if _is_parquet(path):
-            return dd.read_parquet(path)
+            return dd.read_parquet(path, split_row_groups=True)  # a partition a row group: bounded memory
         # The chunked engine's column types (pyarrow's, from the first block), so both engines read a
         # column alike; dask's own guess from a sample would refuse a text column empty at the start.
         types = csv_column_types(path, float_columns)
@@ -93,7 +105,7 @@ def _read_all(path: str, float_columns: list[str]):
         import pyarrow.csv as pacsv
 
         # pyarrow's texts for a missing value, so the two readers agree on what is missing
-        return dd.read_csv(path, dtype=dtype, blocksize="64MB", keep_default_na=False,
+        return dd.read_csv(path, dtype=dtype, blocksize=BLOCK_BYTES, keep_default_na=False,
                            na_values=pacsv.ConvertOptions().null_values)
     except (ValueError, OSError, KeyError, TypeError) as exc:
         raise AfterlookError(f"dask cannot read {path}: {' '.join(str(exc).split())[:200]}") from None
@@ -101,7 +113,7 @@ def _read_all(path: str, float_columns: list[str]):
 
 def score_dask(path, float_columns: list[str], score_table: ScoreTable, *, scheduler: str | None = None,
                id_col: str | None = None, label_col: str | None = None, progress: Progress | None = None,
-               window: int = 4) -> tuple[int | None, Iterator[tuple[pd.DataFrame, Any]]]:
+               window: int = 3) -> tuple[int | None, Iterator[tuple[pd.DataFrame, Any]]]:
     """As :func:`score_chunked`, each partition scored by a Dask worker.
 
     At most ``window`` partitions are in flight or waiting on the driver, and

@@ -359,19 +359,23 @@ def _csv_all_batches(
     try:
         reader = pacsv.open_csv(
             name,
-            read_options=pacsv.ReadOptions(block_size=1 << 20),  # larger blocks cost far more memory in pyarrow
+            read_options=pacsv.ReadOptions(block_size=1 << 20, use_threads=False),  # see DEVELOPERS.md
             parse_options=pacsv.ParseOptions(delimiter=delimiter, newlines_in_values=quoted),
             convert_options=pacsv.ConvertOptions(strings_can_be_null=True, column_types=types),
         )
     except (pa.ArrowException, OSError, ValueError) as exc:
         raise _fail(_csv_stream_message(name, exc, have)) from None
-    try:
-        for batch in reader:
-            yield batch
-    except (pa.ArrowException, OSError, ValueError) as exc:
-        raise _fail(_csv_stream_message(name, exc, have, types)) from None
-    finally:
-        reader.close()
+
+    def gen() -> Iterator[pa.RecordBatch]:  # the checks above run now, the reading when asked
+        try:
+            for batch in reader:
+                yield batch
+        except (pa.ArrowException, OSError, ValueError) as exc:
+            raise _fail(_csv_stream_message(name, exc, have, types)) from None
+        finally:
+            reader.close()
+
+    return gen()
 
 
 def csv_column_types(path: str | os.PathLike[str], float_columns: Iterable[str]) -> dict[str, pa.DataType]:

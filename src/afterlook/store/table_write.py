@@ -66,8 +66,9 @@ def write_table(frame: pd.DataFrame, path: str | os.PathLike[str]) -> None:
         raise _fail(f"cannot write {name}: {_arrow_message(exc)}", _WRITE_TITLE) from None
 
 
-def write_table_chunks(chunks: Iterable[pd.DataFrame], path: str | os.PathLike[str]) -> int:
-    """Write DataFrames one after another as one CSV, TSV or Parquet table; return the rows written.
+def write_table_chunks(chunks: Iterable[pd.DataFrame | pa.Table], path: str | os.PathLike[str]) -> int:
+    """Write DataFrames (or Arrow tables) one after another as one CSV, TSV or Parquet table; return the rows
+    written.
 
     For tables larger than memory: only one chunk is converted at a time
     (pyarrow's ``CSVWriter`` / ``ParquetWriter`` append to the open file).
@@ -85,12 +86,18 @@ def write_table_chunks(chunks: Iterable[pd.DataFrame], path: str | os.PathLike[s
     with atomic_file(Path(name)) as fh:
         try:
             for frame in chunks:
-                frame = frame.reset_index(drop=True)
-                frame.columns = [str(c) for c in frame.columns]
-                if schema is None:
-                    _check_column_names(name, list(frame.columns), _WRITE_TITLE)
-                    schema = _arrow_schema(name, frame)
-                arrow = _chunk_as(name, frame, schema)
+                if isinstance(frame, pa.Table):  # already converted (by a Dask worker)
+                    if schema is None:
+                        _check_column_names(name, [str(c) for c in frame.column_names], _WRITE_TITLE)
+                        schema = _text_for_null(frame.schema)
+                    arrow = frame.cast(schema)
+                else:
+                    frame = frame.reset_index(drop=True)
+                    frame.columns = [str(c) for c in frame.columns]
+                    if schema is None:
+                        _check_column_names(name, list(frame.columns), _WRITE_TITLE)
+                        schema = _arrow_schema(name, frame)
+                    arrow = _chunk_as(name, frame, schema)
                 if writer is None:
                     writer = (pq.ParquetWriter(fh, schema) if kind == "parquet" else pacsv.CSVWriter(
                         fh, schema, write_options=pacsv.WriteOptions(delimiter=delimiter, quoting_style="needed")))
@@ -119,6 +126,10 @@ def _arrow_schema(name: str, frame: pd.DataFrame) -> pa.Schema:
         bad = _first_unconvertible(frame)
         what = f"column {bad!r} mixes value types" if bad is not None else _arrow_message(exc)
         raise _fail(f"cannot write {name}: {what}", _WRITE_TITLE) from None
+    return _text_for_null(schema)
+
+
+def _text_for_null(schema: pa.Schema) -> pa.Schema:
     for i, fld in enumerate(schema):
         if pa.types.is_null(fld.type):
             schema = schema.set(i, pa.field(fld.name, pa.string()))
