@@ -92,7 +92,9 @@ def main(argv: list[str] | None = None) -> int:
         folder = Path(tmp)
         model, data = _make_inputs(folder, rows)
         size = data.stat().st_size / 2**20
-        lines.append(f"{rows:,} rows, {size:.0f} MiB CSV -> CSV; median of {repeat} fresh processes")
+        load_now = ", ".join(f"{x:.1f}" for x in os.getloadavg())
+        lines.append(f"{rows:,} rows, {size:.0f} MiB CSV -> CSV; median of {repeat} fresh processes; "
+                     f"load average at the start: {load_now}")
         lines.append("")
         lines.append("| engine | load | seconds | peak MB | time vs memory | memory vs memory |")
         lines.append("| --- | --- | --- | --- | --- | --- |")

@@ -260,3 +260,18 @@ def test_a_column_the_model_needs_is_missing(files, run_cli, tmp_path):
     assert code == 2 and out == ""
     assert "flow_m3h" in err and len(err.strip().splitlines()) == 1
     assert not (tmp_path / "s.csv").exists()
+
+
+def test_the_skip_policy_for_undefined_features_is_kept(files, run_cli, tmp_path):
+    d = files
+    code, _, err = run_cli("fit", d / "train.csv", "--out", tmp_path / "skip.json", "--cases", d / "cases.csv",
+                           "--undefined", "skip", *DERIVE)
+    assert code == 0, err
+    code, _, err = run_cli("score", tmp_path / "skip.json", d / "cases.csv", "--out", tmp_path / "m.csv")
+    assert code == 0, err
+    code, _, err = run_cli("score", tmp_path / "skip.json", d / "cases.csv", "--out", tmp_path / "c.csv",
+                           "--engine", "chunked", "--chunk-rows", "128")
+    assert code == 0, err
+    memory, streamed = _scores(tmp_path / "m.csv"), _scores(tmp_path / "c.csv")
+    _same_scores(streamed, memory)
+    assert np.isnan(memory["log_density"][400]) and not bool(memory["flagged"][400])  # zero divisor: unscored
