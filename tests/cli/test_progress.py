@@ -120,3 +120,15 @@ def test_a_streamed_fit_reports_its_chunks(demo_scenario, tmp_path, run_cli, ter
     assert code == 0, err
     assert "reading training rows" in err
     assert "reading training rows" not in out and "fitted on" in out
+
+
+@pytest.mark.parametrize("argv, line", [
+    (["shape", "{train}", "--columns", "hours_since_service"], "searching transforms"),
+    (["fit", "{train}", "--out", "{tmp}/m.json", "--threshold", "rate:0.01"], "reading and fitting"),
+])
+def test_commands_without_a_count_say_what_they_are_doing(demo_written, tmp_path, run_cli, terminal, at_once,
+                                                         argv, line):
+    argv = [a.replace("{train}", str(demo_written.train)).replace("{tmp}", str(tmp_path)) for a in argv]
+    code, out, err = run_cli(*argv)
+    assert code == 0, err
+    assert line in err and line not in out

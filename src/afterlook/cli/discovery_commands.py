@@ -139,7 +139,10 @@ def run_try(args) -> int:
         from ..store.tables import load_table
 
         holdout = load_table(args.holdout, **table_options(args), require_labels=True)
-    result = try_features(session, None, pairs, focus=args.case, holdout=holdout, folds=args.folds)
+    from .progress import busy
+
+    with busy(args, "re-fitting and the held-out estimate"):
+        result = try_features(session, None, pairs, focus=args.case, holdout=holdout, folds=args.folds)
     warn(result.warnings)
     if args.out:
         result.model.save(args.out)

@@ -120,10 +120,13 @@ def cmd_fit(args) -> int:
     if args.engine == "memory":
         if args.scheduler:
             raise AfterlookError("--scheduler needs --engine dask")
-        train = load_table(args.train, **table_options(args))
-        model = fitting.fit(train, cases=cases, kind=args.kind, robust=args.robust, shrinkage=args.shrinkage,
-                            derive=derive, transform=transform, threshold=args.threshold, columns=args.columns,
-                            undefined=args.undefined)
+        from .progress import busy
+
+        with busy(args, "reading and fitting"):
+            train = load_table(args.train, **table_options(args))
+            model = fitting.fit(train, cases=cases, kind=args.kind, robust=args.robust, shrinkage=args.shrinkage,
+                                derive=derive, transform=transform, threshold=args.threshold, columns=args.columns,
+                                undefined=args.undefined)
     else:
         if args.engine not in ("chunked", "dask"):
             raise AfterlookError(f"unknown --engine '{args.engine}' (choose: memory, chunked, dask)")

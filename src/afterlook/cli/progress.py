@@ -1,6 +1,7 @@
 """Progress on stderr for the slow part of a command, on a terminal only.
 
-A command wraps its long computation (never its output) in
+A command wraps its long computation (never its output) in :func:`busy` (what
+is being done and the time taken: in-memory fit, try, shape),
 :func:`rows_progress` (rows read and chunks: the streamed fit and score) or
 :func:`stage_progress` (the stage of a search: ``suggest``'s
 ``progress(stage, fraction)`` callback, or the steps of an in-memory
@@ -129,3 +130,10 @@ def stage_progress(args, first_stage: str) -> Iterator[StageProgress]:
     """The current stage and a bar of the fraction done, or a reporter that does nothing."""
     with _displayed(args, first_stage, 1.0) as display:
         yield StageProgress(display)
+
+
+@contextlib.contextmanager
+def busy(args, what: str) -> Iterator[None]:
+    """A line saying what is being done, with the time it has taken (no fraction to show)."""
+    with _displayed(args, what, None):
+        yield
