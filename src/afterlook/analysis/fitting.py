@@ -318,8 +318,12 @@ def fit_streamed(
     label_col: str | None = None,
     random_state: int = 0,
     undefined: str = "flag",
+    progress=None,
 ) -> Model:
     """Fit from a training file without loading it whole.
+
+    ``progress(rows_done, chunks_done)``, if given, is called after each chunk
+    (or Dask partition) of each pass over the file.
 
     The Gaussian's parameters equal those of :func:`fit` on the same rows
     (they come from mergeable counts, means and scatter matrices); the
@@ -341,9 +345,11 @@ def fit_streamed(
     if engine == "dask":
         from ..engines.dask_engine import fit_dask
 
-        recipe, streamed = fit_dask(train_path, recipe, scheduler=scheduler, random_state=random_state)
+        recipe, streamed = fit_dask(train_path, recipe, scheduler=scheduler, random_state=random_state,
+                                    progress=progress)
     else:
-        recipe, streamed = fit_local(train_path, recipe, chunk_rows=chunk_rows, random_state=random_state)
+        recipe, streamed = fit_local(train_path, recipe, chunk_rows=chunk_rows, random_state=random_state,
+                                     progress=progress)
     if streamed.rows_dropped:
         worst = max(streamed.nan_by_feature, key=streamed.nan_by_feature.get)
         warnings.append(f"dropped {streamed.rows_dropped} training row(s) with NaN or infinite features "

@@ -60,8 +60,11 @@ def run_suggest(args) -> int:
         raise AfterlookError("--sample must be at least 100 rows")
     session = open_session(args)
     settings = Settings(sample_size=args.sample, min_correlation=args.min_correlation, alarm_rate=args.alarm_rate)
-    result = suggest(session, None, case_ids=args.case_ids or None, top=args.top,
-                     settings=settings, shaping=not args.no_shaping)
+    from .progress import stage_progress
+
+    with stage_progress(args, "searching") as progress:
+        result = suggest(session, None, case_ids=args.case_ids or None, top=args.top,
+                         settings=settings, shaping=not args.no_shaping, progress=progress)
     warn(result.warnings)
     if args.json:
         emit_json(result.to_dict())
@@ -161,7 +164,10 @@ def run_try(args) -> int:
         from ..store.tables import load_table
 
         holdout = load_table(args.holdout, **table_options(args), require_labels=True)
-    result = try_features(session, None, pairs, focus=args.case, holdout=holdout, folds=args.folds)
+    from .progress import busy
+
+    with busy(args, "re-fitting and the held-out estimate"):
+        result = try_features(session, None, pairs, focus=args.case, holdout=holdout, folds=args.folds)
     warn(result.warnings)
     if args.out:
         result.model.save(args.out)

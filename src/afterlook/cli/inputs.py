@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+from ..core.errors import AfterlookError
+
 TABLE_OPTIONS = ("id_col", "label_col", "encoding", "delimiter", "decimal")
 
 
@@ -26,3 +28,16 @@ def open_session(args, *, require_labels: bool = True):
     train = getattr(args, "train", None)
     train = load_table(train, **table_options(args)) if train else None
     return Session(model, cases, train)
+
+
+def check_streamed_options(args) -> None:
+    """The table options the streamed engines (``--engine chunked|dask``) cannot honour, refused in one line."""
+    if args.engine == "chunked" and args.scheduler:
+        raise AfterlookError("--scheduler needs --engine dask")
+    if getattr(args, "unit_col", None) or getattr(args, "time_col", None):
+        raise AfterlookError("--unit-col and --time-col need the memory engine; drop --engine")
+    if args.encoding or args.delimiter or args.decimal:
+        raise AfterlookError("--encoding, --delimiter and --decimal need the memory engine (the streamed "
+                             "engines read UTF-8 CSV with its usual separator); drop --engine or save as UTF-8")
+    if args.chunk_rows < 1:
+        raise AfterlookError("--chunk-rows must be at least 1")

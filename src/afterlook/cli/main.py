@@ -16,7 +16,6 @@ from .. import _version
 from ..cautions import CAUTION
 from ..core.blas import environment_for_new_process, limited_blas
 from ..core.errors import EXIT_BAD_INPUT, EXIT_CHECK_FAILED, EXIT_INTERNAL, EXIT_INTERRUPTED, EXIT_OK, AfterlookError
-from ..core.printable import printable, printable_lines
 from ..store.outputs import check_output
 from .inputs import table_options
 from .output import emit_json, error_line, warn
@@ -90,16 +89,6 @@ def build_parser() -> argparse.ArgumentParser:
     _add_table_opts(p)
     _add_common(p)
 
-    p = sub.add_parser("score", help="add log_density and flagged columns to a table", epilog=CAUTION)
-    p.add_argument("model", metavar="MODEL")
-    p.add_argument("data", metavar="DATA")
-    p.add_argument("--out", metavar="FILE", help="write the scored table (CSV or Parquet by extension)")
-    p.add_argument("--force", action="store_true", help="replace an existing table scored by afterlook at --out")
-    p.add_argument("--context", metavar="TABLE", help="readings before DATA's rows (their units' past for lag and "
-                   "rolling_median), when DATA holds only the rows to score")
-    _add_table_opts(p)
-    _add_common(p)
-
     p = sub.add_parser("misses", help="labelled anomalies the model left unflagged, worst margin first", epilog=CAUTION)
     p.add_argument("model", metavar="MODEL")
     p.add_argument("cases", metavar="CASES")
@@ -114,10 +103,10 @@ def build_parser() -> argparse.ArgumentParser:
     _add_table_opts(p)
     _add_common(p)
 
-    from . import casebook_command, discovery_commands, model_command, review_command, shape_command
+    from . import casebook_command, discovery_commands, model_command, review_command, score_command, shape_command
 
     # The command registry: each module adds its subcommands and returns their handlers.
-    for module in (shape_command, discovery_commands, casebook_command, review_command, model_command):
+    for module in (score_command, shape_command, discovery_commands, casebook_command, review_command, model_command):
         COMMANDS.update(module.register(sub, _add_common, _add_table_opts, CAUTION))
     return parser
 
@@ -140,27 +129,29 @@ def cmd_fit(args) -> int:
     if args.engine == "memory":
         if args.scheduler:
             raise AfterlookError("--scheduler needs --engine dask")
-        train = load_table(args.train, **table_options(args))
-        model = fitting.fit(train, cases=cases, kind=args.kind, robust=args.robust, shrinkage=args.shrinkage,
-                            derive=derive, transform=transform, threshold=args.threshold, columns=args.columns,
-                            undefined=args.undefined, unit_col=args.unit_col, time_col=args.time_col)
+        from .progress import busy
+
+        with busy(args, "reading and fitting"):
+            train = load_table(args.train, **table_options(args))
+            model = fitting.fit(train, cases=cases, kind=args.kind, robust=args.robust, shrinkage=args.shrinkage,
+                                derive=derive, transform=transform, threshold=args.threshold, columns=args.columns,
+                                undefined=args.undefined, unit_col=args.unit_col, time_col=args.time_col)
     else:
         if args.engine not in ("chunked", "dask"):
             raise AfterlookError(f"unknown --engine '{args.engine}' (choose: memory, chunked, dask)")
         if args.robust:
             raise AfterlookError("--robust needs every row in memory; drop --engine or --robust")
-        if args.unit_col or args.time_col:
-            raise AfterlookError("--unit-col and --time-col need the memory engine; drop --engine")
-        if args.encoding or args.delimiter or args.decimal:
-            raise AfterlookError("--encoding, --delimiter and --decimal need the memory engine (the streamed "
-                                 "engines read UTF-8 CSV with its usual separator); drop --engine or save as UTF-8")
-        if args.chunk_rows < 1:
-            raise AfterlookError("--chunk-rows must be at least 1")
-        model = fitting.fit_streamed(args.train, engine=args.engine, scheduler=args.scheduler,
-                                 chunk_rows=args.chunk_rows, cases=cases, kind=args.kind,
-                                     shrinkage=args.shrinkage, derive=derive, transform=transform,
-                                 threshold=args.threshold, columns=args.columns, id_col=args.id_col,
-                                 label_col=args.label_col, undefined=args.undefined)
+        from .inputs import check_streamed_options
+        from .progress import rows_progress
+
+        check_streamed_options(args)
+
+        with rows_progress(args, "reading training rows") as progress:
+            model = fitting.fit_streamed(args.train, engine=args.engine, scheduler=args.scheduler,
+                                         chunk_rows=args.chunk_rows, cases=cases, kind=args.kind,
+                                         shrinkage=args.shrinkage, derive=derive, transform=transform,
+                                         threshold=args.threshold, columns=args.columns, id_col=args.id_col,
+                                         label_col=args.label_col, undefined=args.undefined, progress=progress)
     model.save(args.out)
     quality = None
     if cases is not None and cases.labels is not None:
@@ -197,64 +188,6 @@ def cmd_fit(args) -> int:
         if quality.roc_auc is not None:
             out.print(f"ranking on {args.cases}: ROC AUC {quality.roc_auc:.3f}, average precision "
                       f"{quality.average_precision:.3f} (chance: 0.5 and {quality.anomaly_share:.3f})")
-    return EXIT_OK
-
-
-def cmd_score(args) -> int:
-    import numpy as np
-
-    from ..analysis.model import load_model
-    from ..core.numbers import finite_or_none
-    from ..store.tables import load_table
-
-    if args.out:
-        check_output(args.out, kind="table", inputs=[args.model, args.data], force=args.force)
-    from ..analysis.unit_rows import apply_unit_options, fallback_warnings, model_columns
-
-    context = load_table(args.context, **table_options(args)) if args.context else None
-    model = apply_unit_options(load_model(args.model), args.unit_col, args.time_col, context)
-    table = load_table(args.data, **table_options(args))
-    scored, overflowed = model.score_with_overflow(table.frame)
-    warn(table.warnings)
-    if model.unit_col:
-        warn(fallback_warnings(model.recipe, model_columns(model, table.frame, {})))
-    n_bad = int(scored["log_density"].isna().sum())
-    if n_bad:
-        warn([f"{n_bad} row(s) have NaN or infinite features: log_density is empty and they are not flagged"])
-    n_overflow = int(overflowed.sum())
-    if n_overflow:
-        warn([f"{n_overflow} row(s) have readings so extreme that the log-density overflows: "
-              "log_density is -inf and they are flagged"])
-    if args.out:
-        from ..store.tables import write_table
-
-        write_table(scored, args.out)
-    doc = {
-        "model": args.model,
-        "data": args.data,
-        "threshold": model.threshold,
-        "n_rows": int(len(scored)),
-        "n_flagged": int(scored["flagged"].sum()),
-        "n_unscored": n_bad,
-        "n_overflow": n_overflow,
-        "out": args.out,
-    }
-    if args.json:
-        if not args.out:
-            doc["rows"] = [
-                {"case": str(cid), "log_density": finite_or_none(ld), "flagged": bool(fl),
-                 **({"overflow": True} if over else {})}
-                for cid, ld, fl, over in zip(table.ids, scored["log_density"], scored["flagged"], overflowed)
-            ]
-        emit_json(doc)
-        return EXIT_OK
-    if not args.out:
-        cols = ([table.id_col] if table.id_col else []) + ["log_density", "flagged"]
-        # The terminal view: control characters in ids are escaped; --out and --json keep them exact.
-        sys.stdout.write(printable_lines(scored[cols].to_csv(index=table.id_col is None)))
-    else:
-        print(printable(f"wrote {args.out}: {doc['n_rows']} rows, {doc['n_flagged']} flagged "
-                        f"(threshold {model.threshold:.6g})"))
     return EXIT_OK
 
 
@@ -299,7 +232,6 @@ def cmd_demo(args) -> int:
 
 COMMANDS = {
     "fit": cmd_fit,
-    "score": cmd_score,
     "misses": cmd_misses,
     "explain": cmd_explain,
     "demo": cmd_demo,

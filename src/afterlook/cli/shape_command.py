@@ -81,7 +81,10 @@ def run(args) -> int:
     cases = None
     if args.cases:
         cases = load_table(args.cases, **table_options(args), require_labels=True)
-    report = shape(table, columns=args.columns, statistic=args.statistic, sample_size=args.sample, cases=cases)
+    from .progress import busy
+
+    with busy(args, "searching transforms"):
+        report = shape(table, columns=args.columns, statistic=args.statistic, sample_size=args.sample, cases=cases)
     warn(report.warnings)
     if args.json:
         emit_json(report.to_dict())

@@ -12,6 +12,9 @@ local cluster of processes is started for the call and closed afterwards.
 
 from __future__ import annotations
 
+import contextlib
+import logging
+
 import numpy as np
 
 from ..core.blas import with_limited_blas
@@ -47,8 +50,9 @@ def _read(path: str, raw: list[str]):
 
 
 def _collect(path: str, recipe: Recipe | None, raw: list[str], names: list[str], client,
-             sample_size: int, random_state: int) -> StreamedTraining:
+             sample_size: int, random_state: int, progress=None) -> StreamedTraining:
     import dask
+    from distributed import as_completed
 
     ddf = _read(path, raw)
     doc = recipe.to_dict() if recipe is not None else None
@@ -56,7 +60,15 @@ def _collect(path: str, recipe: Recipe | None, raw: list[str], names: list[str],
     tasks = [dask.delayed(_partition_accumulator)(part, doc, raw, names, sample_size, (random_state, k))
              for k, part in enumerate(parts)]
     try:
-        accumulators = client.compute(tasks, sync=True)
+        futures = client.compute(tasks)
+        position = {future.key: k for k, future in enumerate(futures)}
+        accumulators: list = [None] * len(futures)
+        rows = 0
+        for done, (future, acc) in enumerate(as_completed(futures, with_results=True), start=1):
+            accumulators[position[future.key]] = acc  # merged below in partition order: deterministic
+            rows += acc.rows_total
+            if progress is not None:
+                progress(rows, done)
     except AfterlookError:
         raise
     except (ValueError, TypeError, OSError) as exc:
@@ -67,14 +79,13 @@ def _collect(path: str, recipe: Recipe | None, raw: list[str], names: list[str],
     return total.result()
 
 
-def fit_dask(path, recipe: Recipe, *, scheduler: str | None = None, sample_size: int = SAMPLE_ROWS,
-             random_state: int = 0) -> tuple[Recipe, StreamedTraining]:
-    """Fit lambdas (if any) on a sample, then gather the statistics on the cluster."""
+@contextlib.contextmanager
+def dask_client(scheduler: str | None = None):
+    """A ``distributed.Client`` on ``scheduler``, or on a local cluster started (and closed) for the block."""
     try:
         from distributed import Client, LocalCluster
     except ImportError:
         raise AfterlookError("the dask engine needs dask[distributed]: pip install 'afterlook[dask]'") from None
-    raw = recipe.required_columns()
     cluster = None
     try:
         if scheduler:
@@ -83,16 +94,27 @@ def fit_dask(path, recipe: Recipe, *, scheduler: str | None = None, sample_size:
             except (OSError, TimeoutError) as exc:
                 raise AfterlookError(f"cannot reach the dask scheduler at {scheduler}: {exc}") from None
         else:
-            cluster = LocalCluster(n_workers=2, threads_per_worker=1, processes=True, dashboard_address=None)
+            # silence_logs: a worker's failure reaches the user as afterlook's one error line, not as
+            # the workers' own log records on stderr
+            cluster = LocalCluster(n_workers=2, threads_per_worker=1, processes=True, dashboard_address=None,
+                                   silence_logs=logging.CRITICAL)
             client = Client(cluster)
         try:
-            if needs_fitted_lambda(recipe):
-                first = _collect(str(path), None, raw, raw, client, sample_size, random_state)
-                recipe = recipe.fit({name: first.sample[:, j] for j, name in enumerate(raw)})
-            result = _collect(str(path), recipe, raw, recipe.features, client, sample_size, random_state)
+            yield client
         finally:
             client.close()
     finally:
         if cluster is not None:
             cluster.close()
+
+
+def fit_dask(path, recipe: Recipe, *, scheduler: str | None = None, sample_size: int = SAMPLE_ROWS,
+             random_state: int = 0, progress=None) -> tuple[Recipe, StreamedTraining]:
+    """Fit lambdas (if any) on a sample, then gather the statistics on the cluster."""
+    raw = recipe.required_columns()
+    with dask_client(scheduler) as client:
+        if needs_fitted_lambda(recipe):
+            first = _collect(str(path), None, raw, raw, client, sample_size, random_state, progress)
+            recipe = recipe.fit({name: first.sample[:, j] for j, name in enumerate(raw)})
+        result = _collect(str(path), recipe, raw, recipe.features, client, sample_size, random_state, progress)
     return recipe, result

@@ -121,26 +121,32 @@ def needs_fitted_lambda(recipe: Recipe) -> bool:
     return recipe.needs_fit()
 
 
-def stream(chunks: Iterable[np.ndarray], convert, names, sample_size, random_state) -> StreamedTraining:
-    """Accumulate chunks of raw rows (converted to features) into streamed training statistics."""
+def stream(chunks: Iterable[np.ndarray], convert, names, sample_size, random_state,
+           progress: Callable[[int, int], None] | None = None) -> StreamedTraining:
+    """Accumulate chunks of raw rows (converted to features) into streamed training statistics;
+    ``progress(rows_done, chunks_done)`` after each chunk."""
     acc = Accumulator(names, sample_size, random_state)
-    for chunk in chunks:
+    for k, chunk in enumerate(chunks, start=1):
         acc.add(convert(chunk))
+        if progress is not None:
+            progress(acc.rows_total, k)
     return acc.result()
 
 
 def fit_local(path, recipe: Recipe, *, chunk_rows: int = 262_144, sample_size: int = SAMPLE_ROWS,
-              random_state: int = 0) -> tuple[Recipe, StreamedTraining]:
+              random_state: int = 0, progress=None) -> tuple[Recipe, StreamedTraining]:
     """Two passes at most: one to fit lambdas on a sample (only when needed), one for the statistics."""
     from ..store.table_stream import iter_numeric_chunks
 
     raw = recipe.required_columns()
     identity = lambda chunk: chunk  # noqa: E731
     if needs_fitted_lambda(recipe):
-        first = stream(iter_numeric_chunks(path, raw, chunk_rows), identity, raw, sample_size, random_state)
+        first = stream(iter_numeric_chunks(path, raw, chunk_rows), identity, raw, sample_size, random_state,
+                       progress)
         recipe = recipe.fit({name: first.sample[:, j] for j, name in enumerate(raw)})
     convert = raw_chunks_to_features(recipe, raw)
-    result = stream(iter_numeric_chunks(path, raw, chunk_rows), convert, recipe.features, sample_size, random_state)
+    result = stream(iter_numeric_chunks(path, raw, chunk_rows), convert, recipe.features, sample_size, random_state,
+                    progress)
     return recipe, result
 
 

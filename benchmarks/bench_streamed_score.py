@@ -1,0 +1,132 @@
+"""`afterlook score` streamed (--engine chunked, dask) against the in-memory score: time and peak memory.
+
+Each run is a fresh `afterlook score` process (the console script next to
+this interpreter); wall time from the parent, peak resident memory of that
+process from ``os.wait4`` (for dask: this process only, not its workers).
+Input: the invented demo fleet's cases repeated with 1% noise to ``--rows``
+rows (13 columns, ~200 bytes a row as CSV), scored with the demo model.
+Idle, then loaded (one spinning process per core). Prints a Markdown table
+with each engine's time and memory as a ratio of the in-memory score.
+
+Usage::
+
+    python benchmarks/bench_streamed_score.py            # 1,000,000 rows (~200 MB CSV), a few minutes
+    python benchmarks/bench_streamed_score.py --quick    # 100,000 rows
+"""
+
+from __future__ import annotations
+
+import argparse
+import multiprocessing
+import os
+import statistics
+import subprocess
+import sys
+import tempfile
+import time
+from pathlib import Path
+
+import numpy as np
+import pyarrow as pa
+import pyarrow.csv as pacsv
+
+HERE = Path(__file__).resolve().parent
+SCRIPT = Path(sys.executable).parent / "afterlook"
+
+
+def _spin(stop) -> None:  # pragma: no cover - load generator
+    while not stop.is_set():
+        pass
+
+
+def _make_inputs(folder: Path, rows: int) -> tuple[Path, Path]:
+    subprocess.run([str(SCRIPT), "demo", "--dir", str(folder / "demo"), "--no-tui"], check=True,
+                   stdout=subprocess.DEVNULL)
+    import pandas as pd
+
+    base = pd.read_csv(folder / "demo" / "cases.csv")
+    numeric = [c for c in base.columns if base[c].dtype.kind in "fi"]
+    rng = np.random.default_rng(0)
+    path = folder / "big.csv"
+    writer = None
+    for start in range(0, rows, 100_000):
+        m = min(100_000, rows - start)
+        part = base.iloc[rng.integers(0, len(base), m)].reset_index(drop=True)
+        part["id"] = [f"row{start + i}" for i in range(m)]
+        for c in numeric:
+            part[c] = part[c].to_numpy(float) * (1 + 0.01 * rng.standard_normal(m))
+        table = pa.Table.from_pandas(part, preserve_index=False)
+        writer = writer or pacsv.CSVWriter(str(path), table.schema)
+        writer.write_table(table)
+    writer.close()
+    return folder / "demo" / "model.json", path
+
+
+def _run(args: list[str]) -> tuple[float, float]:
+    """(seconds, peak resident MB) of one fresh process."""
+    start = time.perf_counter()
+    proc = subprocess.Popen([str(SCRIPT), *args], stdout=subprocess.DEVNULL, stderr=subprocess.PIPE)
+    _, status, usage = os.wait4(proc.pid, 0)
+    seconds = time.perf_counter() - start
+    if os.waitstatus_to_exitcode(status) != 0:
+        raise SystemExit(f"afterlook {' '.join(args)} failed: {proc.stderr.read().decode()[:300]}")
+    proc.stderr.close()
+    return seconds, usage.ru_maxrss / 1024
+
+
+def main(argv: list[str] | None = None) -> int:
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("--rows", type=int, default=1_000_000)
+    parser.add_argument("--quick", action="store_true", help="100,000 rows, one round")
+    parser.add_argument("--repeat", type=int, default=2, help="rounds per engine (median reported)")
+    parser.add_argument("--no-dask", action="store_true")
+    args = parser.parse_args(argv)
+    rows = 100_000 if args.quick else args.rows
+    repeat = 1 if args.quick else args.repeat
+    engines = [("memory", []), ("chunked (262,144 rows)", ["--engine", "chunked"]),
+               ("chunked (65,536 rows)", ["--engine", "chunked", "--chunk-rows", "65536"])]
+    if not args.no_dask:
+        engines.append(("dask (local cluster, 2 workers)", ["--engine", "dask"]))
+    lines = []
+    with tempfile.TemporaryDirectory() as tmp:
+        folder = Path(tmp)
+        model, data = _make_inputs(folder, rows)
+        size = data.stat().st_size / 2**20
+        load_now = ", ".join(f"{x:.1f}" for x in os.getloadavg())
+        lines.append(f"{rows:,} rows, {size:.0f} MiB CSV -> CSV; median of {repeat} fresh processes; "
+                     f"load average at the start: {load_now}")
+        lines.append("")
+        lines.append("| engine | load | seconds | peak MB | time vs memory | memory vs memory |")
+        lines.append("| --- | --- | --- | --- | --- | --- |")
+        for load in ("idle", "loaded"):
+            stop = multiprocessing.Event()
+            spinners = []
+            if load == "loaded":
+                spinners = [multiprocessing.Process(target=_spin, args=(stop,), daemon=True)
+                            for _ in range(os.cpu_count() or 1)]
+                for p in spinners:
+                    p.start()
+            try:
+                reference = None
+                for name, extra in engines:
+                    runs = [_run(["score", str(model), str(data), "--out", str(folder / "out.csv"), "--force",
+                                  *extra]) for _ in range(repeat)]
+                    seconds = statistics.median(r[0] for r in runs)
+                    peak = max(r[1] for r in runs)
+                    reference = reference or (seconds, peak)
+                    lines.append(f"| {name} | {load} | {seconds:.2f} | {peak:.0f} | {seconds / reference[0]:.2f}x "
+                                 f"| {peak / reference[1]:.2f}x |")
+                    print(lines[-1], flush=True)
+            finally:
+                stop.set()
+                for p in spinners:
+                    p.join()
+    text = "\n".join(lines) + "\n"
+    print(text)
+    if not args.quick and rows == 1_000_000:
+        (HERE / "results_streamed_score.md").write_text("# bench_streamed_score.py\n\n" + text)
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())
