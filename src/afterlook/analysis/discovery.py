@@ -414,29 +414,38 @@ _SHAPING_CACHE_SIZE = 4096
 
 
 def _shaping_expressions(model: Model, sample: dict, progress=None) -> dict[str, str]:
-    """Expression text of a shaping transform per column (the recipe's own, else a search)."""
+    """Expression text of a shaping transform per column (the recipe's own, else a search).
+
+    The search is :func:`afterlook.core.shaping_fast.chosen_transforms`: the choices of
+    :func:`afterlook.core.shaping.chosen_transform`, for all columns at once in numpy.
+    """
     out = {}
     for name, t in model.recipe.transforms.items():
         if t.kind == "expression":
             out[name] = t.expression
-    from ..core import shaping
+    from ..core import shaping_fast
 
-    for k, (name, values) in enumerate(sample.items()):
-        _report(progress, f"shaping columns {k + 1}/{len(sample)}", 0.05 + 0.1 * k / max(len(sample), 1))
-        if name in out:
-            continue
-        key = (name, _digest(values))
-        if key not in _SHAPING_CACHE:
+    _report(progress, "shaping columns", 0.05)
+    keys = {name: (name, _digest(values)) for name, values in sample.items() if name not in out}
+    todo = [name for name, key in keys.items() if key not in _SHAPING_CACHE]
+    if todo:
+        try:
+            chosen = shaping_fast.chosen_transforms({name: sample[name] for name in todo})
+        except (AfterlookError, TypeError):
+            chosen = dict.fromkeys(todo)
+        for name in todo:
             try:
-                text = _as_expression(shaping.chosen_transform(values, name=name), name)
+                text = _as_expression(chosen[name], name)
             except (AfterlookError, TypeError):
                 text = None
             if len(_SHAPING_CACHE) >= _SHAPING_CACHE_SIZE:
                 _SHAPING_CACHE.pop(next(iter(_SHAPING_CACHE)))
-            _SHAPING_CACHE[key] = text
+            _SHAPING_CACHE[keys[name]] = text
+    for name, key in keys.items():
         text = _SHAPING_CACHE[key]
         if text:
             out[name] = text
+    _report(progress, "shaping columns", 0.15)
     return out
 
 
