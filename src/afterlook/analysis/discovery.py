@@ -19,6 +19,7 @@ from ..core.collinear import LinearSpan
 from ..core.errors import AfterlookError
 from ..core.heldout import DEFAULT_FOLDS, DEFAULT_SEED, flagged_rate, kfold_gain, stratified_folds
 from ..core.numbers import sample_rows
+from ..core.search_inputs import finite_sample, same_fit
 from ..core.recipe import free_name
 from ..core.gaussian import GaussianModel, added_column, with_added_column
 from ..core.thresholds import choose_threshold, confusion, flag
@@ -131,8 +132,9 @@ def suggest(model, cases, train=None, case_ids=None, top: int = 10, *,
     warnings += training.warnings
 
     names = model.recipe.features
-    A = _finite_rows(session.raw_features("normal"), names)
-    A = A[sample_rows(A.shape[0], settings.sample_size, settings.random_state)]
+    raw_normal = session.raw_features("normal")
+    _report(progress, "normal population", 0.08)  # every report is also where the workbench can stop a search
+    A = finite_sample(raw_normal, names, settings.sample_size, settings.random_state)
     sample = {n: A[:, k] for k, n in enumerate(names)}
     raw_cases = session.raw_features("cases")
     C = np.column_stack([raw_cases[n] for n in names])
@@ -142,7 +144,8 @@ def suggest(model, cases, train=None, case_ids=None, top: int = 10, *,
 
     shaped = _shaping_expressions(model, sample, progress) if shaping else {}
     _report(progress, "screening candidates", 0.15)
-    candidates, tried, _ = cand.generate_and_screen(names, sample, T, shaped, settings, select=True)
+    candidates, tried, _ = cand.generate_and_screen(names, sample, T, shaped, settings, select=True,
+                                                    progress=_stage(progress, "screening candidates", 0.15, 0.3))
     _report(progress, "exact statistics", 0.35)
     targets = set(idx)
     other = np.array([i for i in np.flatnonzero(labels) if i not in targets and np.all(np.isfinite(C[i]))],
@@ -150,7 +153,8 @@ def suggest(model, cases, train=None, case_ids=None, top: int = 10, *,
     other_cols = {n: C[other, k] for k, n in enumerate(names)}
     other_is_miss = miss_mask[other] if len(other) else np.zeros(0, bool)
     target_cols = {n: T[:, k] for k, n in enumerate(names)}
-    ranked = cand.second_pass(candidates, tried, sample, target_cols, target_ids, other_cols, other_is_miss, settings)
+    ranked = cand.second_pass(candidates, tried, sample, target_cols, target_ids, other_cols, other_is_miss, settings,
+                              progress=_stage(progress, "exact statistics", 0.3, 0.35))
     ranked, dropped_collinear = _addable(model, sample, ranked, progress)
     if dropped_collinear:
         warnings.append(f"left out {dropped_collinear} candidate(s) that are linear combinations of the model's "
@@ -159,6 +163,7 @@ def suggest(model, cases, train=None, case_ids=None, top: int = 10, *,
 
     exact = top if exact is None else exact
     folds = _folds(session, warnings)
+    _report(progress, "preparing the re-fits", 0.4)
     refitter = _Refitter(session, idx, folds, progress, max(exact, 0))
     for c in ranked[: max(exact, 0)]:
         refitter.refit(c)
@@ -184,10 +189,24 @@ def suggest(model, cases, train=None, case_ids=None, top: int = 10, *,
                          heldout_folds=None if folds is None else int(folds.max()) + 1)
 
 
+#: Rows of the sample the affine-dependence check looks at (at least 8 per model feature).
+ADDABLE_ROWS = 512
+
+
 def _addable(model: Model, sample: dict, ranked: list, progress=None) -> tuple[list, int]:
-    """Drop the candidates a full-covariance model cannot take (affine in its features); count them."""
+    """Drop the candidates a full-covariance model cannot take (affine in its features); count them.
+
+    The check runs on a seeded subset of the sample's rows: a candidate affine in
+    the features is affine on every subset of rows (its unexplained share there is
+    rounding, far under the floor), and one that is not shows it on a random subset
+    of many more rows than features almost surely, with about the same share (a
+    test compares the subset rule with the check on every row).
+    """
     if model.density.kind != "full" or not ranked:
         return ranked, 0
+    n = len(next(iter(sample.values())))
+    rows = sample_rows(n, max(ADDABLE_ROWS, 8 * len(model.recipe.features)), 0)
+    sample = {k: v[rows] for k, v in sample.items()}
     fm = model.recipe.transform_features(sample)
     span = LinearSpan(fm.values)
     keep = []
@@ -266,12 +285,6 @@ def _targets(session: Session, case_ids, miss_mask: np.ndarray) -> tuple[list[in
     return idx, warnings
 
 
-def _finite_rows(raw: dict, names: list[str]) -> np.ndarray:
-    """The rows of ``raw`` (columns ``names``) whose every value is finite, as a matrix."""
-    A = np.column_stack([raw[n] for n in names])
-    return A[np.all(np.isfinite(A), axis=1)]
-
-
 class _Refitter:
     """Third pass: an exact re-fit of a candidate, for the false alarms it adds and its held-out gain.
 
@@ -288,7 +301,7 @@ class _Refitter:
         self.base_conf = scored.confusion()
         labels = session.labels
         self.rate = flagged_rate(scored.log_density, session.model.threshold, labels) if labels is not None else 0.0
-        self.fast = AddedFeatureRefit.prepare(session)
+        self.fast = AddedFeatureRefit.prepare(session, progress=_stage(progress, "preparing the re-fits", 0.4, 0.4))
 
     def refit(self, c) -> None:
         if id(c) in self.attempted:
@@ -338,7 +351,8 @@ class AddedFeatureRefit:
     the caller re-fits in full. A test checks it against the full re-fit.
     """
 
-    def __init__(self, model: Model, X, raw_train, case_features, case_raw, labels, base: GaussianModel):
+    def __init__(self, model: Model, X, raw_train, case_features, case_raw, labels, base: GaussianModel,
+                 centred=None):
         self.model, self.X, self.raw_train = model, X, raw_train
         self.case_features, self.case_raw, self.labels, self.base = case_features, case_raw, labels, base
         # log p(x) of the current features, reused: with one added column y,
@@ -347,25 +361,37 @@ class AddedFeatureRefit:
         self.case_ld = model.with_undefined_policy(base.log_density(case_features), case_raw)
         self.train_ld = base.log_density(X) if model.policy.kind == "rate" else None
         self.precision = base.precision() if base.kind == "full" else None
+        # X - X.mean(axis=0), shared by every added column (added_column's own centring)
+        self.centred = centred if base.kind == "full" and not base.shrinkage_ else None
 
     @classmethod
-    def prepare(cls, session: Session):
+    def prepare(cls, session: Session, progress=None):
         """The re-fit for the session's model and cases, or None when the fast path does not apply."""
         model = session.model
         d = model.density
         if d.robust or d.shrinkage == "ledoit-wolf" or session.labels is None:
             return None
         fm = model.recipe.transform_features(session.raw_features("normal"))
+        if progress is not None:
+            progress(0.5)
         keep = fm.finite_rows
-        X = fm.values[keep]
+        every = bool(np.all(keep))  # the usual case: no copy of the rows
+        X = fm.values if every else fm.values[keep]
         if X.shape[0] < 2:
             return None
-        try:
-            base = GaussianModel(kind=d.kind, shrinkage=d.shrinkage).fit(X, fm.names)
-        except AfterlookError:
-            return None
-        raw_train = {k: v[keep] for k, v in session.scope("normal").items()}
-        return cls(model, X, raw_train, session.scored.features, session.scope("cases"), session.labels, base)
+        centred = X - X.mean(axis=0)
+        base = same_fit(d, X, centred)
+        if base is None:
+            try:
+                base = GaussianModel(kind=d.kind, shrinkage=d.shrinkage).fit(X, fm.names)
+            except AfterlookError:
+                return None
+        if progress is not None:
+            progress(1.0)
+        scope = session.scope("normal")
+        raw_train = scope if every else {k: v[keep] for k, v in scope.items()}
+        return cls(model, X, raw_train, session.scored.features, session.scope("cases"), session.labels, base,
+                   centred)
 
     def evaluate(self, expression):
         """:class:`Refitted` cases after adding ``expression`` (text or parsed), or None."""
@@ -386,7 +412,7 @@ class AddedFeatureRefit:
             ld = np.where(np.isneginf(self.case_ld), -np.inf, ld)
             train_ld = new.log_density(np.column_stack([self.X, y])) if self.train_ld is not None else None
         else:
-            column = added_column(base, self.X, y, precision=self.precision)
+            column = added_column(base, self.X, y, precision=self.precision, centred=self.centred)
             if column is None:
                 return None  # the full re-fit refuses a constant or collinear column too
             with np.errstate(invalid="ignore"):
@@ -404,6 +430,13 @@ class AddedFeatureRefit:
         flagged = flag(ld, threshold)
         return Refitted(threshold, flagged, confusion(flagged, self.labels), ld)
 
+
+
+def _stage(progress, stage: str, start: float, end: float):
+    """A progress callback for one stage (fraction 0..1 of it), or None."""
+    if progress is None:
+        return None
+    return lambda done: progress(stage, start + (end - start) * done)
 
 
 #: Shaping choices already made in this process, by column name and a digest of its values:
@@ -425,12 +458,14 @@ def _shaping_expressions(model: Model, sample: dict, progress=None) -> dict[str,
             out[name] = t.expression
     from ..core import shaping_fast
 
-    _report(progress, "shaping columns", 0.05)
+    _report(progress, "shaping columns", 0.1)
     keys = {name: (name, _digest(values)) for name, values in sample.items() if name not in out}
     todo = [name for name, key in keys.items() if key not in _SHAPING_CACHE]
     if todo:
+        _report(progress, "shaping columns", 0.12)
         try:
-            chosen = shaping_fast.chosen_transforms({name: sample[name] for name in todo})
+            chosen = shaping_fast.chosen_transforms({name: sample[name] for name in todo},
+                                                    progress=_stage(progress, "shaping columns", 0.12, 0.15))
         except (AfterlookError, TypeError):
             chosen = dict.fromkeys(todo)
         for name in todo:
