@@ -28,3 +28,16 @@ def test_deviations_answer_as_the_single_functions(column):
 def test_a_constant_majority_falls_back_to_the_sd_as_robust_z_does():
     v = np.r_[np.zeros(90), np.linspace(1, 5, 10)]
     np.testing.assert_array_equal(Deviations(v).robust_z(np.array([2.0, 7.0])), robust_z(v, np.array([2.0, 7.0])))
+
+
+@pytest.mark.parametrize("n", [30, 31, 100, 101, 4999, 5000, 50_000])
+@pytest.mark.parametrize("q", [0.99, 0.5, 0.9, 0.999, 0.995])
+def test_one_partition_gives_numpys_median_and_quantile_exactly(n, q):
+    # Reference: numpy's median and quantile (default linear method) of the same deviations,
+    # on resampled breast-cancer values (real values, many ties among them)
+    rng = np.random.default_rng(n)
+    v = load_breast_cancer().data[rng.integers(0, 569, n), 3]
+    d = Deviations(v).prepare(q)
+    dev = np.abs(v - np.median(v))
+    assert d.quantile(q) == np.quantile(dev, q)
+    np.testing.assert_array_equal(d.robust_z(v[:5]), (v[:5] - np.median(v)) / (1.4826 * np.median(dev)))

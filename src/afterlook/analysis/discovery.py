@@ -9,7 +9,6 @@ alarms each adds.
 from __future__ import annotations
 
 from dataclasses import dataclass, field
-from typing import NamedTuple
 
 import numpy as np
 
@@ -19,11 +18,10 @@ from ..core.collinear import LinearSpan
 from ..core.errors import AfterlookError
 from ..core.heldout import DEFAULT_FOLDS, DEFAULT_SEED, flagged_rate, kfold_gain, stratified_folds
 from ..core.numbers import sample_rows
-from ..core.search_inputs import finite_sample, same_fit
+from ..core.search_inputs import finite_sample
 from ..core.recipe import free_name
-from ..core.gaussian import GaussianModel, added_column, with_added_column
-from ..core.thresholds import choose_threshold, confusion, flag
 from ..core.blas import with_limited_blas
+from .added_refit import AddedFeatureRefit, Refitted
 from .fitting import refit
 from .model import Model
 from .session import Session, prepare
@@ -165,8 +163,7 @@ def suggest(model, cases, train=None, case_ids=None, top: int = 10, *,
     folds = _folds(session, warnings)
     _report(progress, "preparing the re-fits", 0.4)
     refitter = _Refitter(session, idx, folds, progress, max(exact, 0))
-    for c in ranked[: max(exact, 0)]:
-        refitter.refit(c)
+    refitter.refit_many(ranked[: max(exact, 0)])
     while True:  # the list is ranked by verdict, which needs the re-fit: re-fit what would be listed
         ranked = [c for c in ranked if id(c) not in refitter.failed]
         for c in ranked:
@@ -176,8 +173,7 @@ def suggest(model, cases, train=None, case_ids=None, top: int = 10, *,
         pending = [c for c in final if id(c) not in refitter.attempted] if exact >= top else []
         if not pending:
             break
-        for c in pending:
-            refitter.refit(c)
+        refitter.refit_many(pending)
     warnings += refitter.warnings
     failed = refitter.failed
     if folds is not None and len(idx) > 1:
@@ -303,6 +299,14 @@ class _Refitter:
         self.rate = flagged_rate(scored.log_density, session.model.threshold, labels) if labels is not None else 0.0
         self.fast = AddedFeatureRefit.prepare(session, progress=_stage(progress, "preparing the re-fits", 0.4, 0.4))
 
+    def refit_many(self, cands: list) -> None:
+        """:meth:`refit` each, their training columns and cross-covariances computed together."""
+        if self.fast is not None:
+            self.fast.prefetch([c.parsed or c.expression for c in cands],
+                               progress=_stage(self.progress, "preparing the re-fits", 0.4, 0.4))
+        for c in cands:
+            self.refit(c)
+
     def refit(self, c) -> None:
         if id(c) in self.attempted:
             return
@@ -326,110 +330,6 @@ class _Refitter:
         if self.folds is not None:
             c.heldout = kfold_gain(session.scored.log_density, outcome.log_density, session.labels, model.policy,
                                    false_alarm_rate=self.rate, k=DEFAULT_FOLDS, seed=DEFAULT_SEED)
-
-
-class Refitted(NamedTuple):
-    """The cases after a re-fit with one candidate added."""
-
-    threshold: float
-    flagged: np.ndarray
-    confusion: object
-    log_density: np.ndarray
-
-
-class AddedFeatureRefit:
-    """Exact re-fit with one added derived feature, without re-fitting the rest.
-
-    A re-fit with one more column changes nothing about the other columns'
-    maximum-likelihood estimates as long as the same rows are used
-    (:func:`afterlook.core.gaussian.added_column`). The threshold is then
-    re-picked by the model's policy on the re-scored cases, exactly as
-    :func:`afterlook.analysis.trial.try_features` does. Used when the fit is
-    classical or has a fixed shrinkage (not robust, no Ledoit-Wolf, whose
-    intensity depends on all columns) and the candidate is finite on every
-    training row the fit uses; otherwise :meth:`evaluate` returns None and
-    the caller re-fits in full. A test checks it against the full re-fit.
-    """
-
-    def __init__(self, model: Model, X, raw_train, case_features, case_raw, labels, base: GaussianModel,
-                 centred=None):
-        self.model, self.X, self.raw_train = model, X, raw_train
-        self.case_features, self.case_raw, self.labels, self.base = case_features, case_raw, labels, base
-        # log p(x) of the current features, reused: with one added column y,
-        # log p(x, y) = log p(x) + log N(y; E[y | x], var(y | x)) exactly.
-        # the session's scores already carry the model's undefined-value policy (-inf outside a domain)
-        self.case_ld = model.with_undefined_policy(base.log_density(case_features), case_raw)
-        self.train_ld = base.log_density(X) if model.policy.kind == "rate" else None
-        self.precision = base.precision() if base.kind == "full" else None
-        # X - X.mean(axis=0), shared by every added column (added_column's own centring)
-        self.centred = centred if base.kind == "full" and not base.shrinkage_ else None
-
-    @classmethod
-    def prepare(cls, session: Session, progress=None):
-        """The re-fit for the session's model and cases, or None when the fast path does not apply."""
-        model = session.model
-        d = model.density
-        if d.robust or d.shrinkage == "ledoit-wolf" or session.labels is None:
-            return None
-        fm = model.recipe.transform_features(session.raw_features("normal"))
-        if progress is not None:
-            progress(0.5)
-        keep = fm.finite_rows
-        every = bool(np.all(keep))  # the usual case: no copy of the rows
-        X = fm.values if every else fm.values[keep]
-        if X.shape[0] < 2:
-            return None
-        centred = X - X.mean(axis=0)
-        base = same_fit(d, X, centred)
-        if base is None:
-            try:
-                base = GaussianModel(kind=d.kind, shrinkage=d.shrinkage).fit(X, fm.names)
-            except AfterlookError:
-                return None
-        if progress is not None:
-            progress(1.0)
-        scope = session.scope("normal")
-        raw_train = scope if every else {k: v[keep] for k, v in scope.items()}
-        return cls(model, X, raw_train, session.scored.features, session.scope("cases"), session.labels, base,
-                   centred)
-
-    def evaluate(self, expression):
-        """:class:`Refitted` cases after adding ``expression`` (text or parsed), or None."""
-        try:
-            expr = expression if isinstance(expression, expressions.Expression) else expressions.parse(expression)
-            y = expr.evaluate(self.raw_train)
-            y_cases = expr.evaluate(self.case_raw)
-        except AfterlookError:
-            return None
-        if not np.all(np.isfinite(y)):
-            return None  # a full re-fit would drop rows: parameters of every column change
-        base = self.base
-        if base.kind == "full" and base.shrinkage_:
-            new = with_added_column(base, self.X, y, "candidate")
-            if new is None:
-                return None
-            ld = new.log_density(np.column_stack([self.case_features, y_cases]))
-            ld = np.where(np.isneginf(self.case_ld), -np.inf, ld)
-            train_ld = new.log_density(np.column_stack([self.X, y])) if self.train_ld is not None else None
-        else:
-            column = added_column(base, self.X, y, precision=self.precision, centred=self.centred)
-            if column is None:
-                return None  # the full re-fit refuses a constant or collinear column too
-            with np.errstate(invalid="ignore"):
-                cond = column.conditional_log_density(self.case_features, y_cases)
-                ld = np.where(np.isneginf(self.case_ld), -np.inf, self.case_ld + cond)
-            ld[np.isnan(ld) | np.isposinf(ld)] = np.nan
-            train_ld = None if self.train_ld is None else self.train_ld + column.conditional_log_density(self.X, y)
-        if self.model.undefined == "flag":
-            # the candidate undefined on a case whose readings are finite: outside its domain, flagged
-            readings_ok = np.all(np.column_stack([np.isfinite(self.case_raw[c]) for c in expr.columns]), axis=1) \
-                if expr.columns else np.ones(len(ld), bool)
-            ld = np.where(np.isnan(ld) & ~np.isfinite(y_cases) & readings_ok & ~np.isnan(self.case_ld), -np.inf, ld)
-        threshold = choose_threshold(self.model.policy, case_log_density=ld, case_is_anomaly=self.labels,
-                                     normal_log_density=train_ld)
-        flagged = flag(ld, threshold)
-        return Refitted(threshold, flagged, confusion(flagged, self.labels), ld)
-
 
 
 def _stage(progress, stage: str, start: float, end: float):

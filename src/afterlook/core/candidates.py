@@ -391,6 +391,8 @@ def second_pass(
         if not np.all(np.isfinite(tv)):
             continue
         spread = Deviations(v)
+        if other_anomalies is not None and other_is_miss is not None and len(other_is_miss):
+            spread.prepare(1.0 - settings.alarm_rate)  # the alarm quantile and the MAD from one partition
         zs = spread.robust_z(tv)
         tails = [spread.tail(float(t)) for t in tv]
         guard = chance_verdict(np.array([t[0] for t in tails]), n_tried)

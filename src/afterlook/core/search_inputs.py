@@ -1,4 +1,5 @@
-"""What the candidate search starts from: its seeded sample of the normal rows, and the fit it re-fits from.
+"""What the candidate search starts from: its seeded sample of the normal rows, the fit it re-fits from,
+and the cross-covariances of many added columns with the fitted ones.
 
 Used by :func:`afterlook.analysis.discovery.suggest`; numpy only.
 """
@@ -12,7 +13,7 @@ import numpy as np
 from .gaussian import GaussianModel
 from .numbers import sample_rows
 
-__all__ = ["finite_sample", "same_fit"]
+__all__ = ["finite_sample", "same_fit", "centred_cross"]
 
 
 def finite_sample(raw: Mapping[str, np.ndarray], names: list[str], size: int, random_state) -> np.ndarray:
@@ -32,19 +33,37 @@ def finite_sample(raw: Mapping[str, np.ndarray], names: list[str], size: int, ra
     return A
 
 
-def same_fit(density: GaussianModel, X: np.ndarray, centred: np.ndarray) -> GaussianModel | None:
+def same_fit(density: GaussianModel, X: np.ndarray, mean: np.ndarray) -> GaussianModel | None:
     """The model's own density when it is the classical fit on exactly these rows, else None.
 
     A classical (not robust, unshrunk) fit is the rows' mean and covariance; when
-    the rows' mean and variances equal the model's to 1e-12, the model was fitted
-    on these rows and refitting would give the same numbers (to rounding).
+    the rows' mean (``mean``, ``X.mean(axis=0)``) and variances equal the model's
+    to 1e-12, the model was fitted on these rows and refitting would give the
+    same numbers (to rounding). The variances are summed a block of rows at a
+    time, so no centred copy of ``X`` is made.
     """
     if density.robust or density.shrinkage_ or density.mean_ is None or density.mean_.shape != (X.shape[1],):
         return None
-    mean = X.mean(axis=0)
     if not np.allclose(mean, density.mean_, rtol=1e-12, atol=0.0):
         return None
-    var = np.einsum("ij,ij->j", centred, centred) / X.shape[0]
+    var = np.zeros(X.shape[1])
+    for start in range(0, X.shape[0], 8192):
+        block = X[start:start + 8192] - mean
+        var += np.einsum("ij,ij->j", block, block)
+    var /= X.shape[0]
     if density.covariance_ is None or not np.allclose(var, np.diag(density.covariance_), rtol=1e-12, atol=0.0):
         return None
     return density
+
+
+def centred_cross(X: np.ndarray, Y: np.ndarray, block: int = 8192) -> np.ndarray:
+    """``(X - X.mean(axis=0))^T (Y - Y.mean(axis=0)) / n`` (d x k) for many columns ``Y`` (n x k) at once,
+    centring ``X`` a block of rows at a time (no centred copy of ``X``); the means of ``Y`` are taken per
+    column as :func:`added_column` takes them."""
+    n = X.shape[0]
+    mean = X.mean(axis=0)
+    Yc = np.column_stack([Y[:, k] - float(Y[:, k].mean()) for k in range(Y.shape[1])])
+    out = np.zeros((X.shape[1], Y.shape[1]))
+    for start in range(0, n, block):
+        out += (X[start:start + block] - mean).T @ Yc[start:start + block]
+    return out / n

@@ -99,9 +99,37 @@ class Deviations:
         self.values = values
         self.median = np.median(values)
         self.dev = np.abs(values - self.median)
+        self._stats: dict = {}
+
+    def _order_statistics(self, q: float | None) -> None:
+        """The median of the deviations and (with ``q``) their q-quantile, from one ``np.partition``:
+        numpy's own rules (the mean of the two middle values; linear interpolation between the order
+        statistics around ``(n - 1) q``, written as numpy's ``_lerp``)."""
+        dev, n = self.dev, self.dev.size
+        mid = [n // 2 - 1, n // 2] if n % 2 == 0 else [(n - 1) // 2]
+        kth = set(mid)
+        if q is not None:
+            v = (n - 1) * float(q)
+            lo = n - 1 if v >= n - 1 else int(math.floor(v))
+            hi = n - 1 if v >= n - 1 else lo + 1
+            kth |= {lo, hi}
+        part = np.partition(dev, sorted(kth))
+        self._stats["mad"] = (part[mid[0]] + part[mid[1]]) / 2.0 if len(mid) == 2 else part[mid[0]]
+        if q is not None:
+            a, b, g = part[lo], part[hi], v - math.floor(v)
+            diff = b - a
+            self._stats[q] = b - diff * (1 - g) if g >= 0.5 else a + diff * g
+
+    def prepare(self, q: float) -> "Deviations":
+        """Compute the median deviation and the ``q``-quantile together (both are asked for)."""
+        if q not in self._stats:
+            self._order_statistics(q)
+        return self
 
     def robust_z(self, target: np.ndarray | float) -> np.ndarray:
-        mad = MAD_TO_SD * np.median(self.dev)
+        if "mad" not in self._stats:
+            self._order_statistics(None)
+        mad = MAD_TO_SD * self._stats["mad"]
         if not mad > 0:
             mad = self.values.std()
         if not mad > 0:
@@ -117,7 +145,9 @@ class Deviations:
         return gpd_tail(self.dev, t), "pareto tail", count
 
     def quantile(self, q: float) -> float:
-        return np.quantile(self.dev, q)
+        if q not in self._stats:
+            self._order_statistics(q)
+        return self._stats[q]
 
 
 def robust_z(values: np.ndarray, target: np.ndarray | float) -> np.ndarray:
