@@ -88,7 +88,7 @@ class AddedFeatureRefit:
         :meth:`evaluate` to use."""
         ready = {}
         for k, expression in enumerate(many):
-            if progress is not None and k % 4 == 0:
+            if progress is not None and k % 2 == 0:
                 progress(k / max(len(many), 1))
             try:
                 expr = expression if isinstance(expression, expressions.Expression) else expressions.parse(expression)

@@ -125,8 +125,9 @@ def suggest(model, cases, train=None, case_ids=None, top: int = 10, *,
     miss_mask = labels & ~before.flagged & ~np.isnan(before.log_density)
     idx, warnings = _targets(session, case_ids, miss_mask)
     target_ids = [str(table.ids[i]) for i in idx]
-    _report(progress, "normal population", 0.05)
+    _report(progress, "normal population", 0.03)
     training = session.training
+    _report(progress, "normal population", 0.05)
     warnings += training.warnings
 
     names = model.recipe.features

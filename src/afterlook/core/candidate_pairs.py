@@ -132,12 +132,18 @@ def ratio_groups(m: Moments, groups: list, tick=None) -> None:
     P = np.flatnonzero(positive)
     if not len(P):
         return
-    inv = 1.0 / As[:, P]
+    # At most three n x d matrices besides the sample at any time (a wide table's peak memory):
+    # squares are taken in place, and each matrix is dropped as soon as its products are done.
+    every = len(P) == As.shape[1]
+    inv = 1.0 / (As if every else As[:, P])
     pos_index = {c: k for k, c in enumerate(P)}
     A2s = As**2
     S1 = A2s.T @ inv / n  # E[a^2 / b] (scaled), every numerator, positive divisors
     tick()
-    S2 = (A2s**2).T @ (inv**2) / n  # E[a^4 / b^2]
+    np.multiply(A2s, A2s, out=A2s)  # a^4 (scaled)
+    inv2 = inv * inv
+    S2 = A2s.T @ inv2 / n  # E[a^4 / b^2]
+    del A2s
     tick()
     for a_, b_ in ((iu, ju), (ju, iu)):
         keep_sq = positive[b_]
@@ -151,19 +157,22 @@ def ratio_groups(m: Moments, groups: list, tick=None) -> None:
     pi, pj = iu[pmask], ju[pmask]
     if not len(pi):
         return
-    Ap = As[:, P]
+    Ap = As if every else As[:, P]
     a_idx = np.array([pos_index[x] for x in pi])
     b_idx = np.array([pos_index[x] for x in pj])
     M1 = Ap.T @ inv / n  # E[a / b] (scaled)
+    del inv
     tick()
-    M2 = (Ap**2).T @ (inv**2) / n  # E[(a / b)^2]
+    Ap2 = Ap * Ap
+    M2 = Ap2.T @ inv2 / n  # E[(a / b)^2]
+    del Ap2, inv2
     tick()
     sc = scale[P]
     for a_, b_, ia, ib in ((pi, pj, a_idx, b_idx), (pj, pi, b_idx, a_idx)):
         f = sc[ia] / sc[ib]
         _add(groups, "ratio", a_, b_, M1[ia, ib] * f, (M2[ia, ib] - M1[ia, ib] ** 2) * f**2,
              T[:, a_] / T[:, b_], lambda k, a_=a_, b_=b_: f"{q[a_[k]]} / {q[b_[k]]}")
-    L = np.log(m.A[:, P])
+    L = np.log(m.A if every else m.A[:, P])
     Lmu = L.mean(axis=0)
     LC = np.cov(L, rowvar=False, bias=True) if len(P) > 1 else np.zeros((1, 1))
     LT = np.log(T[:, P])

@@ -370,7 +370,7 @@ def second_pass(
 
     ``targets`` and ``other_anomalies`` map column name -> raw values of the
     target misses and of the other labelled anomalies. ``progress`` (optional
-    callable(fraction done)) is called every 16 candidates.
+    callable(fraction done)) is called every 8 candidates.
     """
     scored = [c for c in candidates if np.isfinite(c.first_pass_z)]
     scored.sort(key=lambda c: -c.first_pass_z)
@@ -380,7 +380,7 @@ def second_pass(
     chosen += reserve[: settings.correlated_reserve]
     out = []
     for index, c in enumerate(chosen):
-        if progress is not None and index % 16 == 0:
+        if progress is not None and index % 8 == 0:
             progress(index / len(chosen))
         expr = c.parsed = expressions.parse(c.expression)
         v = expr.evaluate(sample)
