@@ -35,6 +35,7 @@ asserted. Usage::
 
     python benchmarks/bench_workbench.py            # 100,000 cases, 5 repeats
     python benchmarks/bench_workbench.py --quick    # 20,000 cases, 3 repeats
+    python benchmarks/bench_workbench.py --only q   # only the third part
 """
 
 from __future__ import annotations
@@ -308,16 +309,21 @@ def main(argv: list[str] | None = None) -> int:
     parser.add_argument("--quick", action="store_true", help=f"{QUICK_CASES:,} cases and 3 repeats")
     parser.add_argument("--cases", type=int, default=None, help=f"cases for the re-score (default {FULL_CASES:,})")
     parser.add_argument("--repeat", type=int, default=None, help="timed rounds (default 5, 3 with --quick)")
+    parser.add_argument("--only", default="first,rescore,q", help="comma-separated parts: first, rescore, q")
     args = parser.parse_args(argv)
+    parts = {p.strip() for p in args.only.split(",")}
     n_cases = args.cases or (QUICK_CASES if args.quick else FULL_CASES)
     repeat = args.repeat or (3 if args.quick else 5)
     with tempfile.TemporaryDirectory(prefix="afterlook-bench-workbench-") as tmp:
         folder = Path(tmp)
-        bench_first_screen(folder, repeat)
-        print()
-        bench_rescore(folder, n_cases, repeat)
-        print()
-        bench_q_latency(folder, args.quick, repeat)
+        if "first" in parts:
+            bench_first_screen(folder, repeat)
+            print()
+        if "rescore" in parts:
+            bench_rescore(folder, n_cases, repeat)
+            print()
+        if "q" in parts:
+            bench_q_latency(folder, args.quick, repeat)
     return 0
 
 
