@@ -21,12 +21,21 @@
                    sort for the best-F1 threshold, a comparison for the flips.
                  And end to end in the app: Enter on a typed expression until
                  the before/after comparison is on the screen (Pilot).
+3. q in a search On the suggest workload of bench_end_to_end.py (200,000 x 40
+                 training rows, 3,000 labelled cases; 20,000 rows with
+                 ``--quick``), a fresh process per run: ``c`` starts the
+                 candidate search, ``q`` is pressed a set time into it, and the
+                 time from ``q`` to the app's exit is measured (an exiting app
+                 waits for its worker thread, which stops at the search's next
+                 progress report). Against: the whole search, what ``q`` would
+                 wait for without cooperative cancellation.
 
 Numbers are printed (best and median of ``--repeat`` runs); nothing is
 asserted. Usage::
 
     python benchmarks/bench_workbench.py            # 100,000 cases, 5 repeats
     python benchmarks/bench_workbench.py --quick    # 20,000 cases, 3 repeats
+    python benchmarks/bench_workbench.py --only q   # only the third part
 """
 
 from __future__ import annotations
@@ -224,19 +233,97 @@ async def _in_app(model_path, cases_path, train_path, book, repeat: int) -> list
     return out
 
 
+Q_CHILD = r"""
+import asyncio, sys, time
+from afterlook.tui import create_app
+
+delay = float(sys.argv[5])
+
+async def main():
+    app = create_app(sys.argv[1], sys.argv[2], train_path=sys.argv[3], casebook=sys.argv[4], auto_candidates=False)
+    async with app.run_test(size=(120, 40)) as pilot:
+        await pilot.pause()
+        app.select_case("miss")  # the case the search is for (what a highlight in the list does)
+        await pilot.pause()
+        start = time.perf_counter()
+        await pilot.press("c")
+        if delay < 0:  # the whole search, for comparison
+            for _ in range(200_000):  # bounded: a broken app must not hang the benchmark
+                if "miss" in app.candidates:
+                    break
+                await pilot.pause(0.005)
+            print(f"{time.perf_counter() - start:.6f} search")
+            return
+        while time.perf_counter() - start < delay:
+            await pilot.pause(0.005)
+        running = app.candidates_running == "miss"
+        pressed = time.perf_counter()
+        await pilot.press("q")
+    print(f"{time.perf_counter() - pressed:.6f} {'running' if running else 'done'}")
+
+asyncio.run(main())
+"""
+
+
+def bench_q_latency(folder: Path, quick: bool, repeat: int) -> None:
+    import pandas as pd
+
+    import afterlook
+
+    sys.path.insert(0, str(Path(__file__).resolve().parent))
+    import _workloads
+
+    data = folder / "q"
+    _workloads.prepare(data, 20_000 if quick else 200_000, 40, 1000)
+    cases = pd.read_parquet(data / "cases.parquet")
+    model = afterlook.fit(pd.read_parquet(data / "train.parquet"), cases=cases, kind="full")
+    model.save(data / "model.json")
+    cases.to_csv(data / "cases.csv", index=False)
+
+    def child(delay: float) -> tuple[float, str]:
+        out = subprocess.run([sys.executable, "-c", Q_CHILD, str(data / "model.json"), str(data / "cases.csv"),
+                              str(data / "train.parquet"), str(folder / "q-book.json"), str(delay)],
+                             capture_output=True, text=True, check=True, timeout=600)
+        seconds, state = out.stdout.strip().splitlines()[-1].split()
+        return float(seconds), state
+
+    search = [child(-1.0)[0] for _ in range(max(1, repeat // 2))]
+    delays = (0.05, 0.2, 0.4, 0.6, 0.8, 1.0, 1.5) if not quick else (0.05, 0.2, 0.4)
+    latencies = []
+    for delay in delays:
+        seconds, state = child(delay)
+        if state == "running":
+            latencies.append(seconds)
+    print(f"3. q during a candidate search ({'20,000' if quick else '200,000'} x 40 training rows, 3,000 cases)")
+    print(f"   the whole search in the app (c -> list shown)  : {_stats(search)}")
+    if latencies:
+        print(f"   q -> app exited, q pressed {len(latencies)} times mid-search : {_stats(latencies)}   "
+              f"worst {max(latencies) * 1000:.1f} ms")
+        print(f"   whole search / worst q latency           : {statistics.median(search) / max(latencies):.1f}x")
+    else:
+        print("   the search ended before every q: no mid-search latency to show")
+
+
 def main(argv: list[str] | None = None) -> int:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--quick", action="store_true", help=f"{QUICK_CASES:,} cases and 3 repeats")
     parser.add_argument("--cases", type=int, default=None, help=f"cases for the re-score (default {FULL_CASES:,})")
     parser.add_argument("--repeat", type=int, default=None, help="timed rounds (default 5, 3 with --quick)")
+    parser.add_argument("--only", default="first,rescore,q", help="comma-separated parts: first, rescore, q")
     args = parser.parse_args(argv)
+    parts = {p.strip() for p in args.only.split(",")}
     n_cases = args.cases or (QUICK_CASES if args.quick else FULL_CASES)
     repeat = args.repeat or (3 if args.quick else 5)
     with tempfile.TemporaryDirectory(prefix="afterlook-bench-workbench-") as tmp:
         folder = Path(tmp)
-        bench_first_screen(folder, repeat)
-        print()
-        bench_rescore(folder, n_cases, repeat)
+        if "first" in parts:
+            bench_first_screen(folder, repeat)
+            print()
+        if "rescore" in parts:
+            bench_rescore(folder, n_cases, repeat)
+            print()
+        if "q" in parts:
+            bench_q_latency(folder, args.quick, repeat)
     return 0
 
 

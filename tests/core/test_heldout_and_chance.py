@@ -178,3 +178,30 @@ def test_many_misses_and_unrelated_candidates_claim_nothing():
         misses = rng.choice(normal, size=120) + rng.normal(0, 1e-9, 120)
         claims += chance_verdict(_add_one_tails(normal, misses), n_tried=n_tried).beyond_chance()
     assert claims == 0
+
+
+@pytest.mark.parametrize("seed", [0, 1, 7])
+@pytest.mark.parametrize("n_anomalies,n_normals,first", [(7, 93, True), (3, 50, False), (40, 2960, False),
+                                                        (300, 2700, True), (2, 2, False)])
+def test_numpy_folds_are_scikit_learns_stratified_kfold(seed, n_anomalies, n_normals, first):
+    # Reference: scikit-learn's StratifiedKFold(shuffle=True, random_state=seed); the labels are
+    # shuffled so that either class may come first (its class numbering follows first appearance).
+    rng = np.random.default_rng(seed + 100)
+    y = rng.permutation(np.r_[np.ones(n_anomalies, bool), np.zeros(n_normals, bool)])
+    j = int(np.flatnonzero(y == first)[0])
+    y[0], y[j] = y[j], y[0]  # a case of the class `first` leads, the counts stay
+    splits = min(5, int(y.sum()), int((~y).sum()))
+    expected = np.empty(y.size, dtype=np.int64)
+    for f, (_, test) in enumerate(StratifiedKFold(splits, shuffle=True, random_state=seed).split(np.zeros(y.size), y)):
+        expected[test] = f
+    np.testing.assert_array_equal(stratified_folds(y, 5, seed), expected)
+
+
+@pytest.mark.parametrize("count,n", [(1, 1), (1, 2), (3, 5), (6, 10), (12, 20), (40, 60), (700, 1300),
+                                     (1100, 2100), (2600, 5000), (5000, 5000)])
+def test_half_binomial_tail_matches_scipy_binom(count, n):
+    from afterlook.core.heldout import half_binomial_upper_tail
+
+    # Reference: scipy.stats.binom.sf(count - 1, n, 0.5)
+    assert half_binomial_upper_tail(count, n) == pytest.approx(float(stats.binom.sf(count - 1, n, 0.5)),
+                                                               rel=1e-9, abs=1e-300)

@@ -77,3 +77,35 @@ def test_a_candidate_with_nan_on_training_rows_falls_back(demo):
     model = afterlook.fit(tr, cases=cs, kind="independent")
     fast = AddedFeatureRefit.prepare(Session(model, cs, tr))
     assert fast.evaluate("log(hours_since_service - 100)") is None  # log of negatives on some rows
+
+
+@pytest.mark.parametrize("kind,shrinkage", [("full", None), ("independent", None), ("full", 0.2)])
+def test_candidates_prepared_together_equal_one_at_a_time(demo, kind, shrinkage):
+    # Reference: the same fast re-fit without prefetch (each candidate centred on its own), itself
+    # checked against the full re-fit above
+    from afterlook.analysis.session import as_table
+
+    tr, cs = as_table(demo.train), as_table(demo.cases)
+    model = afterlook.fit(tr, cases=cs, kind=kind, shrinkage=shrinkage)
+    alone = AddedFeatureRefit.prepare(Session(model, cs, tr))
+    together = AddedFeatureRefit.prepare(Session(model, cs, tr))
+    texts = EXPRESSIONS + ["log(hours_since_service - 100)"]  # the last one is NaN on some rows: not prefetched
+    together.prefetch(texts)
+    for text in texts:
+        a, b = alone.evaluate(text), together.evaluate(text)
+        assert (a is None) == (b is None), text
+        if a is not None:
+            np.testing.assert_allclose(b.log_density, a.log_density, rtol=1e-11, atol=1e-11)
+            assert b.threshold == pytest.approx(a.threshold, rel=1e-11, abs=1e-11) and b.confusion == a.confusion
+
+
+def test_centred_cross_equals_the_plain_centred_product():
+    # Reference: numpy on the breast-cancer table (scikit-learn's bundled copy): (X - mean)^T (Y - mean) / n
+    from sklearn.datasets import load_breast_cancer
+
+    from afterlook.core.search_inputs import centred_cross
+
+    data = load_breast_cancer().data
+    X, Y = data[:, :10], data[:, 10:16]
+    expected = (X - X.mean(axis=0)).T @ (Y - Y.mean(axis=0)) / X.shape[0]
+    np.testing.assert_allclose(centred_cross(X, Y, block=100), expected, rtol=1e-12, atol=1e-12 * np.abs(expected).max())

@@ -28,6 +28,7 @@ def test_remembered_choices_equal_a_fresh_search(monkeypatch):
     assert len(discovery._SHAPING_CACHE) == 3
     calls = []
     monkeypatch.setattr("afterlook.core.shaping.chosen_transform", lambda *a, **k: calls.append(a))
+    monkeypatch.setattr("afterlook.core.shaping_fast.chosen_transforms", lambda *a, **k: calls.append(a))
     again = discovery._shaping_expressions(_Model(), sample)
     assert again == first and calls == []  # served from memory
     fresh = {n: discovery._as_expression(search_transform(v, name=n).transform, n) for n, v in sample.items()}

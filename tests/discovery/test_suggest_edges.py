@@ -102,3 +102,21 @@ def test_one_suggest_call_reads_each_table_s_columns_once(fleet_factory):
     train = as_table(fitted.fleet.train)
     n_normal = int((~train.labels).sum()) if train.labels is not None else len(train)
     assert sorted(calls) == sorted([len(cases), n_normal])
+
+
+def test_the_recommendation_does_not_depend_on_how_many_rows_are_listed(demo_written):
+    """top=3 and top=10 re-fit the same candidates, so verdicts, order and recommendation agree.
+
+    On the demo's worst miss (a consistency check, no outside number involved): with only the
+    listed rows re-fitted, top=3 recommended the plain ratio while top=10 recommended the shaped
+    relation ranked fourth before its re-fit.
+    """
+    import afterlook
+
+    d = demo_written
+    model, cases, train = afterlook.load_model(d.model), afterlook.load_table(d.cases), afterlook.load_table(d.train)
+    few = afterlook.suggest(model, cases, train=train, case_ids=["PS-01/2026-05-21T17:00"], top=3)
+    many = afterlook.suggest(model, cases, train=train, case_ids=["PS-01/2026-05-21T17:00"], top=10)
+    assert few.recommended == many.recommended
+    assert [c.expression for c in few.candidates] == [c.expression for c in many.candidates[:3]]
+    assert [c.verdict for c in few.candidates] == [c.verdict for c in many.candidates[:3]]

@@ -9,7 +9,6 @@ alarms each adds.
 from __future__ import annotations
 
 from dataclasses import dataclass, field
-from typing import NamedTuple
 
 import numpy as np
 
@@ -20,13 +19,17 @@ from ..core.collinear import LinearSpan
 from ..core.errors import AfterlookError
 from ..core.heldout import DEFAULT_FOLDS, DEFAULT_SEED, flagged_rate, kfold_gain, stratified_folds
 from ..core.numbers import sample_rows
+from ..core.search_inputs import finite_sample
 from ..core.recipe import free_name
-from ..core.gaussian import GaussianModel, added_column, with_added_column
-from ..core.thresholds import choose_threshold, confusion, flag
 from ..core.blas import with_limited_blas
+from .added_refit import AddedFeatureRefit, Refitted
 from .fitting import refit
 from .model import Model
 from .session import Session, prepare
+
+#: Re-fitted at least this many candidates by default: with fewer (``--top 3``) a candidate ranked
+#: 4th before its re-fit could never be judged ``holds-up``, so the recommendation changed with --top.
+EXACT_AT_LEAST = 10
 
 __all__ = ["SuggestResult", "suggest", "AddedFeatureRefit"]
 
@@ -113,7 +116,9 @@ def suggest(model, cases, train=None, case_ids=None, top: int = 10, *,
         :class:`~afterlook.analysis.session.Session` and ``None``
     case_ids : ids of target misses; default every miss
     top : candidates returned
-    exact : candidates re-fitted exactly for false alarms added (default ``top``)
+    exact : candidates re-fitted exactly for false alarms added (default ``top``, at least
+        :data:`EXACT_AT_LEAST`, so that the verdicts, the ranking and the recommendation do
+        not depend on how many rows are listed)
     progress : optional callable(stage: str, fraction: float) for the workbench
     """
     settings = checked_settings(settings)
@@ -127,13 +132,15 @@ def suggest(model, cases, train=None, case_ids=None, top: int = 10, *,
     miss_mask = labels & ~before.flagged & ~np.isnan(before.log_density)
     idx, warnings = _targets(session, case_ids, miss_mask)
     target_ids = [str(table.ids[i]) for i in idx]
-    _report(progress, "normal population", 0.05)
+    _report(progress, "normal population", 0.03)
     training = session.training
+    _report(progress, "normal population", 0.05)
     warnings += training.warnings
 
     names = model.recipe.features
-    A = _finite_rows(session.raw_features("normal"), names)
-    A = A[sample_rows(A.shape[0], settings.sample_size, settings.random_state)]
+    raw_normal = session.raw_features("normal")
+    _report(progress, "normal population", 0.08)  # every report is also where the workbench can stop a search
+    A = finite_sample(raw_normal, names, settings.sample_size, settings.random_state)
     sample = {n: A[:, k] for k, n in enumerate(names)}
     raw_cases = session.raw_features("cases")
     C = np.column_stack([raw_cases[n] for n in names])
@@ -143,7 +150,8 @@ def suggest(model, cases, train=None, case_ids=None, top: int = 10, *,
 
     shaped = _shaping_expressions(model, sample, progress) if shaping else {}
     _report(progress, "screening candidates", 0.15)
-    candidates, tried, _ = cand.generate_and_screen(names, sample, T, shaped, settings, select=True)
+    candidates, tried, _ = cand.generate_and_screen(names, sample, T, shaped, settings, select=True,
+                                                    progress=_stage(progress, "screening candidates", 0.15, 0.3))
     _report(progress, "exact statistics", 0.35)
     targets = set(idx)
     other = np.array([i for i in np.flatnonzero(labels) if i not in targets and np.all(np.isfinite(C[i]))],
@@ -151,18 +159,19 @@ def suggest(model, cases, train=None, case_ids=None, top: int = 10, *,
     other_cols = {n: C[other, k] for k, n in enumerate(names)}
     other_is_miss = miss_mask[other] if len(other) else np.zeros(0, bool)
     target_cols = {n: T[:, k] for k, n in enumerate(names)}
-    ranked = cand.second_pass(candidates, tried, sample, target_cols, target_ids, other_cols, other_is_miss, settings)
+    ranked = cand.second_pass(candidates, tried, sample, target_cols, target_ids, other_cols, other_is_miss, settings,
+                              progress=_stage(progress, "exact statistics", 0.3, 0.35))
     ranked, dropped_collinear = _addable(model, sample, ranked, progress)
     if dropped_collinear:
         warnings.append(f"left out {dropped_collinear} candidate(s) that are linear combinations of the model's "
                         "features (a full covariance cannot take them)")
     beyond_total = sum(c.beyond_chance for c in ranked)
 
-    exact = top if exact is None else exact
+    exact = max(top, EXACT_AT_LEAST) if exact is None else exact
     folds = _folds(session, warnings)
+    _report(progress, "preparing the re-fits", 0.4)
     refitter = _Refitter(session, idx, folds, progress, max(exact, 0))
-    for c in ranked[: max(exact, 0)]:
-        refitter.refit(c)
+    refitter.refit_many(ranked[: max(exact, 0)])
     while True:  # the list is ranked by verdict, which needs the re-fit: re-fit what would be listed
         ranked = [c for c in ranked if id(c) not in refitter.failed]
         for c in ranked:
@@ -172,8 +181,7 @@ def suggest(model, cases, train=None, case_ids=None, top: int = 10, *,
         pending = [c for c in final if id(c) not in refitter.attempted] if exact >= top else []
         if not pending:
             break
-        for c in pending:
-            refitter.refit(c)
+        refitter.refit_many(pending)
     warnings += refitter.warnings
     failed = refitter.failed
     if folds is not None and len(idx) > 1:
@@ -185,10 +193,24 @@ def suggest(model, cases, train=None, case_ids=None, top: int = 10, *,
                          heldout_folds=None if folds is None else int(folds.max()) + 1)
 
 
+#: Rows of the sample the affine-dependence check looks at (at least 8 per model feature).
+ADDABLE_ROWS = 512
+
+
 def _addable(model: Model, sample: dict, ranked: list, progress=None) -> tuple[list, int]:
-    """Drop the candidates a full-covariance model cannot take (affine in its features); count them."""
+    """Drop the candidates a full-covariance model cannot take (affine in its features); count them.
+
+    The check runs on a seeded subset of the sample's rows: a candidate affine in
+    the features is affine on every subset of rows (its unexplained share there is
+    rounding, far under the floor), and one that is not shows it on a random subset
+    of many more rows than features almost surely, with about the same share (a
+    test compares the subset rule with the check on every row).
+    """
     if model.density.kind != "full" or not ranked:
         return ranked, 0
+    n = len(next(iter(sample.values())))
+    rows = sample_rows(n, max(ADDABLE_ROWS, 8 * len(model.recipe.features)), 0)
+    sample = {k: v[rows] for k, v in sample.items()}
     fm = model.recipe.transform_features(sample)
     span = LinearSpan(fm.values)
     keep = []
@@ -267,12 +289,6 @@ def _targets(session: Session, case_ids, miss_mask: np.ndarray) -> tuple[list[in
     return idx, warnings
 
 
-def _finite_rows(raw: dict, names: list[str]) -> np.ndarray:
-    """The rows of ``raw`` (columns ``names``) whose every value is finite, as a matrix."""
-    A = np.column_stack([raw[n] for n in names])
-    return A[np.all(np.isfinite(A), axis=1)]
-
-
 class _Refitter:
     """Third pass: an exact re-fit of a candidate, for the false alarms it adds and its held-out gain.
 
@@ -289,7 +305,15 @@ class _Refitter:
         self.base_conf = scored.confusion()
         labels = session.labels
         self.rate = flagged_rate(scored.log_density, session.model.threshold, labels) if labels is not None else 0.0
-        self.fast = AddedFeatureRefit.prepare(session)
+        self.fast = AddedFeatureRefit.prepare(session, progress=_stage(progress, "preparing the re-fits", 0.4, 0.4))
+
+    def refit_many(self, cands: list) -> None:
+        """:meth:`refit` each, their training columns and cross-covariances computed together."""
+        if self.fast is not None:
+            self.fast.prefetch([c.parsed or c.expression for c in cands],
+                               progress=_stage(self.progress, "preparing the re-fits", 0.4, 0.4))
+        for c in cands:
+            self.refit(c)
 
     def refit(self, c) -> None:
         if id(c) in self.attempted:
@@ -316,97 +340,11 @@ class _Refitter:
                                    false_alarm_rate=self.rate, k=DEFAULT_FOLDS, seed=DEFAULT_SEED)
 
 
-class Refitted(NamedTuple):
-    """The cases after a re-fit with one candidate added."""
-
-    threshold: float
-    flagged: np.ndarray
-    confusion: object
-    log_density: np.ndarray
-
-
-class AddedFeatureRefit:
-    """Exact re-fit with one added derived feature, without re-fitting the rest.
-
-    A re-fit with one more column changes nothing about the other columns'
-    maximum-likelihood estimates as long as the same rows are used
-    (:func:`afterlook.core.gaussian.added_column`). The threshold is then
-    re-picked by the model's policy on the re-scored cases, exactly as
-    :func:`afterlook.analysis.trial.try_features` does. Used when the fit is
-    classical or has a fixed shrinkage (not robust, no Ledoit-Wolf, whose
-    intensity depends on all columns) and the candidate is finite on every
-    training row the fit uses; otherwise :meth:`evaluate` returns None and
-    the caller re-fits in full. A test checks it against the full re-fit.
-    """
-
-    def __init__(self, model: Model, X, raw_train, case_features, case_raw, labels, base: GaussianModel):
-        self.model, self.X, self.raw_train = model, X, raw_train
-        self.case_features, self.case_raw, self.labels, self.base = case_features, case_raw, labels, base
-        # log p(x) of the current features, reused: with one added column y,
-        # log p(x, y) = log p(x) + log N(y; E[y | x], var(y | x)) exactly.
-        # the session's scores already carry the model's undefined-value policy (-inf outside a domain)
-        self.case_ld = model.with_undefined_policy(base.log_density(case_features), case_raw)
-        self.train_ld = base.log_density(X) if model.policy.kind == "rate" else None
-        self.precision = base.precision() if base.kind == "full" else None
-
-    @classmethod
-    def prepare(cls, session: Session):
-        """The re-fit for the session's model and cases, or None when the fast path does not apply."""
-        model = session.model
-        d = model.density
-        if d.robust or d.shrinkage == "ledoit-wolf" or session.labels is None:
-            return None
-        fm = model.recipe.transform_features(session.raw_features("normal"))
-        keep = fm.finite_rows
-        X = fm.values[keep]
-        if X.shape[0] < 2:
-            return None
-        try:
-            base = GaussianModel(kind=d.kind, shrinkage=d.shrinkage).fit(X, fm.names)
-        except AfterlookError:
-            return None
-        raw_train = {k: v[keep] for k, v in session.scope("normal").items()}
-        return cls(model, X, raw_train, session.scored.features, session.scope("cases"), session.labels, base)
-
-    def evaluate(self, expression):
-        """:class:`Refitted` cases after adding ``expression`` (text or parsed), or None."""
-        try:
-            expr = expression if isinstance(expression, expressions.Expression) else expressions.parse(expression)
-            if not expr.is_fitted:  # frozen on the normal rows it is re-fitted on, never on the cases
-                expr = expr.fit(self.raw_train)
-            y = expr.evaluate(self.raw_train)
-            y_cases = expr.evaluate(self.case_raw)
-        except AfterlookError:
-            return None
-        if not np.all(np.isfinite(y)):
-            return None  # a full re-fit would drop rows: parameters of every column change
-        base = self.base
-        if base.kind == "full" and base.shrinkage_:
-            new = with_added_column(base, self.X, y, "candidate")
-            if new is None:
-                return None
-            ld = new.log_density(np.column_stack([self.case_features, y_cases]))
-            ld = np.where(np.isneginf(self.case_ld), -np.inf, ld)
-            train_ld = new.log_density(np.column_stack([self.X, y])) if self.train_ld is not None else None
-        else:
-            column = added_column(base, self.X, y, precision=self.precision)
-            if column is None:
-                return None  # the full re-fit refuses a constant or collinear column too
-            with np.errstate(invalid="ignore"):
-                cond = column.conditional_log_density(self.case_features, y_cases)
-                ld = np.where(np.isneginf(self.case_ld), -np.inf, self.case_ld + cond)
-            ld[np.isnan(ld) | np.isposinf(ld)] = np.nan
-            train_ld = None if self.train_ld is None else self.train_ld + column.conditional_log_density(self.X, y)
-        if self.model.undefined == "flag":
-            # the candidate undefined on a case whose readings are finite: outside its domain, flagged
-            readings_ok = np.all(np.column_stack([np.isfinite(self.case_raw[c]) for c in expr.columns]), axis=1) \
-                if expr.columns else np.ones(len(ld), bool)
-            ld = np.where(np.isnan(ld) & ~np.isfinite(y_cases) & readings_ok & ~np.isnan(self.case_ld), -np.inf, ld)
-        threshold = choose_threshold(self.model.policy, case_log_density=ld, case_is_anomaly=self.labels,
-                                     normal_log_density=train_ld)
-        flagged = flag(ld, threshold)
-        return Refitted(threshold, flagged, confusion(flagged, self.labels), ld)
-
+def _stage(progress, stage: str, start: float, end: float):
+    """A progress callback for one stage (fraction 0..1 of it), or None."""
+    if progress is None:
+        return None
+    return lambda done: progress(stage, start + (end - start) * done)
 
 
 #: Shaping choices already made in this process, by column name and a digest of its values:
@@ -417,29 +355,40 @@ _SHAPING_CACHE_SIZE = 4096
 
 
 def _shaping_expressions(model: Model, sample: dict, progress=None) -> dict[str, str]:
-    """Expression text of a shaping transform per column (the recipe's own, else a search)."""
+    """Expression text of a shaping transform per column (the recipe's own, else a search).
+
+    The search is :func:`afterlook.core.shaping_fast.chosen_transforms`: the choices of
+    :func:`afterlook.core.shaping.chosen_transform`, for all columns at once in numpy.
+    """
     out = {}
     for name, t in model.recipe.transforms.items():
         if t.kind == "expression":
             out[name] = t.expression
-    from ..core import shaping
+    from ..core import shaping_fast
 
-    for k, (name, values) in enumerate(sample.items()):
-        _report(progress, f"shaping columns {k + 1}/{len(sample)}", 0.05 + 0.1 * k / max(len(sample), 1))
-        if name in out:
-            continue
-        key = (name, _digest(values))
-        if key not in _SHAPING_CACHE:
+    _report(progress, "shaping columns", 0.1)
+    keys = {name: (name, _digest(values)) for name, values in sample.items() if name not in out}
+    todo = [name for name, key in keys.items() if key not in _SHAPING_CACHE]
+    if todo:
+        _report(progress, "shaping columns", 0.12)
+        try:
+            chosen = shaping_fast.chosen_transforms({name: sample[name] for name in todo},
+                                                    progress=_stage(progress, "shaping columns", 0.12, 0.15))
+        except (AfterlookError, TypeError):
+            chosen = dict.fromkeys(todo)
+        for name in todo:
             try:
-                text = _as_expression(shaping.chosen_transform(values, name=name), name)
+                text = _as_expression(chosen[name], name)
             except (AfterlookError, TypeError):
                 text = None
             if len(_SHAPING_CACHE) >= _SHAPING_CACHE_SIZE:
                 _SHAPING_CACHE.pop(next(iter(_SHAPING_CACHE)))
-            _SHAPING_CACHE[key] = text
+            _SHAPING_CACHE[keys[name]] = text
+    for name, key in keys.items():
         text = _SHAPING_CACHE[key]
         if text:
             out[name] = text
+    _report(progress, "shaping columns", 0.15)
     return out
 
 

@@ -104,18 +104,31 @@ def difference_and_product_groups(m: Moments, groups: list) -> None:
          T[:, iu] * T[:, ju], lambda k, iu=iu, ju=ju: f"{q[iu[k]]} * {q[ju[k]]}")
 
 
-def ratio_groups(m: Moments, groups: list) -> None:
-    """Ratios and log ratios (both columns positive) and square ratios (a positive divisor)."""
+def ratio_groups(m: Moments, groups: list, tick=None) -> None:
+    """Ratios and log ratios (both columns positive) and square ratios (a positive divisor).
+
+    ``tick``: optional callable, called between the matrix products (the place a
+    stale search can be stopped; each is a few d x d products over the sample).
+    """
+    tick = tick or (lambda: None)
     q, iu, ju, T, positive, scale, As = m.quoted, m.iu, m.ju, m.T, m.positive, m.scale, m.As
     n = m.A.shape[0]
     P = np.flatnonzero(positive)
     if not len(P):
         return
-    inv = 1.0 / As[:, P]
+    # At most three n x d matrices besides the sample at any time (a wide table's peak memory):
+    # squares are taken in place, and each matrix is dropped as soon as its products are done.
+    every = len(P) == As.shape[1]
+    inv = 1.0 / (As if every else As[:, P])
     pos_index = {c: k for k, c in enumerate(P)}
     A2s = As**2
     S1 = A2s.T @ inv / n  # E[a^2 / b] (scaled), every numerator, positive divisors
-    S2 = (A2s**2).T @ (inv**2) / n  # E[a^4 / b^2]
+    tick()
+    np.multiply(A2s, A2s, out=A2s)  # a^4 (scaled)
+    inv2 = inv * inv
+    S2 = A2s.T @ inv2 / n  # E[a^4 / b^2]
+    del A2s
+    tick()
     for a_, b_ in ((iu, ju), (ju, iu)):
         keep_sq = positive[b_]
         x_, y_ = a_[keep_sq], b_[keep_sq]
@@ -128,17 +141,22 @@ def ratio_groups(m: Moments, groups: list) -> None:
     pi, pj = iu[pmask], ju[pmask]
     if not len(pi):
         return
-    Ap = As[:, P]
+    Ap = As if every else As[:, P]
     a_idx = np.array([pos_index[x] for x in pi])
     b_idx = np.array([pos_index[x] for x in pj])
     M1 = Ap.T @ inv / n  # E[a / b] (scaled)
-    M2 = (Ap**2).T @ (inv**2) / n  # E[(a / b)^2]
+    del inv
+    tick()
+    Ap2 = Ap * Ap
+    M2 = Ap2.T @ inv2 / n  # E[(a / b)^2]
+    del Ap2, inv2
+    tick()
     sc = scale[P]
     for a_, b_, ia, ib in ((pi, pj, a_idx, b_idx), (pj, pi, b_idx, a_idx)):
         f = sc[ia] / sc[ib]
         _add(groups, "ratio", a_, b_, M1[ia, ib] * f, (M2[ia, ib] - M1[ia, ib] ** 2) * f**2,
              T[:, a_] / T[:, b_], lambda k, a_=a_, b_=b_: f"{q[a_[k]]} / {q[b_[k]]}")
-    L = np.log(m.A[:, P])
+    L = np.log(m.A if every else m.A[:, P])
     Lmu = L.mean(axis=0)
     LC = np.cov(L, rowvar=False, bias=True) if len(P) > 1 else np.zeros((1, 1))
     LT = np.log(T[:, P])
@@ -161,25 +179,34 @@ def shaped_groups(m: Moments, sample, shaped: Mapping[str, str], groups: list) -
         tv = expr.evaluate({x: T[:, names.index(x)]})
         if np.all(np.isfinite(v)) and np.all(np.isfinite(tv)) and v.std() > 0:
             sh_cols[x], sh_t[x] = v, tv
-    texts, ii, jj, means, vars_, tg = [], [], [], [], [], []
-    cols = {x: (sh_cols[x] if x in sh_cols else A[:, names.index(x)]) for x in names}
-    tcols = {x: (sh_t[x] if x in sh_t else T[:, names.index(x)]) for x in names}
-    for a, b in zip(m.iu, m.ju):
-        na, nb = names[a], names[b]
-        if na not in sh_cols and nb not in sh_cols:
-            continue
-        va, vb = cols[na], cols[nb]
-        ma, sa, mb, sb = va.mean(), va.std(), vb.mean(), vb.std()
-        rr = float(np.mean((va - ma) * (vb - mb)) / (sa * sb))
-        s = -1.0 if rr >= 0 else 1.0
+    is_shaped = np.array([x in sh_cols for x in names])
+    pick = is_shaped[m.iu] | is_shaped[m.ju]
+    if not pick.any():
+        return
+    ii, jj = m.iu[pick], m.ju[pick]
+    # means and sds column by column, as the texts print them; correlations from one product
+    W = np.empty(A.shape, order="F")
+    Wt = np.array(T, dtype=np.float64, copy=True)
+    for k, x in enumerate(names):
+        if x in sh_cols:
+            W[:, k], Wt[:, k] = sh_cols[x], sh_t[x]
+        else:
+            W[:, k] = A[:, k]
+    mw = np.array([W[:, k].mean() for k in range(W.shape[1])])
+    sw = np.array([W[:, k].std() for k in range(W.shape[1])])
+    Wc = W - mw
+    with np.errstate(invalid="ignore", divide="ignore"):
+        Rw = (Wc.T @ Wc / W.shape[0]) / np.outer(sw, sw)
+    del W, Wc
+    rr = Rw[ii, jj]
+    s = np.where(rr >= 0, -1.0, 1.0)
+    Zt = (Wt - mw) / sw
+
+    def text(k: int) -> str:  # z-scores frozen on this normal sample when the candidate is evaluated
+        na, nb = names[ii[k]], names[jj[k]]
         ea = standardized_text(na, shaped[na] if na in sh_cols else None)
         eb = standardized_text(nb, shaped[nb] if nb in sh_cols else None)
-        texts.append(f"{ea} {'-' if s < 0 else '+'} {eb}")  # z-scores frozen on this normal sample
-        ii.append(a)
-        jj.append(b)
-        means.append(0.0)
-        vars_.append(2.0 - 2.0 * abs(rr))
-        tg.append((tcols[na] - ma) / sa + s * (tcols[nb] - mb) / sb)
-    if ii:
-        _add(groups, "shaped_difference", np.array(ii), np.array(jj), np.array(means), np.array(vars_),
-             np.column_stack(tg), texts)
+        return f"{ea} {'-' if s[k] < 0 else '+'} {eb}"
+
+    _add(groups, "shaped_difference", ii, jj, np.zeros(len(ii)), 2.0 - 2.0 * np.abs(rr),
+         Zt[:, ii] + s * Zt[:, jj], text)

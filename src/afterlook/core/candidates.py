@@ -84,6 +84,7 @@ from .errors import AfterlookError
 from .candidate_pairs import difference_and_product_groups, moments, ratio_groups, shaped_groups
 from .numbers import finite_or_none
 from .tails import (  # noqa: F401 - part of this module's interface
+    Deviations,
     MAD_TO_SD,
     MIN_EXCESSES,
     MIN_TAIL_COUNT,
@@ -282,6 +283,7 @@ def generate_and_screen(
     shaped: Mapping[str, str] | None = None,
     settings: Settings = Settings(),
     select: bool = False,
+    progress=None,
 ) -> tuple[list[Candidate], int, np.ndarray]:
     """Generate every candidate and compute its first-pass z from moments.
 
@@ -294,17 +296,24 @@ def generate_and_screen(
     select : return only the candidates the second pass will look at (the best
         ``second_pass`` by first-pass z plus the correlated reserve); ``n_tried``
         still counts every candidate generated
+    progress : optional callable(fraction done), called between groups (a stale
+        search is stopped by raising from it)
 
     Returns
     -------
     (candidates, n_tried, correlation matrix)
     """
+    report = progress or (lambda fraction: None)
     m = moments(names, sample, targets)
     groups: list = []
+    report(0.1)
     difference_and_product_groups(m, groups)
-    ratio_groups(m, groups)
+    report(0.2)
+    ratio_groups(m, groups, tick=lambda: report(0.4))
+    report(0.6)
     if shaped:
         shaped_groups(m, sample, shaped, groups)
+    report(0.8)
     return _first_pass(m, groups, settings, select)
 
 
@@ -323,7 +332,7 @@ def _first_pass(m, groups: list, settings: Settings, select: bool) -> tuple[list
     if not zs:
         return [], 0, R
     z_all, g_all, k_all = np.concatenate(zs), np.concatenate(gid), np.concatenate(kid)
-    r_all = np.array([R[groups[g].i[k], groups[g].j[k]] for g, k in zip(g_all, k_all)]) if len(z_all) else np.zeros(0)
+    r_all = np.concatenate([R[g.i, g.j] for g in groups])
     n_tried = int(len(z_all))
     keep = _select(z_all, r_all, settings) if select else np.arange(n_tried)
     candidates = []
@@ -355,11 +364,13 @@ def second_pass(
     other_anomalies: Mapping[str, np.ndarray] | None,
     other_is_miss: np.ndarray | None,
     settings: Settings = Settings(),
+    progress=None,
 ) -> list[Candidate]:
     """Exact robust statistics for the best candidates of the moment pass.
 
     ``targets`` and ``other_anomalies`` map column name -> raw values of the
-    target misses and of the other labelled anomalies.
+    target misses and of the other labelled anomalies. ``progress`` (optional
+    callable(fraction done)) is called every 8 candidates.
     """
     scored = [c for c in candidates if np.isfinite(c.first_pass_z)]
     scored.sort(key=lambda c: -c.first_pass_z)
@@ -368,7 +379,9 @@ def second_pass(
     reserve = [c for c in scored if abs(c.r) >= settings.min_correlation and c.expression not in seen]
     chosen += reserve[: settings.correlated_reserve]
     out = []
-    for c in chosen:
+    for index, c in enumerate(chosen):
+        if progress is not None and index % 8 == 0:
+            progress(index / len(chosen))
         # zscore(...) in a candidate is frozen on the normal sample the screen used (never on the targets)
         expr = c.parsed = expressions.parse(c.expression).fit(sample)
         v = expr.evaluate(sample)
@@ -378,8 +391,11 @@ def second_pass(
         tv = expr.evaluate(targets)
         if not np.all(np.isfinite(tv)):
             continue
-        zs = robust_z(v, tv)
-        tails = [tail_probability(v, float(t)) for t in tv]
+        spread = Deviations(v)
+        if other_anomalies is not None and other_is_miss is not None and len(other_is_miss):
+            spread.prepare(1.0 - settings.alarm_rate)  # the alarm quantile and the MAD from one partition
+        zs = spread.robust_z(tv)
+        tails = [spread.tail(float(t)) for t in tv]
         guard = chance_verdict(np.array([t[0] for t in tails]), n_tried)
         best = int(np.argmin([t[0] for t in tails]))
         c.case_z_by_case = {cid: float(z) for cid, z in zip(target_ids, zs)}
@@ -392,8 +408,8 @@ def second_pass(
         c.beyond_chance = guard.beyond_chance(settings.chance_level)
         if other_anomalies is not None and other_is_miss is not None and len(other_is_miss):
             ov = expr.evaluate(other_anomalies)
-            med = np.median(v)
-            cut = np.quantile(np.abs(v - med), 1.0 - settings.alarm_rate)
+            med = spread.median
+            cut = spread.quantile(1.0 - settings.alarm_rate)
             sep = np.isfinite(ov) & (np.abs(ov - med) > cut)
             c.other_anomalies = int(len(ov))
             c.other_anomalies_separated = int(sep.sum())

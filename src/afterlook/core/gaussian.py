@@ -453,12 +453,13 @@ class AddedColumn:
 
 
 def added_column(model: "GaussianModel", X: np.ndarray, y: np.ndarray, *,
-                 precision: np.ndarray | None = None) -> AddedColumn | None:
+                 precision: np.ndarray | None = None, cross: np.ndarray | None = None) -> AddedColumn | None:
     """The conditional Gaussian of a column ``y`` added to ``model``, fitted on the rows ``X``.
 
     ``model`` must be the classical (not robust, not shrunk) maximum-
     likelihood fit on ``X``; ``precision`` may pass ``model.precision()``
-    when it is reused for many columns. Returns None when ``y`` is constant
+    when it is reused for many columns, ``cross`` ``(X - X.mean(axis=0))^T (y - y.mean()) / n``
+    when computed beforehand for many columns. Returns None when ``y`` is constant
     or (full model) collinear with the fitted columns: a full re-fit would
     refuse the singular covariance.
     """
@@ -470,8 +471,7 @@ def added_column(model: "GaussianModel", X: np.ndarray, y: np.ndarray, *,
         return None
     if model.kind == "independent":
         return AddedColumn(my, vy, None, model.mean_)
-    Xc = X - X.mean(axis=0)
-    cxy = Xc.T @ yc / n
+    cxy = (X - X.mean(axis=0)).T @ yc / n if cross is None else cross
     P = model.precision() if precision is None else precision
     beta = P @ cxy
     s2 = vy - float(cxy @ beta)

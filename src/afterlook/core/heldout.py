@@ -6,9 +6,9 @@ fitted to those cases). Here the threshold is picked by the model's policy on
 part of the cases and the metrics are counted on the rest:
 
 * **stratified K-fold** (default): the labelled cases are split into ``k``
-  folds with the same share of anomalies (scikit-learn's
-  ``StratifiedKFold``, shuffled with a fixed seed); for each fold the
-  threshold is picked on the other ``k - 1`` folds and applied to this one;
+  folds with the same share of anomalies (the folds of scikit-learn's
+  ``StratifiedKFold``, shuffled with a fixed seed, computed in numpy so a
+  search never imports scikit-learn); for each fold the threshold is picked on the other ``k - 1`` folds and applied to this one;
   the confusion counts of the ``k`` held-out folds are summed and F1 is
   computed from the sums (pooling, as recommended for small positive classes
   by Forman and Scholz, SIGKDD Explorations 12(1), 2010, 49-57, cited from
@@ -35,6 +35,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass, field
+from fractions import Fraction
 
 import numpy as np
 
@@ -85,10 +86,8 @@ class HeldOut:
     @property
     def change_tail(self) -> float:
         """Exact one-sided McNemar tail of ``improved`` vs ``worsened`` (1.0 when no call changed)."""
-        from scipy.stats import binom
-
         n = self.improved + self.worsened
-        return 1.0 if n == 0 or self.improved == 0 else float(binom.sf(self.improved - 1, n, 0.5))
+        return 1.0 if n == 0 or self.improved == 0 else half_binomial_upper_tail(self.improved, n)
 
     @property
     def holds(self) -> bool:
@@ -116,20 +115,49 @@ class HeldOut:
 def stratified_folds(is_anomaly: np.ndarray, k: int = DEFAULT_FOLDS, seed: int = DEFAULT_SEED) -> np.ndarray:
     """Fold number (0..k'-1) of every case; ``k' = min(k, smaller class size)``.
 
+    The folds of scikit-learn's ``StratifiedKFold(k', shuffle=True,
+    random_state=seed)`` (a test checks they are identical), computed here in
+    numpy so that a search does not import scikit-learn: each class's cases,
+    in table order, get fold numbers dealt round-robin over the sorted labels
+    (so every fold holds the same share of each class, give or take one),
+    shuffled within the class by ``numpy.random.RandomState(seed)``.
+
     Raises :class:`AfterlookError` when either class has fewer than two cases
     (nothing can be held out then).
     """
-    from sklearn.model_selection import StratifiedKFold
-
     y = np.asarray(is_anomaly, dtype=bool)
     smaller = int(min(y.sum(), (~y).sum()))
     if smaller < 2:
         raise AfterlookError("a held-out estimate needs at least two labelled anomalies and two labelled normal cases")
     splits = min(int(k), smaller)
+    rng = np.random.RandomState(seed)
+    # classes numbered by first appearance, as scikit-learn encodes them
+    first_is_anomaly = bool(y[0])
+    encoded = (y != first_is_anomaly).astype(np.int64)
+    order = np.sort(encoded)
+    allocation = np.array([np.bincount(order[i::splits], minlength=2) for i in range(splits)])
     folds = np.empty(y.size, dtype=np.int64)
-    for f, (_, test) in enumerate(StratifiedKFold(splits, shuffle=True, random_state=seed).split(np.zeros(y.size), y)):
-        folds[test] = f
+    for c in range(2):
+        for_class = np.arange(splits).repeat(allocation[:, c])
+        rng.shuffle(for_class)
+        folds[encoded == c] = for_class
     return folds
+
+
+def half_binomial_upper_tail(count: int, n: int) -> float:
+    """``P(X >= count)`` for ``X ~ Binomial(n, 1/2)`` (``scipy.stats.binom.sf(count - 1, n, 0.5)``).
+
+    Exact in integers up to n = 2000; beyond, a sum in log space (relative error ~1e-12).
+    """
+    if count <= 0:
+        return 1.0
+    if count > n:
+        return 0.0
+    if n <= 2000:
+        return float(Fraction(sum(math.comb(n, j) for j in range(count, n + 1)), 2**n))
+    logs = np.array([math.lgamma(n + 1) - math.lgamma(j + 1) - math.lgamma(n - j + 1) for j in range(count, n + 1)])
+    top = logs.max()
+    return float(min(1.0, math.exp(top - n * math.log(2.0)) * np.exp(logs - top).sum()))
 
 
 def _counts(c: Confusion) -> np.ndarray:

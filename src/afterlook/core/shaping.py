@@ -77,7 +77,6 @@ import warnings
 from typing import Iterable, Mapping, Sequence
 
 import numpy as np
-from scipy import stats
 
 from .errors import AfterlookError
 from .numbers import sample_rows
@@ -204,14 +203,22 @@ def _power_text(col: str, p: float) -> str:
 
 def _expression_candidates(name: str, x_min: float, spread: float, is_count: bool) -> list[tuple[str, int]]:
     """(text, complexity) of the log and power candidates valid on the whole column."""
+    return [(text, complexity) for text, complexity, _, _ in candidate_specs(name, x_min, spread, is_count)]
+
+
+def candidate_specs(name: str, x_min: float, spread: float,
+                    is_count: bool) -> list[tuple[str, int, str, float]]:
+    """(text, complexity, family, parameter) of the log and power candidates valid on the whole column:
+    family "log" with the shift ``c`` of ``log(x + c)``, or "power" with ``p`` of ``x ** p``
+    (what :mod:`afterlook.core.shaping_fast` computes without the expression engine)."""
     col = quote_name(name)
-    out: list[tuple[str, int]] = []
+    out: list[tuple[str, int, str, float]] = []
     for c, c_text in shift_grid(x_min, spread, is_count):
         simple = c == 0 or (is_count and c == 1)
-        out.append((_log_text(col, c, c_text), 1 if simple else 2))
+        out.append((_log_text(col, c, c_text), 1 if simple else 2, "log", c))
     for p in POWERS:
         if (p < 0 and x_min > 0) or (p > 0 and x_min >= 0):
-            out.append((_power_text(col, p), 1))
+            out.append((_power_text(col, p), 1, "power", p))
     return out
 
 
@@ -362,6 +369,8 @@ def _score(after: np.ndarray, sample: np.ndarray, statistic: str) -> float | Non
 
 def _fitted_powers(sample: np.ndarray, x_min: float) -> list[tuple[str, int]]:
     """Box-Cox (positive columns) and Yeo-Johnson with their maximum-likelihood lambdas on the sample."""
+    from scipy import stats  # here, not at the top: scipy.stats costs ~0.6 s to import
+
     kinds = (["boxcox"] if x_min > 0 else []) + ["yeojohnson"]
     out = []
     for kind in kinds:
@@ -400,24 +409,36 @@ def _try_transforms(name: str, x_all: np.ndarray, sample: np.ndarray, statistic:
 def _choose(tried: list[TransformTried], sample: np.ndarray, statistic: str) -> tuple[TransformTried, str]:
     """The selection rule of the module docstring: the simplest near-best, unless the gain is not clear."""
     identity = tried[0]
-    best = min(tried, key=lambda c: c.statistic)
     critical = _CRITICAL_5PCT[statistic]
-    tie = max(TIE_REL * best.statistic, TIE_FLOOR_FRACTION * critical)
-    near = [c for c in tried if c.statistic <= best.statistic + tie]
-    choice = min(near, key=lambda c: (c.complexity, c.statistic))
+    choice = rule_choice(tried, critical)
     skew_before = _skew(sample)
     if _near_gaussian(sample):
         return identity, "near-Gaussian: left alone"
-    if choice.transform is not None and (
-        identity.statistic - choice.statistic < max(CLEAR_GAIN * identity.statistic, critical)
-    ):
-        return identity, "no clear gain: left alone"
     if choice.transform is None:
         return choice, "no clear gain: left alone"
     side = "right-skewed" if skew_before > 0 else "left-skewed"
     if abs(skew_before) < SYMMETRIC_SKEW:
         side = "tails not Gaussian"
     return choice, f"{side}: transformed"
+
+
+def near_best(tried: list[TransformTried], critical: float) -> list[TransformTried]:
+    """Rule 3's near-ties: the candidates within the tie width of the best statistic."""
+    best = min(tried, key=lambda c: c.statistic)
+    tie = max(TIE_REL * best.statistic, TIE_FLOOR_FRACTION * critical)
+    return [c for c in tried if c.statistic <= best.statistic + tie]
+
+
+def rule_choice(tried: list[TransformTried], critical: float) -> TransformTried:
+    """Rules 3 and 4 for a column that is not near-Gaussian: the simplest near-best candidate if it beats
+    the identity (``tried[0]``) by a clear margin, else the identity (shared with the fast path)."""
+    identity = tried[0]
+    choice = min(near_best(tried, critical), key=lambda c: (c.complexity, c.statistic))
+    if choice.transform is not None and (
+        identity.statistic - choice.statistic < max(CLEAR_GAIN * identity.statistic, critical)
+    ):
+        return identity
+    return choice
 
 
 def shape_columns(

@@ -19,8 +19,8 @@ MIN_TAIL_COUNT = 1  # any normal row as extreme as the target: no extrapolation
 TAIL_FRACTION = 0.05  # share of rows in the generalized Pareto tail fit
 MIN_EXCESSES = 50  # at least this many excesses in the tail fit
 
-__all__ = ["gpd_pwm", "gpd_tail", "tail_probability", "robust_z", "MAD_TO_SD", "MIN_TAIL_COUNT", "TAIL_FRACTION",
-           "MIN_EXCESSES"]
+__all__ = ["gpd_pwm", "gpd_tail", "tail_probability", "robust_z", "Deviations", "MAD_TO_SD", "MIN_TAIL_COUNT",
+           "TAIL_FRACTION", "MIN_EXCESSES"]
 
 
 def gpd_pwm(excess: np.ndarray) -> tuple[float, float]:
@@ -85,6 +85,69 @@ def tail_probability(values: np.ndarray, target: float) -> tuple[float, str, int
     if count >= MIN_TAIL_COUNT:
         return (count + 1) / (n + 1), "empirical", count
     return gpd_tail(dev, t), "pareto tail", count
+
+
+class Deviations:
+    """The median of normal ``values`` and their absolute deviations from it, computed once for many questions.
+
+    :meth:`robust_z`, :meth:`tail` and :meth:`quantile` give exactly what
+    :func:`robust_z`, :func:`tail_probability` and ``np.quantile(|v - med|, q)``
+    give on the same values (a test checks it), without a median per question.
+    """
+
+    def __init__(self, values: np.ndarray):
+        self.values = values
+        self.median = np.median(values)
+        self.dev = np.abs(values - self.median)
+        self._stats: dict = {}
+
+    def _order_statistics(self, q: float | None) -> None:
+        """The median of the deviations and (with ``q``) their q-quantile, from one ``np.partition``:
+        numpy's own rules (the mean of the two middle values; linear interpolation between the order
+        statistics around ``(n - 1) q``, written as numpy's ``_lerp``)."""
+        dev, n = self.dev, self.dev.size
+        mid = [n // 2 - 1, n // 2] if n % 2 == 0 else [(n - 1) // 2]
+        kth = set(mid)
+        if q is not None:
+            v = (n - 1) * float(q)
+            lo = n - 1 if v >= n - 1 else int(math.floor(v))
+            hi = n - 1 if v >= n - 1 else lo + 1
+            kth |= {lo, hi}
+        part = np.partition(dev, sorted(kth))
+        self._stats["mad"] = (part[mid[0]] + part[mid[1]]) / 2.0 if len(mid) == 2 else part[mid[0]]
+        if q is not None:
+            a, b, g = part[lo], part[hi], v - math.floor(v)
+            diff = b - a
+            self._stats[q] = b - diff * (1 - g) if g >= 0.5 else a + diff * g
+
+    def prepare(self, q: float) -> "Deviations":
+        """Compute the median deviation and the ``q``-quantile together (both are asked for)."""
+        if q not in self._stats:
+            self._order_statistics(q)
+        return self
+
+    def robust_z(self, target: np.ndarray | float) -> np.ndarray:
+        if "mad" not in self._stats:
+            self._order_statistics(None)
+        mad = MAD_TO_SD * self._stats["mad"]
+        if not mad > 0:
+            mad = self.values.std()
+        if not mad > 0:
+            return np.full(np.shape(target), np.nan)
+        return (np.asarray(target) - self.median) / mad
+
+    def tail(self, target: float) -> tuple[float, str, int]:
+        t = abs(target - self.median)
+        count = int(np.count_nonzero(self.dev >= t))
+        n = self.values.size
+        if count >= MIN_TAIL_COUNT:
+            return (count + 1) / (n + 1), "empirical", count
+        return gpd_tail(self.dev, t), "pareto tail", count
+
+    def quantile(self, q: float) -> float:
+        if q not in self._stats:
+            self._order_statistics(q)
+        return self._stats[q]
 
 
 def robust_z(values: np.ndarray, target: np.ndarray | float) -> np.ndarray:
