@@ -86,3 +86,14 @@ def test_core_source_never_imports_pandas_or_ui_even_lazily(path):
     # Static check: also covers imports inside functions, which the
     # subprocess check above only sees when the function runs.
     assert not _imported_roots(path) & set(FORBIDDEN_IN_CORE)
+
+
+def test_the_named_power_transforms_load_no_scipy():
+    """boxcox(x, p) and yeojohnson(x, p) are evaluated in numpy: a candidate search that writes them must not
+    pay scipy.special's or scipy.stats' import (tests/reference/test_frozen_reference.py checks their numbers
+    against scipy)."""
+    code = ("import sys; from afterlook.core.frozen import apply_named; "
+            "apply_named('boxcox', [0.5, 2.0], -0.05); apply_named('yeojohnson', [1.0, -2.0], 0.5); "
+            "print([m for m in ('scipy.special', 'scipy.stats') if m in sys.modules])")
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True).stdout
+    assert out.strip() == "[]"
