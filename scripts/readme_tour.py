@@ -231,6 +231,41 @@ def run_readme(readme: str, folder: Path, *, write: bool = False) -> tuple[list[
     return problems, "\n".join(lines)
 
 
+def help_examples(help_text: str) -> list[str]:
+    """The commands of ``afterlook --help``'s examples ("  afterlook ..." lines, a trailing backslash
+    continuing one), except ``review``: the workbench needs a terminal, and its line says so."""
+    out, pending = [], None
+    for line in help_text.splitlines():
+        if pending is not None:
+            pending += "\n" + line
+            if not line.rstrip().endswith("\\"):
+                out.append(pending)
+                pending = None
+            continue
+        if line.startswith("  afterlook "):
+            text = line.strip()
+            if text.endswith("\\"):
+                pending = text
+            else:
+                out.append(text)
+    return [c for c in out if not c.split()[1] == "review"]
+
+
+def run_help_examples(folder: Path) -> list[str]:
+    """Run the --help examples in order in ``folder``; the problems (a non-zero exit), if any."""
+    env = environment()
+    code, lines = run("afterlook --help", folder, env)
+    problems = [] if code == 0 else [f"afterlook --help exited {code}"]
+    commands = help_examples("\n".join(lines))
+    if not commands:
+        problems.append("afterlook --help shows no examples")
+    for command in commands:
+        code, output = run(command, folder, env)
+        if code != 0:
+            problems.append(f"--help example `{command.splitlines()[0]}` exited {code}: {' | '.join(output[-3:])}")
+    return problems
+
+
 def main(argv=None) -> int:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     group = ap.add_mutually_exclusive_group(required=True)

@@ -50,3 +50,10 @@ def test_the_comparison_tolerates_only_the_last_digit(want, got, same):
 def test_a_block_without_a_marker_is_reported(tmp_path):
     problems, _ = _tour().run_readme("text\n\n```\n$ afterlook --version\n```\n", tmp_path)
     assert problems and "without a marker" in problems[0]
+
+
+def test_every_help_example_runs_as_written(tmp_path):
+    """The examples of `afterlook --help` run in order in a fresh folder (bash, venv on PATH), each exit 0."""
+    tour = _tour()
+    assert not tour.run_help_examples(tmp_path)
+    assert (tmp_path / "new.json").is_file() and (tmp_path / "book.json").is_file()  # they did their work

@@ -50,12 +50,29 @@ def _add_table_opts(p: argparse.ArgumentParser) -> None:
     p.add_argument("--decimal", choices=(".", ","), help="decimal mark of numbers written as text (',' reads 10,5)")
 
 
+#: The top-level --help's examples, on the invented demo; tests/docs/test_readme_runs.py runs every
+#: line that starts with "  afterlook " in order, in a fresh folder, as a reader would.
+EXAMPLES = """examples (the invented pump-station demo, written to pumps/):
+  afterlook demo --dir pumps --no-tui
+  afterlook misses pumps/model.json pumps/cases.csv
+  afterlook explain pumps/model.json pumps/cases.csv PS-01/2026-05-21T17:00
+  afterlook suggest pumps/model.json pumps/cases.csv PS-01/2026-05-21T17:00 --top 5
+  afterlook try pumps/model.json pumps/cases.csv --derive "ratio=motor_current_a / hydraulic_power" --out new.json
+  afterlook casebook add book.json --model pumps/model.json --cases pumps/cases.csv \\
+      --case PS-01/2026-05-21T17:00 --status explained --derive "ratio=motor_current_a / hydraulic_power"
+  afterlook casebook check book.json --model new.json --cases pumps/cases.csv
+  afterlook review pumps/model.json pumps/cases.csv   (the workbench, in a terminal)"""
+
+
 def build_parser() -> argparse.ArgumentParser:
+    import textwrap
+
     parser = _Parser(
         prog="afterlook",
         description="Find out why real failures scored as normal under a Gaussian anomaly detector, "
         "and which derived or transformed feature would have exposed them.",
-        epilog=CAUTION,
+        epilog=EXAMPLES + "\n\n" + textwrap.fill(CAUTION, 79),
+        formatter_class=argparse.RawDescriptionHelpFormatter,
     )
     parser.add_argument("--version", action="version", version=f"afterlook {_version.__version__}")
     sub = parser.add_subparsers(dest="command", metavar="COMMAND", parser_class=_Parser)
