@@ -73,3 +73,13 @@ def test_no_band_without_the_candidate_and_edges_of_a_block():
     assert np.array_equal(edge, expected)
     full = np.ones((4, 4), bool)
     assert not band_edge(full).any()  # the grid's own border is not an edge
+
+
+def test_density_shares_are_the_log_count_relative_to_the_densest_cell():
+    from afterlook.core.histograms import density_shares
+
+    c = np.array([[0, 1, 9], [99, 0, 3]])
+    expected = np.log1p(c) / np.log(100.0)  # written out: log(1 + c) / log(1 + max)
+    assert np.allclose(density_shares(c), expected, rtol=0, atol=1e-15)
+    assert density_shares(c)[1, 0] == 1.0 and density_shares(c)[0, 0] == 0.0
+    assert not density_shares(np.zeros((2, 2))).any()

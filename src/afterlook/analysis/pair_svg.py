@@ -14,7 +14,7 @@ import math
 import numpy as np
 
 from . import shown
-from ..core.histograms import band_edge
+from ..core.histograms import band_edge, density_shares
 
 __all__ = ["pair_svg"]
 
@@ -60,7 +60,7 @@ def pair_svg(pair: dict, *, label: str = "", width: int = 420, height: int = 220
     title = f"{pair.get('up')} against {pair.get('across')}" + (f" ({label})" if label else "")
     parts = [f'<svg class="pair" width="{width}" height="{height}" viewBox="0 0 {width} {height}" role="img" '
              f'aria-label="{_e(title)}">', f"<title>{_e(title)}</title>"]
-    top_count = normal.max()
+    shares = density_shares(normal)
 
     def cell(col: int, row: int) -> tuple[float, float]:  # top-left corner; row 0 is the lowest y
         return left + col * cw, top + (ny - 1 - row) * ch
@@ -70,7 +70,7 @@ def pair_svg(pair: dict, *, label: str = "", width: int = 420, height: int = 220
             n = normal[row, col]
             if n > 0:
                 x, y = cell(col, row)
-                shade = 0.15 + 0.85 * math.log1p(n) / math.log1p(top_count)
+                shade = 0.15 + 0.85 * shares[row, col]
                 parts.append(f'<rect class="dens" x="{x:.1f}" y="{y:.1f}" width="{cw:.1f}" height="{ch:.1f}" '
                              f'fill-opacity="{shade:.2f}"><title>{int(n)} normal rows</title></rect>')
     in_band = pair.get("in_band")

@@ -44,12 +44,7 @@ def _value(x) -> float | None:
 
 def log_density(x) -> str:
     """A log-density or a threshold: two decimals."""
-    v = _value(x)
-    if v is None:
-        return MISSING
-    if math.isinf(v):
-        return "-inf" if v < 0 else "+inf"
-    return f"{v:.3e}" if abs(v) >= _HUGE else f"{v:.2f}"
+    return _two_decimals(x, "")
 
 
 threshold = log_density
@@ -66,12 +61,17 @@ def z(x) -> str:
 
 
 def _signed(x) -> str:
+    return _two_decimals(x, "+")
+
+
+def _two_decimals(x, sign: str) -> str:
+    """Two decimals (``sign`` "+" to always show the sign); e-notation when huge; -inf/+inf as such."""
     v = _value(x)
     if v is None:
         return MISSING
     if math.isinf(v):
         return "-inf" if v < 0 else "+inf"
-    return f"{v:+.3e}" if abs(v) >= _HUGE else f"{v:+.2f}"
+    return f"{v:{sign}.3e}" if abs(v) >= _HUGE else f"{v:{sign}.2f}"
 
 
 def share_change(x) -> str:

@@ -18,7 +18,7 @@ from ..core.blas import environment_for_new_process, limited_blas
 from ..core.errors import EXIT_BAD_INPUT, EXIT_CHECK_FAILED, EXIT_INTERNAL, EXIT_INTERRUPTED, EXIT_OK, AfterlookError
 from ..store.outputs import check_output
 from .inputs import table_options
-from .output import emit_json, error_line, warn
+from .output import emit_json, error_line, metrics_lines, saved_model_summary, warn
 
 
 class _Parser(argparse.ArgumentParser):
@@ -135,7 +135,6 @@ def build_parser() -> argparse.ArgumentParser:
 
 def cmd_fit(args) -> int:
     from ..analysis import fitting
-    from ..analysis.session import Session
     from ..core.recipe import parse_assignment
     from ..store.tables import load_table
 
@@ -170,26 +169,7 @@ def cmd_fit(args) -> int:
                                          threshold=args.threshold, columns=args.columns, id_col=args.id_col,
                                          label_col=args.label_col, undefined=args.undefined, progress=progress)
     model.save(args.out)
-    quality = None
-    if cases is not None and cases.labels is not None:
-        from ..core.quality import ranking_quality
-
-        scored = Session(model, cases).scored
-        quality = ranking_quality(scored.log_density, cases.labels, model.threshold)
-    warn(model.warnings + (quality.warnings() if quality is not None else []))
-    summary = {
-        "model": args.out,
-        "kind": model.kind,
-        "features": model.features,
-        "threshold": model.threshold,
-        "policy": str(model.policy),
-        "chosen_on": model.threshold_basis,
-        "rows_used": model.training["rows_used"],
-        "fingerprint": model.fingerprint(),
-    }
-    if quality is not None:
-        summary["metrics"] = scored.confusion().to_dict()
-        summary["model_quality"] = quality.to_dict()
+    summary, quality = saved_model_summary(model, args.out, cases, rows_used=model.training["rows_used"])
     if args.json:
         emit_json(summary)
         return EXIT_OK
@@ -198,13 +178,8 @@ def cmd_fit(args) -> int:
     out = render.console()
     out.print(render.model_line(model, args.out))
     out.print(f"fitted on {model.training['rows_used']} normal rows; features: {', '.join(model.features)}")
-    if "metrics" in summary:
-        m = summary["metrics"]
-        out.print(f"on {args.cases}: precision {m['precision']:.3f}, recall {m['recall']:.3f}, F1 {m['f1']:.3f} "
-                  f"(tp {m['tp']}, fp {m['fp']}, fn {m['fn']}, tn {m['tn']})")
-        if quality.roc_auc is not None:
-            out.print(f"ranking on {args.cases}: ROC AUC {quality.roc_auc:.3f}, average precision "
-                      f"{quality.average_precision:.3f} (chance: 0.5 and {quality.anomaly_share:.3f})")
+    for line in metrics_lines(summary, quality, args.cases):
+        out.print(line, markup=False)
     return EXIT_OK
 
 

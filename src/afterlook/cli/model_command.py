@@ -14,7 +14,7 @@ from ..analysis import shown
 from ..core.printable import printable
 from ..store.outputs import check_output
 from .inputs import table_options
-from .output import emit_json, warn
+from .output import emit_json, metrics_lines, saved_model_summary, warn
 
 IMPORT_HELP = ("a model from a Gaussian someone else fitted: mean, covariance (or variances), columns, optional "
                "threshold, derive and transforms, as JSON or .npz (never a pickle)")
@@ -74,24 +74,7 @@ def run_import(args) -> int:
     model = model_from_parameters_document(doc, threshold=policy, cases=cases,
                                            source=f"parameter file {args.params}")
     model.save(args.out)
-    warn(model.warnings)
-    summary = {
-        "model": args.out,
-        "kind": model.kind,
-        "features": model.features,
-        "threshold": model.threshold,
-        "policy": str(model.policy),
-        "chosen_on": model.threshold_basis,
-        "imported_from": model.imported["source"],
-        "fingerprint": model.fingerprint(),
-    }
-    if cases is not None and cases.labels is not None:
-        from ..analysis.session import Session
-        from ..core.quality import ranking_quality
-
-        scored = Session(model, cases).scored
-        summary["metrics"] = scored.confusion().to_dict()
-        summary["model_quality"] = ranking_quality(scored.log_density, cases.labels, model.threshold).to_dict()
+    summary, quality = saved_model_summary(model, args.out, cases, imported_from=model.imported["source"])
     if args.json:
         emit_json(summary)
         return EXIT_OK
@@ -101,11 +84,8 @@ def run_import(args) -> int:
     out.print(render.model_line(model, args.out))
     out.print(printable(f"imported from {args.params}: {len(model.features)} features "
                         f"({', '.join(model.features)}); threshold chosen on {model.threshold_basis}"))
-    if "metrics" in summary:
-        m = summary["metrics"]
-        out.print(printable(f"on {args.cases}: precision {shown.share(m['precision'])}, recall "
-                            f"{shown.share(m['recall'])}, F1 {shown.share(m['f1'])} "
-                            f"(tp {m['tp']}, fp {m['fp']}, fn {m['fn']}, tn {m['tn']})"))
+    for line in metrics_lines(summary, quality, args.cases):
+        out.print(line, markup=False)
     return EXIT_OK
 
 

@@ -298,3 +298,14 @@ def band_edge(in_band: np.ndarray) -> np.ndarray:
     padded = np.pad(b, 1, mode="edge")
     inner = padded[:-2, 1:-1] & padded[2:, 1:-1] & padded[1:-1, :-2] & padded[1:-1, 2:]
     return b & ~inner
+
+
+def density_shares(counts) -> np.ndarray:
+    """Each cell's count on a log scale relative to the densest cell: ``log1p(c) / log1p(max)`` (0 for an
+    empty cell, 1 for the densest). The pair view's shades and the report's opacities both read it, so a
+    sparse tail stays visible next to a dense core."""
+    c = np.asarray(counts, dtype=np.float64)
+    top = c.max() if c.size else 0.0
+    if top <= 0:
+        return np.zeros(c.shape)
+    return np.log1p(np.maximum(c, 0.0)) / np.log1p(top)

@@ -8,8 +8,6 @@ and the case ``◆``, each named in the legend when it appears.
 
 from __future__ import annotations
 
-import math
-
 import numpy as np
 from rich.text import Text
 from textual.app import ComposeResult
@@ -17,7 +15,7 @@ from textual.containers import Vertical
 from textual.widgets import Static
 
 from ...analysis import shown
-from ...core.histograms import PAIR_BAND, band_edge
+from ...core.histograms import PAIR_BAND, band_edge, density_shares
 from .. import format as fmt
 from ..messages import PanelMounted
 
@@ -28,14 +26,9 @@ MIN_ROWS, MIN_COLUMNS = 4, 10
 
 
 def shade_levels(counts: np.ndarray) -> np.ndarray:
-    """0 for an empty cell, else 1..len(SHADES) by the log of its count relative to the densest cell."""
-    c = np.asarray(counts, dtype=np.float64)
-    top = c.max() if c.size else 0.0
-    if top <= 0:
-        return np.zeros(c.shape, dtype=int)
-    with np.errstate(divide="ignore"):
-        frac = np.log1p(c) / math.log1p(top)
-    return np.where(c > 0, np.clip(np.ceil(frac * len(SHADES)), 1, len(SHADES)), 0).astype(int)
+    """0 for an empty cell, else 1..len(SHADES) from :func:`~afterlook.core.histograms.density_shares`."""
+    share = density_shares(counts)
+    return np.where(np.asarray(counts) > 0, np.clip(np.ceil(share * len(SHADES)), 1, len(SHADES)), 0).astype(int)
 
 
 class PairPanel(Vertical):
