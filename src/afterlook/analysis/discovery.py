@@ -159,8 +159,9 @@ def suggest(model, cases, train=None, case_ids=None, top: int = 10, *,
     other_cols = {n: C[other, k] for k, n in enumerate(names)}
     other_is_miss = miss_mask[other] if len(other) else np.zeros(0, bool)
     target_cols = {n: T[:, k] for k, n in enumerate(names)}
+    measure = cand.RobustMeasure(sample, target_cols, target_ids, other_cols, other_is_miss, tried, settings)
     ranked = cand.second_pass(candidates, tried, sample, target_cols, target_ids, other_cols, other_is_miss, settings,
-                              progress=_stage(progress, "exact statistics", 0.3, 0.35))
+                              progress=_stage(progress, "exact statistics", 0.3, 0.35), measure=measure)
     ranked, dropped_collinear = _addable(model, sample, ranked, progress)
     if dropped_collinear:
         warnings.append(f"left out {dropped_collinear} candidate(s) that are linear combinations of the model's "
@@ -171,12 +172,16 @@ def suggest(model, cases, train=None, case_ids=None, top: int = 10, *,
     folds = _folds(session, warnings)
     _report(progress, "preparing the re-fits", 0.4)
     refitter = _Refitter(session, idx, folds, progress, max(exact, 0))
+    ranked = measure.exact_prefix(ranked, max(exact, top))  # what is re-fitted or listed: the whole sample
     refitter.refit_many(ranked[: max(exact, 0)])
     while True:  # the list is ranked by verdict, which needs the re-fit: re-fit what would be listed
         ranked = [c for c in ranked if id(c) not in refitter.failed]
         for c in ranked:
             c.judge()
         ranked.sort(key=lambda c: c.rank_key(settings.min_correlation))
+        if any(c.rows_used != measure.n for c in ranked[:top]):
+            ranked = measure.exact_prefix(ranked, top)
+            continue
         final = ranked[:top]
         pending = [c for c in final if id(c) not in refitter.attempted] if exact >= top else []
         if not pending:

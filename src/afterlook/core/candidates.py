@@ -82,7 +82,7 @@ from . import expressions
 from .chance import CHANCE_LEVEL, chance_verdict
 from .errors import AfterlookError
 from .candidate_pairs import difference_and_product_groups, moments, ratio_groups, shaped_groups
-from .numbers import finite_or_none
+from .numbers import finite_or_none, sample_rows
 from .tails import (  # noqa: F401 - part of this module's interface
     Deviations,
     MAD_TO_SD,
@@ -173,6 +173,9 @@ class Candidate:
     catches_targets: int | None = None
     heldout: object | None = None  # afterlook.core.heldout.HeldOut of the re-fit, when it could be estimated
     verdict: str = ""
+    # rows of the normal sample the robust statistics were measured on (negative: a seeded subset of that
+    # many rows; see second_pass); 0 before the second pass
+    rows_used: int = field(default=0, compare=False)
     # the parsed expression, kept from the exact pass so the re-fit does not parse it again
     parsed: expressions.Expression | None = field(default=None, repr=False, compare=False)
 
@@ -355,6 +358,92 @@ def _select(z: np.ndarray, r: np.ndarray, settings: Settings) -> np.ndarray:
     return np.concatenate([top, reserve])
 
 
+#: A normal sample larger than twice this is first measured on a seeded subset of this many of its rows
+#: (:func:`second_pass`): every chosen candidate is ranked on the subset, and the ones that can be
+#: listed are measured again on the whole sample. A sample of at most twice this is measured whole.
+QUICK_ROWS = 8192
+#: Candidates measured on the whole sample straight after the subset ranking (more on demand).
+EXACT_FIRST = 24
+
+
+class RobustMeasure:
+    """The second pass's robust statistics of one candidate, on the whole normal sample or on a seeded
+    subset of its rows (see :func:`second_pass`).
+
+    ``rows_used`` of a measured candidate tells which: the whole sample's size once :meth:`exactly`
+    has measured it.
+    """
+
+    def __init__(self, sample, targets, target_ids, other_anomalies, other_is_miss, n_tried, settings):
+        self.sample, self.targets, self.target_ids = sample, targets, list(target_ids)
+        self.n_tried, self.settings = n_tried, settings
+        self.others = other_anomalies is not None and other_is_miss is not None and len(other_is_miss) > 0
+        self.other_anomalies, self.other_is_miss = other_anomalies, other_is_miss
+        self.n = len(next(iter(sample.values())))
+        self.quick_sample = None
+        if self.n > 2 * QUICK_ROWS:
+            rows = sample_rows(self.n, QUICK_ROWS, settings.random_state)
+            self.quick_sample = {k: v[rows] for k, v in sample.items()}
+
+    def quickly(self, c: Candidate) -> bool:
+        """Measure ``c`` on the subset (on the whole sample when it is small); False: it cannot be measured."""
+        return self._measure(c, self.sample if self.quick_sample is None else self.quick_sample)
+
+    def exactly(self, c: Candidate) -> bool:
+        """Measure ``c`` on the whole sample unless it already is; False: it cannot be measured."""
+        return c.rows_used == self.n or self._measure(c, self.sample)
+
+    def _measure(self, c: Candidate, sample) -> bool:
+        settings = self.settings
+        # zscore(...) in a candidate is frozen on the normal rows it is measured on (never on the targets)
+        expr = c.parsed = expressions.parse(c.expression).fit(sample)
+        v = expr.evaluate(sample)
+        v = v[np.isfinite(v)]
+        if v.size < 30 or v.std() == 0:
+            return False
+        tv = expr.evaluate(self.targets)
+        if not np.all(np.isfinite(tv)):
+            return False
+        spread = Deviations(v)
+        if self.others:
+            spread.prepare(1.0 - settings.alarm_rate)  # the alarm quantile and the MAD from one partition
+        zs = spread.robust_z(tv)
+        tails = [spread.tail(float(t)) for t in tv]
+        guard = chance_verdict(np.array([t[0] for t in tails]), self.n_tried)
+        best = int(np.argmin([t[0] for t in tails]))
+        ids = self.target_ids
+        c.case_z_by_case = {cid: float(z) for cid, z in zip(ids, zs)}
+        c.tail_by_case = {cid: float(tl[0]) for cid, tl in zip(ids, tails)}
+        c.case_z = float(np.median(zs)) if len(zs) > 1 else float(zs[0])
+        c.tail, c.tail_method = float(tails[best][0]), tails[best][1]
+        c.adjusted_tail = guard.adjusted_tail
+        c.targets_exposed = guard.targets_exposed
+        c.chance_method, c.count_tail = guard.method, guard.count_tail
+        c.beyond_chance = guard.beyond_chance(settings.chance_level)
+        if self.others:
+            ov = expr.evaluate(self.other_anomalies)
+            med = spread.median
+            cut = spread.quantile(1.0 - settings.alarm_rate)
+            sep = np.isfinite(ov) & (np.abs(ov - med) > cut)
+            c.other_anomalies = int(len(ov))
+            c.other_anomalies_separated = int(sep.sum())
+            c.other_misses = int(self.other_is_miss.sum())
+            c.other_misses_separated = int((sep & self.other_is_miss).sum())
+        c.rows_used = self.n if sample is self.sample else -len(next(iter(sample.values())))
+        return True
+
+    def exact_prefix(self, ranked: list[Candidate], count: int) -> list[Candidate]:
+        """``ranked`` with its first ``count`` candidates measured on the whole sample, re-ranked, repeated
+        until the first ``count`` all are (a candidate that cannot be measured whole is dropped)."""
+        while True:
+            head = [c for c in ranked[:count] if c.rows_used != self.n]
+            if not head:
+                return ranked
+            dropped = {id(c) for c in head if not self.exactly(c)}
+            ranked = [c for c in ranked if id(c) not in dropped]
+            ranked.sort(key=lambda c: c.rank_key(self.settings.min_correlation))
+
+
 def second_pass(
     candidates: list[Candidate],
     n_tried: int,
@@ -365,13 +454,25 @@ def second_pass(
     other_is_miss: np.ndarray | None,
     settings: Settings = Settings(),
     progress=None,
+    measure: RobustMeasure | None = None,
 ) -> list[Candidate]:
-    """Exact robust statistics for the best candidates of the moment pass.
+    """Exact robust statistics for the best candidates of the moment pass, ranked.
 
     ``targets`` and ``other_anomalies`` map column name -> raw values of the
     target misses and of the other labelled anomalies. ``progress`` (optional
     callable(fraction done)) is called every 8 candidates.
+
+    A sample of more than ``2 * QUICK_ROWS`` rows is measured in two steps: every
+    chosen candidate on a seeded subset of ``QUICK_ROWS`` rows (enough to rank
+    them), then the first :data:`EXACT_FIRST` of that ranking on the whole sample,
+    re-ranked until the first ``EXACT_FIRST`` all are measured whole. The caller
+    measures more on demand with ``measure.exact_prefix`` (pass a
+    :class:`RobustMeasure` as ``measure`` to keep it). Every candidate a caller
+    lists should be measured whole: ``rows_used`` says which ones are; a
+    negative value is the size of the subset.
     """
+    measure = measure or RobustMeasure(sample, targets, target_ids, other_anomalies, other_is_miss,
+                                       n_tried, settings)
     scored = [c for c in candidates if np.isfinite(c.first_pass_z)]
     scored.sort(key=lambda c: -c.first_pass_z)
     chosen = scored[: settings.second_pass]
@@ -382,39 +483,7 @@ def second_pass(
     for index, c in enumerate(chosen):
         if progress is not None and index % 8 == 0:
             progress(index / len(chosen))
-        # zscore(...) in a candidate is frozen on the normal sample the screen used (never on the targets)
-        expr = c.parsed = expressions.parse(c.expression).fit(sample)
-        v = expr.evaluate(sample)
-        v = v[np.isfinite(v)]
-        if v.size < 30 or v.std() == 0:
-            continue
-        tv = expr.evaluate(targets)
-        if not np.all(np.isfinite(tv)):
-            continue
-        spread = Deviations(v)
-        if other_anomalies is not None and other_is_miss is not None and len(other_is_miss):
-            spread.prepare(1.0 - settings.alarm_rate)  # the alarm quantile and the MAD from one partition
-        zs = spread.robust_z(tv)
-        tails = [spread.tail(float(t)) for t in tv]
-        guard = chance_verdict(np.array([t[0] for t in tails]), n_tried)
-        best = int(np.argmin([t[0] for t in tails]))
-        c.case_z_by_case = {cid: float(z) for cid, z in zip(target_ids, zs)}
-        c.tail_by_case = {cid: float(tl[0]) for cid, tl in zip(target_ids, tails)}
-        c.case_z = float(np.median(zs)) if len(zs) > 1 else float(zs[0])
-        c.tail, c.tail_method = float(tails[best][0]), tails[best][1]
-        c.adjusted_tail = guard.adjusted_tail
-        c.targets_exposed = guard.targets_exposed
-        c.chance_method, c.count_tail = guard.method, guard.count_tail
-        c.beyond_chance = guard.beyond_chance(settings.chance_level)
-        if other_anomalies is not None and other_is_miss is not None and len(other_is_miss):
-            ov = expr.evaluate(other_anomalies)
-            med = spread.median
-            cut = spread.quantile(1.0 - settings.alarm_rate)
-            sep = np.isfinite(ov) & (np.abs(ov - med) > cut)
-            c.other_anomalies = int(len(ov))
-            c.other_anomalies_separated = int(sep.sum())
-            c.other_misses = int(other_is_miss.sum())
-            c.other_misses_separated = int((sep & other_is_miss).sum())
-        out.append(c)
+        if measure.quickly(c):
+            out.append(c)
     out.sort(key=lambda c: c.rank_key(settings.min_correlation))
-    return out
+    return measure.exact_prefix(out, EXACT_FIRST)

@@ -53,12 +53,14 @@ def gpd_tail(abs_dev: np.ndarray, target_dev: float, fraction: float = TAIL_FRAC
     The shape is clamped at ``>= 0`` (an exponential tail at the thinnest),
     so light tails are never extrapolated as bounded.
     """
-    d = np.sort(np.asarray(abs_dev, dtype=np.float64))
+    d = np.asarray(abs_dev, dtype=np.float64).ravel()
     n = d.size
     n_tail = max(MIN_EXCESSES, int(math.ceil(fraction * n)))
     n_tail = min(n_tail, n - 1)
-    u = d[n - n_tail - 1]
-    excess = d[n - n_tail:] - u
+    # only the largest n_tail + 1 deviations are read, in order: one partition and a sort of those
+    top = np.sort(np.partition(d, n - n_tail - 1)[n - n_tail - 1:])
+    u = top[0]
+    excess = top[1:] - u
     xi, sigma = gpd_pwm(excess)
     if sigma <= 0:
         return 1.0 / (n + 1)
