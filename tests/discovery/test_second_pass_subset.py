@@ -82,10 +82,12 @@ def test_a_small_sample_is_measured_whole_in_one_step(monkeypatch):
 
 
 def test_suggest_lists_the_same_as_measuring_everything_whole(monkeypatch):
-    """The whole call: the listed candidates, their numbers, verdicts and held-out gains."""
+    """The whole call: the listed candidates, their numbers, verdicts and held-out gains, with the screen
+    and the second pass each on a 4,096-row subset against both on the whole sample."""
     import pandas as pd
 
     import afterlook
+    from afterlook.analysis import discovery
 
     data = load_breast_cancer()
     names = [n.replace(" ", "_") for n in data.feature_names[:10]]
@@ -99,11 +101,14 @@ def test_suggest_lists_the_same_as_measuring_everything_whole(monkeypatch):
     cases["id"] = [f"r{k}" for k in range(len(cases))]
     model = afterlook.fit(train, cases=cases, kind="full")
 
-    def listed(quick_rows):
-        monkeypatch.setattr(cand, "QUICK_ROWS", quick_rows)
+    def listed(subset_rows):
+        monkeypatch.setattr(cand, "QUICK_ROWS", subset_rows)
+        monkeypatch.setattr(discovery, "SCREEN_ROWS", subset_rows)
         out = afterlook.suggest(model, cases, train=train, top=10).to_dict()
         out.pop("beyond_chance_total")  # counted over every measured candidate, most on the subset
         out.pop("verdict")  # says that count
+        for c in out["candidates"]:
+            c.pop("first_pass_z")  # the screen's own statistic, on the rows the screen read
         return out
 
     whole = listed(10**9)

@@ -19,7 +19,7 @@ from ..core.collinear import LinearSpan
 from ..core.errors import AfterlookError
 from ..core.heldout import DEFAULT_FOLDS, DEFAULT_SEED, flagged_rate, kfold_gain, stratified_folds
 from ..core.numbers import sample_rows
-from ..core.search_inputs import finite_sample
+from ..core.search_inputs import finite_sample, seeded_subset
 from ..core.recipe import free_name
 from ..core.blas import with_limited_blas
 from .added_refit import AddedFeatureRefit, Refitted
@@ -150,7 +150,8 @@ def suggest(model, cases, train=None, case_ids=None, top: int = 10, *,
 
     shaped = _shaping_expressions(model, sample, progress) if shaping else {}
     _report(progress, "screening candidates", 0.15)
-    candidates, tried, _ = cand.generate_and_screen(names, sample, T, shaped, settings, select=True,
+    screened = seeded_subset(sample, SCREEN_ROWS, settings.random_state)
+    candidates, tried, _ = cand.generate_and_screen(names, screened, T, shaped, settings, select=True,
                                                     progress=_stage(progress, "screening candidates", 0.15, 0.3))
     _report(progress, "exact statistics", 0.35)
     targets = set(idx)
@@ -190,13 +191,19 @@ def suggest(model, cases, train=None, case_ids=None, top: int = 10, *,
     warnings += refitter.warnings
     failed = refitter.failed
     if folds is not None and len(idx) > 1:
-        _stability(final, names, sample, C, idx, folds, shaped, settings, top, progress)
+        _stability(final, names, sample, screened, C, idx, folds, shaped, settings, top, progress)
     _report(progress, "done", 1.0)
     return SuggestResult(target_ids, tried, final, training.source, A.shape[0], settings.chance_level, warnings,
                          beyond_chance_total=beyond_total, dropped_collinear=dropped_collinear,
                          dropped_refit=len(failed), heldout_method=None if folds is None else "kfold",
                          heldout_folds=None if folds is None else int(folds.max()) + 1)
 
+
+#: Rows of the normal sample the moment screen reads (a seeded subset, when the sample has more than twice
+#: this many): the first-pass z of a candidate is its target's distance from the mean in sds, and a few
+#: thousand rows pin a mean and an sd down to a few per cent of the sd; the candidates it passes on are
+#: measured on the whole sample (:func:`afterlook.core.candidates.second_pass`).
+SCREEN_ROWS = 16384
 
 #: Rows of the sample the affine-dependence check looks at (at least 8 per model feature).
 ADDABLE_ROWS = 512
@@ -238,7 +245,7 @@ def _folds(session: Session, warnings: list[str]):
         return None
 
 
-def _stability(final: list, names, sample, C, idx, folds, shaped, settings, top: int, progress=None) -> None:
+def _stability(final: list, names, sample, screened, C, idx, folds, shaped, settings, top: int, progress=None) -> None:
     """In how many folds each listed candidate is found again (in the top ``top``) from the other folds' misses."""
     listed = {c.expression for c in final}
     found = dict.fromkeys(listed, 0)
@@ -251,7 +258,7 @@ def _stability(final: list, names, sample, C, idx, folds, shaped, settings, top:
             continue
         searched += 1
         T = C[keep]
-        cands, tried, _ = cand.generate_and_screen(names, sample, T, shaped, settings, select=True)
+        cands, tried, _ = cand.generate_and_screen(names, screened, T, shaped, settings, select=True)
         again = cand.second_pass(cands, tried, sample, {n: T[:, k] for k, n in enumerate(names)},
                                  [str(i) for i in keep], None, None, settings)
         for c in again[:top]:

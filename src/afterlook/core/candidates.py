@@ -82,7 +82,8 @@ from . import expressions
 from .chance import CHANCE_LEVEL, chance_verdict
 from .errors import AfterlookError
 from .candidate_pairs import difference_and_product_groups, moments, ratio_groups, shaped_groups
-from .numbers import finite_or_none, sample_rows
+from .numbers import finite_or_none
+from .search_inputs import seeded_subset
 from .tails import (  # noqa: F401 - part of this module's interface
     Deviations,
     MAD_TO_SD,
@@ -380,10 +381,8 @@ class RobustMeasure:
         self.others = other_anomalies is not None and other_is_miss is not None and len(other_is_miss) > 0
         self.other_anomalies, self.other_is_miss = other_anomalies, other_is_miss
         self.n = len(next(iter(sample.values())))
-        self.quick_sample = None
-        if self.n > 2 * QUICK_ROWS:
-            rows = sample_rows(self.n, QUICK_ROWS, settings.random_state)
-            self.quick_sample = {k: v[rows] for k, v in sample.items()}
+        quick = seeded_subset(sample, QUICK_ROWS, settings.random_state)
+        self.quick_sample = None if quick is sample else quick
 
     def quickly(self, c: Candidate) -> bool:
         """Measure ``c`` on the subset (on the whole sample when it is small); False: it cannot be measured."""
@@ -429,8 +428,23 @@ class RobustMeasure:
             c.other_anomalies_separated = int(sep.sum())
             c.other_misses = int(self.other_is_miss.sum())
             c.other_misses_separated = int((sep & self.other_is_miss).sum())
-        c.rows_used = self.n if sample is self.sample else -len(next(iter(sample.values())))
+        if sample is self.sample:
+            c.rows_used = self.n
+            c.r = self._correlation(c.inputs)
+        else:
+            c.rows_used = -len(next(iter(sample.values())))
         return True
+
+    def _correlation(self, inputs) -> float:
+        """Pearson correlation of the candidate's two input columns over the whole sample (the screen's
+        ``r`` came from the rows it read; 0 where a column is constant, as the screen has it)."""
+        a, b = (self.sample.get(x) for x in inputs)
+        if a is None or b is None:
+            return 0.0
+        x, y = a - a.mean(), b - b.mean()
+        with np.errstate(invalid="ignore", divide="ignore"):
+            r = float(x @ y / math.sqrt(float(x @ x) * float(y @ y)))
+        return r if math.isfinite(r) else 0.0
 
     def exact_prefix(self, ranked: list[Candidate], count: int) -> list[Candidate]:
         """``ranked`` with its first ``count`` candidates measured on the whole sample, re-ranked, repeated

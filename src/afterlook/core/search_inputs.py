@@ -13,7 +13,7 @@ import numpy as np
 from .gaussian import GaussianModel
 from .numbers import sample_rows
 
-__all__ = ["finite_sample", "same_fit", "centred_cross"]
+__all__ = ["finite_sample", "seeded_subset", "same_fit", "centred_cross"]
 
 
 def finite_sample(raw: Mapping[str, np.ndarray], names: list[str], size: int, random_state) -> np.ndarray:
@@ -31,6 +31,17 @@ def finite_sample(raw: Mapping[str, np.ndarray], names: list[str], size: int, ra
     for k, n in enumerate(names):
         A[:, k] = raw[n][rows]
     return A
+
+
+def seeded_subset(sample: Mapping[str, np.ndarray], size: int, random_state) -> Mapping[str, np.ndarray]:
+    """``sample`` itself when it has at most ``2 * size`` rows, else its rows at ``sample_rows(n, size,
+    random_state)`` (the same rows for every column). Twice, so that a step that works on a subset
+    does so only where the subset is much smaller than the whole (the demo's sample is used whole)."""
+    n = len(next(iter(sample.values()))) if sample else 0
+    if n <= 2 * size:
+        return sample
+    rows = sample_rows(n, size, random_state)
+    return {k: v[rows] for k, v in sample.items()}
 
 
 def same_fit(density: GaussianModel, X: np.ndarray, mean: np.ndarray) -> GaussianModel | None:
