@@ -56,7 +56,7 @@ __all__ = ["chosen_transforms", "k2_statistics", "power_mle"]
 
 _EPS_RESOLUTION = 10 * np.finfo(np.float64).resolution  # scipy.stats.skew's precision-loss rule
 _GRID = np.arange(-3.25, 3.26, 0.5)  # lambda grid (no point at 0)
-_BLOCK = 256  # candidate columns scored per K^2 call
+_BLOCK = 64  # candidate columns scored per K^2 call (small blocks: temporaries of a few MB, reused)
 
 
 def k2_statistics(V: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -198,16 +198,19 @@ def _exact(values, name, sample_size, random_state):
 
 def _fast_choices(names: list[str], arrays: dict, sample_size: int, random_state,
                   progress) -> dict[str, Transform | None]:
-    X = np.empty((arrays[names[0]].size, len(names)), order="F")  # each column contiguous
-    for k, n in enumerate(names):
-        X[:, k] = arrays[n]
-    S = X[sample_rows(X.shape[0], sample_size, random_state)]
-    x_min = X.min(axis=0)
-    varies = (np.ptp(X, axis=0) > 0) & (np.ptp(S, axis=0) > 0)
-    # column by column (contiguous), the numbers of np.percentile(X, [75, 25], axis=0) in less time
-    q75, q25 = np.array([np.percentile(X[:, k], [75, 25]) for k in range(X.shape[1])]).T
-    spread = np.where(q75 - q25 != 0, q75 - q25, X.std(axis=0))
-    is_count = (x_min >= 0) & np.all(X == np.round(X), axis=0)
+    # column by column on the caller's (contiguous) arrays: no (n, d) copy, no (n, d) temporaries
+    rows = sample_rows(arrays[names[0]].size, sample_size, random_state)
+    S = np.array([arrays[n][rows] for n in names]).T  # (m, d), each column contiguous
+    cols = [arrays[n] for n in names]
+    x_min = np.array([c.min() for c in cols])
+    varies = (np.array([np.ptp(c) for c in cols]) > 0) & (np.ptp(S, axis=0) > 0)
+    # the numbers of np.percentile(X, [75, 25], axis=0), column by column
+    q75, q25 = np.array([np.percentile(c, [75, 25]) for c in cols]).T
+    iqr = q75 - q25
+    spread = np.array([iqr[k] if iqr[k] != 0 else cols[k].std() for k in range(len(cols))])
+    # integer-valued: the sample rows first (a column with a fraction there is not), then every row
+    is_count = np.array([x_min[k] >= 0 and np.all(S[:, k] == np.round(S[:, k])) and np.all(c == np.round(c))
+                         for k, c in enumerate(cols)])
     progress(0.2)
     k2_identity, skew = k2_statistics(S)
     with np.errstate(over="ignore"):
@@ -245,7 +248,7 @@ def _fast_choices(names: list[str], arrays: dict, sample_size: int, random_state
     stats = np.full(len(values), np.nan)
     for start in range(0, len(values), _BLOCK):
         progress(0.6 + 0.4 * start / len(values))
-        V = np.column_stack(values[start:start + _BLOCK])
+        V = np.array(values[start:start + _BLOCK]).T  # each candidate contiguous: a copy, not a strided fill
         usable = np.all(np.isfinite(V), axis=0) & (np.ptp(V, axis=0) > 0)
         k2, _ = k2_statistics(V)
         stats[start:start + _BLOCK] = np.where(usable, k2, np.nan)
@@ -274,7 +277,7 @@ def _fitted(names, S, search, x_min, logs) -> tuple[list, set]:
     for kind, cols, L in (("boxcox", bc, lambda j: logs[j]), ("yeojohnson", yj, lambda j: np.log1p(S[:, j]))):
         if not cols:
             continue
-        Lm = np.column_stack([L(j) for j in cols])
+        Lm = np.array([L(j) for j in cols]).T  # column-major, each column contiguous
         lam, ok = power_mle(Lm)
         for k, j in enumerate(cols):
             if not ok[k]:
