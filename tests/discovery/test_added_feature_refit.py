@@ -9,6 +9,7 @@ change when a column is added on the same rows.
 from __future__ import annotations
 
 import numpy as np
+import pandas as pd
 import pytest
 
 import afterlook
@@ -109,3 +110,26 @@ def test_centred_cross_equals_the_plain_centred_product():
     X, Y = data[:, :10], data[:, 10:16]
     expected = (X - X.mean(axis=0)).T @ (Y - Y.mean(axis=0)) / X.shape[0]
     np.testing.assert_allclose(centred_cross(X, Y, block=100), expected, rtol=1e-12, atol=1e-12 * np.abs(expected).max())
+    # the same from separate columns (how suggest's re-fit passes them), with a last block shorter than the rest
+    columns = [np.ascontiguousarray(X[:, j]) for j in range(X.shape[1])]
+    ys = [np.ascontiguousarray(Y[:, j]) for j in range(Y.shape[1])]
+    np.testing.assert_allclose(centred_cross(columns, ys, block=100), expected, rtol=1e-12,
+                               atol=1e-12 * np.abs(expected).max())
+
+
+def test_same_fit_reads_columns_as_it_reads_the_matrix():
+    # Reference: the model fitted on the breast-cancer table (scikit-learn's bundled copy) is found again from
+    # its columns, and a model of other rows is not
+    from sklearn.datasets import load_breast_cancer
+
+    import afterlook
+    from afterlook.core.search_inputs import column_means, same_fit
+
+    X = load_breast_cancer().data[:, :8]
+    model = afterlook.fit(pd.DataFrame(X, columns=[f"x{j}" for j in range(8)]), kind="full")
+    columns = [np.ascontiguousarray(X[:, j]) for j in range(8)]
+    np.testing.assert_allclose(column_means(columns), X.mean(axis=0), rtol=1e-14)
+    assert same_fit(model.density, columns, column_means(columns)) is model.density
+    assert same_fit(model.density, X, X.mean(axis=0)) is model.density
+    other = [c[:-3] for c in columns]
+    assert same_fit(model.density, other, column_means(other)) is None

@@ -1,4 +1,4 @@
-"""The one-added-column refit in afterlook.core.gaussian against a naive full refit.
+"""The one-added-column refit in afterlook.core.added_column against a naive full refit.
 
 Reference: a deliberately naive refit written here. It stacks the new
 column onto the training matrix, takes the maximum-likelihood mean and
@@ -17,7 +17,8 @@ import numpy as np
 import pytest
 from scipy import stats
 
-from afterlook.core.gaussian import GaussianModel, added_column, with_added_column
+from afterlook.core.added_column import added_column, with_added_column
+from afterlook.core.gaussian import GaussianModel
 
 RTOL = 1e-8  # relative tolerance of log-densities (Cholesky vs scipy's eigendecomposition)
 ATOL = 1e-8
@@ -42,14 +43,18 @@ def naive_full_log_density(train: np.ndarray, rows_: np.ndarray, shrinkage: floa
     return stats.multivariate_normal(mean=mean, cov=cov).logpdf(rows_)
 
 
+@pytest.mark.parametrize("as_columns", [False, True], ids=["matrix", "columns"])
 @pytest.mark.parametrize("seed", [0, 1, 2])
-def test_full_model_plus_conditional_equals_the_naive_refit(seed):
+def test_full_model_plus_conditional_equals_the_naive_refit(seed, as_columns):
     X, y = rows(400, 4, seed)
     Xn, yn = rows(50, 4, seed + 100)
     model = GaussianModel(kind="full").fit(X)
-    column = added_column(model, X, y)
+    # the rows as a matrix, or as d separate columns (how suggest's re-fit reads the training features)
+    fit_rows = [X[:, j].copy() for j in range(X.shape[1])] if as_columns else X
+    new_rows = [Xn[:, j].copy() for j in range(Xn.shape[1])] if as_columns else Xn
+    column = added_column(model, fit_rows, y)
     assert column is not None
-    got = model.log_density(Xn) + column.conditional_log_density(Xn, yn)
+    got = model.log_density(Xn) + column.conditional_log_density(new_rows, yn)
     expected = naive_full_log_density(np.column_stack([X, y]), np.column_stack([Xn, yn]))
     np.testing.assert_allclose(got, expected, rtol=RTOL, atol=ATOL)
 

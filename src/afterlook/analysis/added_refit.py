@@ -12,8 +12,9 @@ import numpy as np
 
 from ..core import expressions
 from ..core.errors import AfterlookError
-from ..core.gaussian import GaussianModel, added_column, with_added_column
-from ..core.search_inputs import centred_cross, same_fit
+from ..core.added_column import added_column, with_added_column
+from ..core.gaussian import GaussianModel
+from ..core.search_inputs import centred_cross, column_means, same_fit
 from ..core.thresholds import choose_threshold, confusion, flag
 from .model import Model
 from .session import Session
@@ -35,7 +36,7 @@ class AddedFeatureRefit:
 
     A re-fit with one more column changes nothing about the other columns'
     maximum-likelihood estimates as long as the same rows are used
-    (:func:`afterlook.core.gaussian.added_column`). The threshold is then
+    (:func:`afterlook.core.added_column.added_column`). The threshold is then
     re-picked by the model's policy on the re-scored cases, exactly as
     :func:`afterlook.analysis.trial.try_features` does. Used when the fit is
     classical or has a fixed shrinkage (not robust, no Ledoit-Wolf, whose
@@ -44,16 +45,26 @@ class AddedFeatureRefit:
     the caller re-fits in full. A test checks it against the full re-fit.
     """
 
-    def __init__(self, model: Model, X, raw_train, case_features, case_raw, labels, base: GaussianModel):
-        self.model, self.X, self.raw_train = model, X, raw_train
+    def __init__(self, model: Model, columns: list, raw_train, case_features, case_raw, labels, base: GaussianModel):
+        # the training features as d columns (the caller's arrays where a feature has no transform): the
+        # conditional update reads them column by column, so the (n, d) matrix is made only when needed
+        self.model, self.columns, self.raw_train = model, columns, raw_train
         self.case_features, self.case_raw, self.labels, self.base = case_features, case_raw, labels, base
+        self._matrix = None
         # log p(x) of the current features, reused: with one added column y,
         # log p(x, y) = log p(x) + log N(y; E[y | x], var(y | x)) exactly.
         # the session's scores already carry the model's undefined-value policy (-inf outside a domain)
         self.case_ld = model.with_undefined_policy(base.log_density(case_features), case_raw)
-        self.train_ld = base.log_density(X) if model.policy.kind == "rate" else None
+        self.train_ld = base.log_density(columns) if model.policy.kind == "rate" else None
         self.precision = base.precision() if base.kind == "full" else None
         self._ready: dict = {}  # expression text -> (training values, case values, cross-covariance)
+
+    @property
+    def X(self) -> np.ndarray:
+        """The training features as an (n, d) matrix (made on first use: the fixed-shrinkage re-fit)."""
+        if self._matrix is None:
+            self._matrix = np.column_stack(self.columns)
+        return self._matrix
 
     @classmethod
     def prepare(cls, session: Session, progress=None):
@@ -62,25 +73,28 @@ class AddedFeatureRefit:
         d = model.density
         if d.robust or d.shrinkage == "ledoit-wolf" or session.labels is None:
             return None
-        fm = model.recipe.transform_features(session.raw_features("normal"))
+        raw = session.raw_features("normal")
+        columns = model.recipe.feature_columns(raw)
         if progress is not None:
             progress(0.5)
-        keep = fm.finite_rows
-        every = bool(np.all(keep))  # the usual case: no copy of the rows
-        X = fm.values if every else fm.values[keep]
-        if X.shape[0] < 2:
+        every = all(bool(np.isfinite(c).all()) for c in columns)  # the usual case: no copy of the rows
+        if not every:
+            fm = model.recipe.transform_features(raw)
+            keep = fm.finite_rows
+            columns = [np.ascontiguousarray(c) for c in fm.values[keep].T]
+        if len(columns[0]) < 2:
             return None
-        base = same_fit(d, X, X.mean(axis=0))
+        base = same_fit(d, columns, column_means(columns))
         if base is None:
             try:
-                base = GaussianModel(kind=d.kind, shrinkage=d.shrinkage).fit(X, fm.names)
+                base = GaussianModel(kind=d.kind, shrinkage=d.shrinkage).fit(np.column_stack(columns), list(model.recipe.features))
             except AfterlookError:
                 return None
         if progress is not None:
             progress(1.0)
         scope = session.scope("normal")
         raw_train = scope if every else {k: v[keep] for k, v in scope.items()}
-        return cls(model, X, raw_train, session.scored.features, session.scope("cases"), session.labels, base)
+        return cls(model, columns, raw_train, session.scored.features, session.scope("cases"), session.labels, base)
 
     def _parsed(self, expression) -> expressions.Expression:
         """``expression`` parsed; zscore(...) frozen on the training rows it is re-fitted on when it is not yet."""
@@ -104,7 +118,7 @@ class AddedFeatureRefit:
                 ready[expr.text] = y
         cross = None
         if ready and self.base.kind == "full" and not self.base.shrinkage_:
-            cross = centred_cross(self.X, np.column_stack(list(ready.values())))
+            cross = centred_cross(self.columns, list(ready.values()))
         for k, (text, y) in enumerate(ready.items()):
             self._ready[text] = (y, None if cross is None else cross[:, k])
 
@@ -127,16 +141,16 @@ class AddedFeatureRefit:
                 return None
             ld = new.log_density(np.column_stack([self.case_features, y_cases]))
             ld = np.where(np.isneginf(self.case_ld), -np.inf, ld)
-            train_ld = new.log_density(np.column_stack([self.X, y])) if self.train_ld is not None else None
+            train_ld = new.log_density([*self.columns, y]) if self.train_ld is not None else None
         else:
-            column = added_column(base, self.X, y, precision=self.precision, cross=cross)
+            column = added_column(base, self.columns, y, precision=self.precision, cross=cross)
             if column is None:
                 return None  # the full re-fit refuses a constant or collinear column too
             with np.errstate(invalid="ignore"):
                 cond = column.conditional_log_density(self.case_features, y_cases)
                 ld = np.where(np.isneginf(self.case_ld), -np.inf, self.case_ld + cond)
             ld[np.isnan(ld) | np.isposinf(ld)] = np.nan
-            train_ld = None if self.train_ld is None else self.train_ld + column.conditional_log_density(self.X, y)
+            train_ld = None if self.train_ld is None else self.train_ld + column.conditional_log_density(self.columns, y)
         if self.model.undefined == "flag":
             # the candidate undefined on a case whose readings are finite: outside its domain, flagged
             readings_ok = np.all(np.column_stack([np.isfinite(self.case_raw[c]) for c in expr.columns]), axis=1) \

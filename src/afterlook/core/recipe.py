@@ -333,6 +333,16 @@ class Recipe:
         nan_by = {name: int(counts[j]) for j, name in enumerate(names)}
         return FeatureMatrix(X, names, nan_by)
 
+    def feature_columns(self, env: Mapping[str, np.ndarray]) -> list[np.ndarray]:
+        """The features of :meth:`transform_features` as d separate float64 columns, without the (n, d) matrix:
+        a feature without a transform is the caller's own array (no copy). Unlike :meth:`transform_features`,
+        an infinite value of an untransformed feature is left as it is (a caller checks finiteness)."""
+        out = []
+        for name in self.features:
+            t = self.transforms.get(name)
+            out.append(apply_transform(t, name, env[name]) if t is not None else np.asarray(env[name], dtype=np.float64))
+        return out
+
     def describe(self) -> list[str]:
         lines = [f"{n} = {e}" for n, e in self.derived]
         lines += [f"{n} -> {t.describe(n)}" for n, t in self.transforms.items()]

@@ -13,7 +13,7 @@ import numpy as np
 from .gaussian import GaussianModel
 from .numbers import sample_rows
 
-__all__ = ["finite_sample", "seeded_subset", "same_fit", "centred_cross"]
+__all__ = ["finite_sample", "seeded_subset", "as_columns", "column_means", "same_fit", "centred_cross"]
 
 
 def finite_sample(raw: Mapping[str, np.ndarray], names: list[str], size: int, random_state) -> np.ndarray:
@@ -44,37 +44,71 @@ def seeded_subset(sample: Mapping[str, np.ndarray], size: int, random_state) -> 
     return {k: v[rows] for k, v in sample.items()}
 
 
-def same_fit(density: GaussianModel, X: np.ndarray, mean: np.ndarray) -> GaussianModel | None:
+def as_columns(X) -> list[np.ndarray]:
+    """An (n, d) array's columns (views) or a sequence of d 1-D arrays, as a list of float64 arrays."""
+    if isinstance(X, np.ndarray) and X.ndim == 2:
+        return [X[:, j] for j in range(X.shape[1])]
+    return [np.asarray(c, dtype=np.float64) for c in X]
+
+
+def column_means(X) -> np.ndarray:
+    """The mean of every column of an (n, d) array or of a sequence of d columns."""
+    return np.array([float(c.mean()) for c in as_columns(X)])
+
+
+def same_fit(density: GaussianModel, X, mean: np.ndarray) -> GaussianModel | None:
     """The model's own density when it is the classical fit on exactly these rows, else None.
 
-    A classical (not robust, unshrunk) fit is the rows' mean and covariance; when
-    the rows' mean (``mean``, ``X.mean(axis=0)``) and variances equal the model's
-    to 1e-12, the model was fitted on these rows and refitting would give the
-    same numbers (to rounding). The variances are summed a block of rows at a
-    time, so no centred copy of ``X`` is made.
+    ``X``: the rows as an (n, d) array or as d columns. A classical (not robust,
+    unshrunk) fit is the rows' mean and covariance; when the rows' mean (``mean``)
+    and variances equal the model's to 1e-12, the model was fitted on these rows
+    and refitting would give the same numbers (to rounding). The variances are
+    summed column by column (or, for an array, a block of rows at a time), so no
+    centred copy of the rows is made.
     """
-    if density.robust or density.shrinkage_ or density.mean_ is None or density.mean_.shape != (X.shape[1],):
+    if density.robust or density.shrinkage_ or density.mean_ is None or density.mean_.shape != (len(mean),):
         return None
     if not np.allclose(mean, density.mean_, rtol=1e-12, atol=0.0):
         return None
-    var = np.zeros(X.shape[1])
-    for start in range(0, X.shape[0], 8192):
-        block = X[start:start + 8192] - mean
-        var += np.einsum("ij,ij->j", block, block)
-    var /= X.shape[0]
+    if isinstance(X, np.ndarray) and X.ndim == 2:
+        n = X.shape[0]
+        var = np.zeros(X.shape[1])
+        for start in range(0, n, 8192):
+            block = X[start:start + 8192] - mean
+            var += np.einsum("ij,ij->j", block, block)
+    else:
+        cols = as_columns(X)
+        n = len(cols[0])
+        var = np.empty(len(cols))
+        for j, c in enumerate(cols):
+            centred = c - mean[j]
+            var[j] = centred @ centred
+    var /= n
     if density.covariance_ is None or not np.allclose(var, np.diag(density.covariance_), rtol=1e-12, atol=0.0):
         return None
     return density
 
 
-def centred_cross(X: np.ndarray, Y: np.ndarray, block: int = 8192) -> np.ndarray:
-    """``(X - X.mean(axis=0))^T (Y - Y.mean(axis=0)) / n`` (d x k) for many columns ``Y`` (n x k) at once,
-    centring ``X`` a block of rows at a time (no centred copy of ``X``); the means of ``Y`` are taken per
-    column as :func:`added_column` takes them."""
-    n = X.shape[0]
-    mean = X.mean(axis=0)
-    Yc = np.column_stack([Y[:, k] - float(Y[:, k].mean()) for k in range(Y.shape[1])])
-    out = np.zeros((X.shape[1], Y.shape[1]))
+def centred_cross(X, Y, block: int = 8192) -> np.ndarray:
+    """``(X - X.mean(axis=0))^T (Y - Y.mean(axis=0)) / n`` (d x k) for many columns ``Y`` at once.
+
+    ``X`` and ``Y`` are (n, d) and (n, k) arrays or sequences of columns. Both are
+    centred a block of rows at a time into two small column-major buffers that stay
+    in cache, so no centred (or stacked) copy of the rows is made; the means are
+    taken per column, as :func:`afterlook.core.added_column.added_column` takes them.
+    """
+    xs, ys = as_columns(X), as_columns(Y)
+    n, d, k = len(xs[0]), len(xs), len(ys)
+    mx, my = column_means(xs), column_means(ys)
+    out = np.zeros((d, k))
+    bx = np.empty((min(block, n), d), order="F")
+    by = np.empty((min(block, n), k), order="F")
     for start in range(0, n, block):
-        out += (X[start:start + block] - mean).T @ Yc[start:start + block]
+        stop = min(start + block, n)
+        m = stop - start
+        for j, c in enumerate(xs):
+            np.subtract(c[start:stop], mx[j], out=bx[:m, j])
+        for j, c in enumerate(ys):
+            np.subtract(c[start:stop], my[j], out=by[:m, j])
+        out += bx[:m].T @ by[:m]
     return out / n
