@@ -160,20 +160,21 @@ def suggest(model, cases, train=None, case_ids=None, top: int = 10, *,
     other_cols = {n: C[other, k] for k, n in enumerate(names)}
     other_is_miss = miss_mask[other] if len(other) else np.zeros(0, bool)
     target_cols = {n: T[:, k] for k, n in enumerate(names)}
+    exact = max(top, EXACT_AT_LEAST) if exact is None else exact
     measure = cand.RobustMeasure(sample, target_cols, target_ids, other_cols, other_is_miss, tried, settings)
     ranked = cand.second_pass(candidates, tried, sample, target_cols, target_ids, other_cols, other_is_miss, settings,
-                              progress=_stage(progress, "exact statistics", 0.3, 0.35), measure=measure)
+                              progress=_stage(progress, "exact statistics", 0.3, 0.35), measure=measure,
+                              exact_first=max(exact, top))
     ranked, dropped_collinear = _addable(model, sample, ranked, progress)
     if dropped_collinear:
         warnings.append(f"left out {dropped_collinear} candidate(s) that are linear combinations of the model's "
                         "features (a full covariance cannot take them)")
     beyond_total = sum(c.beyond_chance for c in ranked)
 
-    exact = max(top, EXACT_AT_LEAST) if exact is None else exact
     folds = _folds(session, warnings)
     _report(progress, "preparing the re-fits", 0.4)
     refitter = _Refitter(session, idx, folds, progress, max(exact, 0))
-    ranked = measure.exact_prefix(ranked, max(exact, top))  # what is re-fitted or listed: the whole sample
+    ranked = measure.exact_prefix(ranked, max(exact, top))  # again after the affine check dropped some
     refitter.refit_many(ranked[: max(exact, 0)])
     while True:  # the list is ranked by verdict, which needs the re-fit: re-fit what would be listed
         ranked = [c for c in ranked if id(c) not in refitter.failed]
@@ -260,7 +261,7 @@ def _stability(final: list, names, sample, screened, C, idx, folds, shaped, sett
         T = C[keep]
         cands, tried, _ = cand.generate_and_screen(names, screened, T, shaped, settings, select=True)
         again = cand.second_pass(cands, tried, sample, {n: T[:, k] for k, n in enumerate(names)},
-                                 [str(i) for i in keep], None, None, settings)
+                                 [str(i) for i in keep], None, None, settings, exact_first=top)
         for c in again[:top]:
             if c.expression in found:
                 found[c.expression] += 1

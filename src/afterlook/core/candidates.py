@@ -363,7 +363,9 @@ def _select(z: np.ndarray, r: np.ndarray, settings: Settings) -> np.ndarray:
 #: (:func:`second_pass`): every chosen candidate is ranked on the subset, and the ones that can be
 #: listed are measured again on the whole sample. A sample of at most twice this is measured whole.
 QUICK_ROWS = 8192
-#: Candidates measured on the whole sample straight after the subset ranking (more on demand).
+#: Candidates measured on the whole sample straight after the subset ranking, at least (more on demand): twice
+#: what suggest re-fits by default, because ties in the ranking keys are broken by counts the subset only
+#: estimates (with 12 the breast-cancer test of the two steps listed a different fifth candidate).
 EXACT_FIRST = 24
 
 
@@ -469,6 +471,7 @@ def second_pass(
     settings: Settings = Settings(),
     progress=None,
     measure: RobustMeasure | None = None,
+    exact_first: int = EXACT_FIRST,
 ) -> list[Candidate]:
     """Exact robust statistics for the best candidates of the moment pass, ranked.
 
@@ -478,8 +481,8 @@ def second_pass(
 
     A sample of more than ``2 * QUICK_ROWS`` rows is measured in two steps: every
     chosen candidate on a seeded subset of ``QUICK_ROWS`` rows (enough to rank
-    them), then the first :data:`EXACT_FIRST` of that ranking on the whole sample,
-    re-ranked until the first ``EXACT_FIRST`` all are measured whole. The caller
+    them), then the first ``exact_first`` (at least :data:`EXACT_FIRST`) of that ranking on the
+    whole sample, re-ranked until the first ``exact_first`` all are measured whole. The caller
     measures more on demand with ``measure.exact_prefix`` (pass a
     :class:`RobustMeasure` as ``measure`` to keep it). Every candidate a caller
     lists should be measured whole: ``rows_used`` says which ones are; a
@@ -500,4 +503,4 @@ def second_pass(
         if measure.quickly(c):
             out.append(c)
     out.sort(key=lambda c: c.rank_key(settings.min_correlation))
-    return measure.exact_prefix(out, EXACT_FIRST)
+    return measure.exact_prefix(out, max(exact_first, EXACT_FIRST))
