@@ -183,32 +183,57 @@ def _rate_cut(ld: np.ndarray, y: np.ndarray, rate: float) -> float:
 
 def kfold_gain(before: np.ndarray, after: np.ndarray, is_anomaly: np.ndarray, policy: ThresholdPolicy, *,
                false_alarm_rate: float, k: int = DEFAULT_FOLDS, seed: int = DEFAULT_SEED) -> HeldOut:
-    """Paired stratified K-fold estimate of the F1 change from ``before`` to ``after`` log-densities."""
+    """Paired stratified K-fold estimate of the F1 change from ``before`` to ``after`` log-densities.
+
+    The ``before`` side is the same for every candidate of a search: it is computed once per
+    (scores, labels, policy, rate, folds) and kept (a few entries, keyed by a digest of the values).
+    """
     b, a = np.asarray(before, np.float64), np.asarray(after, np.float64)
     y = np.asarray(is_anomaly, dtype=bool)
     if not (b.shape == a.shape == y.shape):
         raise AfterlookError("held-out estimate: before, after and labels must have one value per case")
     folds = stratified_folds(y, k, seed)
-    totals = {name: np.zeros(4, np.int64) for name in ("before", "after", "rate_before", "rate_after")}
-    gains = []
-    calls = {"before": np.zeros(y.size, bool), "after": np.zeros(y.size, bool)}
+    key = (_digest(b), _digest(y), policy, float(false_alarm_rate), int(k), seed)
+    side_before = _BEFORE.get(key) if seed is not None else None  # no seed: fresh folds every call
+    if side_before is None:
+        side_before = _one_side(b, y, folds, policy, false_alarm_rate)
+        if len(_BEFORE) >= 8:
+            _BEFORE.pop(next(iter(_BEFORE)))
+        _BEFORE[key] = side_before
+    calls_b, total_b, rate_b, f1_b = side_before
+    calls_a, total_a, rate_a, f1_a = _one_side(a, y, folds, policy, false_alarm_rate)
+    gains = [fa - fb for fa, fb in zip(f1_a, f1_b)]
+    cb, ca = _sum(total_b), _sum(total_a)
+    right_before, right_after = calls_b == y, calls_a == y
+    return HeldOut("kfold", len(gains), cb.f1, ca.f1, ca.f1 - cb.f1, min(gains), max(gains), false_alarm_rate,
+                   _sum(rate_b).recall, _sum(rate_a).recall, cb, ca, tuple(gains),
+                   improved=int(np.sum(~right_before & right_after)), worsened=int(np.sum(right_before & ~right_after)))
+
+
+#: The ``before`` side of recent :func:`kfold_gain` calls (a search asks it for every candidate).
+_BEFORE: dict = {}
+
+
+def _digest(values: np.ndarray) -> bytes:
+    import hashlib
+
+    return hashlib.blake2b(np.ascontiguousarray(values).tobytes(), digest_size=16).digest()
+
+
+def _one_side(ld: np.ndarray, y: np.ndarray, folds: np.ndarray, policy: ThresholdPolicy, rate: float):
+    """Per fold: the threshold picked on the other folds, the held-out calls, their counts, and F1."""
+    calls = np.zeros(y.size, bool)
+    totals, rate_totals = np.zeros(4, np.int64), np.zeros(4, np.int64)
+    f1s = []
     for f in range(int(folds.max()) + 1):
         fit, test = folds != f, folds == f
-        per_fold = {}
-        for name, ld in (("before", b), ("after", a)):
-            flagged = flag(ld[test], _pick(policy, ld[fit], y[fit]))
-            calls[name][test] = flagged
-            c = confusion(flagged, y[test])
-            totals[name] += _counts(c)
-            per_fold[name] = c.f1
-            r = confusion(flag(ld[test], _rate_cut(ld[fit], y[fit], false_alarm_rate)), y[test])
-            totals["rate_" + name] += _counts(r)
-        gains.append(per_fold["after"] - per_fold["before"])
-    cb, ca = _sum(totals["before"]), _sum(totals["after"])
-    right_before, right_after = calls["before"] == y, calls["after"] == y
-    return HeldOut("kfold", len(gains), cb.f1, ca.f1, ca.f1 - cb.f1, min(gains), max(gains), false_alarm_rate,
-                   _sum(totals["rate_before"]).recall, _sum(totals["rate_after"]).recall, cb, ca, tuple(gains),
-                   improved=int(np.sum(~right_before & right_after)), worsened=int(np.sum(right_before & ~right_after)))
+        flagged = flag(ld[test], _pick(policy, ld[fit], y[fit]))
+        calls[test] = flagged
+        c = confusion(flagged, y[test])
+        totals += _counts(c)
+        f1s.append(c.f1)
+        rate_totals += _counts(confusion(flag(ld[test], _rate_cut(ld[fit], y[fit], rate)), y[test]))
+    return calls, totals, rate_totals, f1s
 
 
 def holdout_gain(before_cases: np.ndarray, after_cases: np.ndarray, is_anomaly_cases: np.ndarray,
