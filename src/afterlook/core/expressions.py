@@ -22,6 +22,7 @@ exception or an infinity: callers count the NaN rows and report them.
 from __future__ import annotations
 
 import ast
+import math
 import keyword
 import warnings
 import difflib
@@ -367,6 +368,9 @@ class _Evaluator(ast.NodeVisitor):
 
     def visit(self, node):
         value = super().visit(node)
+        if isinstance(value, np.ndarray) and value.dtype == np.float64 and value.ndim == 1 \
+                and math.isfinite(float(np.add.reduce(value))):
+            return value  # a finite sum means every value is finite (a NaN or an infinity would carry through)
         return np.where(np.isfinite(value), value, np.nan)
 
     def visit_BinOp(self, node: ast.BinOp):

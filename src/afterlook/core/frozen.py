@@ -42,6 +42,8 @@ under ``recipe.frozen``.
 
 from __future__ import annotations
 
+import math
+
 import numpy as np
 
 from . import units as unit_stats
@@ -103,13 +105,23 @@ def apply_named(function: str, values: np.ndarray, power: float) -> np.ndarray:
     compare both with ``scipy.special.boxcox`` and ``scipy.stats.yeojohnson``.
     """
     x = np.asarray(values, dtype=np.float64)
-    x = np.where(np.isfinite(x), x, np.nan)
     p = float(power)
     with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+        # every value finite (a finite sum says so: a NaN or an infinity would carry through): no copy
+        finite = x.size > 0 and math.isfinite(float(np.add.reduce(x, axis=None)))
         if function == "boxcox":
             # scipy.special.boxcox: log(x) at p = 0, expm1(p log x) / p otherwise; x < 0 is NaN
-            logx = np.log(np.where(x < 0, np.nan, x))
-            return logx if p == 0.0 else np.expm1(p * logx) / p
+            if not (finite and x.min() >= 0):
+                x = np.where(np.isfinite(x) & (x >= 0), x, np.nan)
+            logx = np.log(x)
+            if p == 0.0:
+                return logx
+            np.multiply(logx, p, out=logx)
+            np.expm1(logx, out=logx)
+            logx /= p
+            return logx
+        if not finite:
+            x = np.where(np.isfinite(x), x, np.nan)
         if function == "yeojohnson":
             out = np.full(x.shape, np.nan)
             pos, neg = x >= 0, x < 0
