@@ -21,6 +21,13 @@ def numeric_column(frame: pd.DataFrame, name: str) -> np.ndarray:
     col = frame[name]
     if isinstance(col, pd.DataFrame):
         raise AfterlookError(f"column '{name}' appears more than once in the table")
+    if col.dtype == np.float64:  # already floats, missing values already NaN
+        values = col.to_numpy(copy=False)
+        if not values.flags.c_contiguous:  # a strided view (a frame made from a row-major array): one copy
+            return np.ascontiguousarray(values)
+        values = values.view()
+        values.flags.writeable = False  # the caller's own column, read-only: never changes their table
+        return values
     try:
         return pd.to_numeric(col, errors="raise").to_numpy(dtype=np.float64, na_value=np.nan)
     except (ValueError, TypeError):
