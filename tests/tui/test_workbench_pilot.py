@@ -217,6 +217,27 @@ async def test_help_lists_every_key_and_q_quits(demo, tmp_path):
 
 
 @pytest.mark.asyncio
+@pytest.mark.parametrize("panel", ["histogram", "pair", "try", "candidates"])
+async def test_a_panel_mounted_while_the_workbench_is_taken_down_is_ignored(demo, tmp_path, panel):
+    # Seen in a benchmark: quitting right at start-up, a panel's 'mounted' message arrived after the
+    # tabs were gone and the app ended with a NoMatches traceback instead of exiting cleanly.
+    from textual.widgets import TabbedContent
+
+    from afterlook.tui.messages import PanelMounted
+
+    app = create_app(demo.model, demo.cases, train_path=demo.train, casebook=tmp_path / "b.json",
+                     auto_candidates=False)
+    async with app.run_test(size=SIZE) as pilot:
+        await pilot.pause()
+        await app.workbench.query_one(TabbedContent).remove()
+        app.post_message(PanelMounted(panel))
+        await pilot.pause()
+        await pilot.press("q")
+        await pilot.pause()
+    assert app.return_code == 0
+
+
+@pytest.mark.asyncio
 async def test_stale_candidate_runs_are_dropped(demo, tmp_path, monkeypatch, wait_until):
     from afterlook.analysis import workbench as wd
 

@@ -155,17 +155,22 @@ class WorkbenchApp(CasebookFlow, HistogramFlow, PairFlow, App[int]):
         return next(iter(self.workbench.query(TryPanel)), None)
 
     def on_panel_mounted(self, message: msg.PanelMounted) -> None:
+        tabs = next(iter(self.workbench.query(TabbedContent)), None)
+        if tabs is None:  # the message arrived after the workbench was taken down (quitting at start-up)
+            return
         if message.panel == "candidates":
             self._show_candidates_state()
         elif message.panel == "try":
             self._try_status_hint()
+            if self.try_panel is None:
+                return
             if self.trial_view is not None:
                 self.try_panel.show(self.trial_view)
             elif self.trial_running:
                 self.try_panel.running(self.trial_running)
-        elif message.panel == "histogram" and self.tabs.active == "histogram":
+        elif message.panel == "histogram" and tabs.active == "histogram":
             self.request_histogram()
-        elif message.panel == "pair" and self.tabs.active == "pair":
+        elif message.panel == "pair" and tabs.active == "pair":
             self.request_pair()
 
     def _try_status_hint(self) -> None:
