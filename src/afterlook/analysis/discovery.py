@@ -174,15 +174,15 @@ def suggest(model, cases, train=None, case_ids=None, top: int = 10, *,
     folds = _folds(session, warnings)
     _report(progress, "preparing the re-fits", 0.4)
     refitter = _Refitter(session, idx, folds, progress, max(exact, 0))
-    ranked = measure.exact_prefix(ranked, max(exact, top))  # again after the affine check dropped some
+    ranked = cand.measured_whole(ranked, max(exact, top), settings)  # again after the affine check dropped some
     refitter.refit_many(ranked[: max(exact, 0)])
     while True:  # the list is ranked by verdict, which needs the re-fit: re-fit what would be listed
         ranked = [c for c in ranked if id(c) not in refitter.failed]
         for c in ranked:
             c.judge()
         ranked.sort(key=lambda c: c.rank_key(settings.min_correlation))
-        if any(c.rows_used != measure.n for c in ranked[:top]):
-            ranked = measure.exact_prefix(ranked, top)
+        if not all(cand.is_whole(c) for c in ranked[:top]):
+            ranked = cand.measured_whole(ranked, top, settings)
             continue
         final = ranked[:top]
         pending = [c for c in final if id(c) not in refitter.attempted] if exact >= top else []

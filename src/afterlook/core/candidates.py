@@ -177,6 +177,8 @@ class Candidate:
     # rows of the normal sample the robust statistics were measured on (negative: a seeded subset of that
     # many rows; see second_pass); 0 before the second pass
     rows_used: int = field(default=0, compare=False)
+    # the RobustMeasure that measured it (its sample, targets and other anomalies), to measure it whole later
+    measured_by: object | None = field(default=None, repr=False, compare=False)
     # the parsed expression, kept from the exact pass so the re-fit does not parse it again
     parsed: expressions.Expression | None = field(default=None, repr=False, compare=False)
 
@@ -430,6 +432,7 @@ class RobustMeasure:
             c.other_anomalies_separated = int(sep.sum())
             c.other_misses = int(self.other_is_miss.sum())
             c.other_misses_separated = int((sep & self.other_is_miss).sum())
+        c.measured_by = self
         if sample is self.sample:
             c.rows_used = self.n
             c.r = self._correlation(c.inputs)
@@ -449,15 +452,28 @@ class RobustMeasure:
         return r if math.isfinite(r) else 0.0
 
     def exact_prefix(self, ranked: list[Candidate], count: int) -> list[Candidate]:
-        """``ranked`` with its first ``count`` candidates measured on the whole sample, re-ranked, repeated
-        until the first ``count`` all are (a candidate that cannot be measured whole is dropped)."""
-        while True:
-            head = [c for c in ranked[:count] if c.rows_used != self.n]
-            if not head:
-                return ranked
-            dropped = {id(c) for c in head if not self.exactly(c)}
-            ranked = [c for c in ranked if id(c) not in dropped]
-            ranked.sort(key=lambda c: c.rank_key(self.settings.min_correlation))
+        """:func:`measured_whole` (kept as a method for callers holding one measure)."""
+        return measured_whole(ranked, count, self.settings)
+
+
+def is_whole(c: Candidate) -> bool:
+    """Whether ``c``'s robust statistics are its sample's whole numbers (not a subset's)."""
+    m = c.measured_by
+    return m is None or c.rows_used == m.n
+
+
+def measured_whole(ranked: list[Candidate], count: int, settings: Settings) -> list[Candidate]:
+    """``ranked`` with its first ``count`` candidates measured on their whole sample (each by the
+    :class:`RobustMeasure` that measured it first, so candidates of different samples can share one
+    list), re-ranked, repeated until the first ``count`` all are; one that cannot be measured whole
+    is dropped."""
+    while True:
+        head = [c for c in ranked[:count] if not is_whole(c)]
+        if not head:
+            return ranked
+        dropped = {id(c) for c in head if not c.measured_by.exactly(c)}
+        ranked = [c for c in ranked if id(c) not in dropped]
+        ranked.sort(key=lambda c: c.rank_key(settings.min_correlation))
 
 
 def second_pass(
@@ -483,10 +499,9 @@ def second_pass(
     chosen candidate on a seeded subset of ``QUICK_ROWS`` rows (enough to rank
     them), then the first ``exact_first`` (at least :data:`EXACT_FIRST`) of that ranking on the
     whole sample, re-ranked until the first ``exact_first`` all are measured whole. The caller
-    measures more on demand with ``measure.exact_prefix`` (pass a
-    :class:`RobustMeasure` as ``measure`` to keep it). Every candidate a caller
-    lists should be measured whole: ``rows_used`` says which ones are; a
-    negative value is the size of the subset.
+    measures more on demand with :func:`measured_whole`. Every candidate a caller
+    lists should be measured whole: :func:`is_whole` says which ones are
+    (``rows_used``: a negative value is the size of the subset).
     """
     measure = measure or RobustMeasure(sample, targets, target_ids, other_anomalies, other_is_miss,
                                        n_tried, settings)
