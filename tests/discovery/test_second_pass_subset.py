@@ -15,6 +15,7 @@ import pytest
 from sklearn.datasets import load_breast_cancer
 
 from afterlook.core import candidates as cand
+from afterlook.core import measure as measure_module
 
 FIELDS = ("expression", "case_z", "tail", "tail_method", "adjusted_tail", "beyond_chance", "targets_exposed",
           "other_anomalies_separated", "other_misses_separated", "case_z_by_case", "tail_by_case")
@@ -34,7 +35,7 @@ def _inputs(rows: int, columns: int, targets: int):
 
 
 def _second_pass(names, sample, T, O, quick_rows, monkeypatch):
-    monkeypatch.setattr(cand, "QUICK_ROWS", quick_rows)
+    monkeypatch.setattr(measure_module, "QUICK_ROWS", quick_rows)
     found, tried, _ = cand.generate_and_screen(names, sample, T, None, select=True)
     target_cols = {n: T[:, k] for k, n in enumerate(names)}
     other_cols = {n: O[:, k] for k, n in enumerate(names)}
@@ -102,7 +103,7 @@ def test_suggest_lists_the_same_as_measuring_everything_whole(monkeypatch):
     model = afterlook.fit(train, cases=cases, kind="full")
 
     def listed(subset_rows):
-        monkeypatch.setattr(cand, "QUICK_ROWS", subset_rows)
+        monkeypatch.setattr(measure_module, "QUICK_ROWS", subset_rows)
         monkeypatch.setattr(discovery, "SCREEN_ROWS", subset_rows)
         out = afterlook.suggest(model, cases, train=train, top=10).to_dict()
         out.pop("beyond_chance_total")  # counted over every measured candidate, most on the subset
