@@ -36,8 +36,11 @@ Physics, simplified but kept consistent (all of it invented):
 Failure kinds in ``cases`` (see :data:`FAILURE_KINDS`): a worn impeller
 (current normal for too little water), bearing wear (too hot for the load and
 ambient), seal failure or cavitation (vibration far too high, sometimes with
-a very low suction pressure) and a couple of disputed reports whose readings
-are entirely ordinary.
+a very low suction pressure), a partly blocked suction strainer at a station
+whose inlet is normally high (suction and discharge pressure low for *that*
+station, still inside the fleet's range: only visible against the station's
+own normal) and a couple of disputed reports whose readings are entirely
+ordinary.
 """
 
 from __future__ import annotations
@@ -81,6 +84,11 @@ FAILURE_KINDS: dict[str, str] = {
         "mechanical seal failure or cavitation: vibration far above normal, "
         "sometimes with a very low suction pressure"
     ),
+    "blocked_strainer": (
+        "suction strainer partly blocked: suction pressure (and with it the "
+        "discharge pressure) well below the station's own normal, yet inside "
+        "the range of the whole fleet; only visible against the station's baseline"
+    ),
     "disputed": (
         "reported as a failure, but nothing was found at inspection; the "
         "readings are ordinary (label disputed)"
@@ -107,6 +115,11 @@ _NOTES: dict[str, tuple[str, ...]] = {
     "cavitation": (
         "cavitation damage at impeller eye, low inlet level",
         "inlet tank drawn down, pump cavitating",
+    ),
+    "blocked_strainer": (
+        "suction strainer half clogged with debris, cleaned",
+        "low inlet pressure traced to a fouled strainer basket",
+        "strainer differential high; basket cleared by site crew",
     ),
     "disputed": (
         "operator reported unusual noise; nothing found at inspection",
@@ -146,6 +159,9 @@ _KIND_SHARE = {
     "seal_or_cavitation": 0.0075,
 }
 _MIN_PER_KIND = 15
+#: Stations whose inlet sits high enough (suction base >= 1.8 bar) that a blocked
+#: strainer's drop keeps the suction pressure inside the fleet's range.
+_HIGH_INLET = 1.8
 _N_DISPUTED = 2
 
 _MOTOR_EFFICIENCY = 0.93
@@ -353,6 +369,25 @@ def _seal_or_cavitation(rows: dict, station_idx: np.ndarray, rng) -> tuple[dict,
     return out, cavitation
 
 
+def _blocked_strainer(rows: dict, station_idx: np.ndarray, rng) -> dict:
+    """A partly blocked suction strainer: the inlet loses pressure across the clogged basket.
+
+    Suction pressure drops by 0.45-0.7 bar. The pump still adds its usual
+    pressure rise for the flow the demand asks, so the discharge pressure
+    falls by the same amount; the turbulent inlet adds a little vibration.
+    Flow, current and temperatures are unchanged. At a station with a high
+    inlet the lowered readings are ordinary for the fleet (other stations
+    run that low every day), so only the station's own baseline shows it.
+    """
+    out = {k: v.copy() for k, v in rows.items()}
+    n = station_idx.size
+    drop = rng.uniform(0.7, 1.0, n)
+    out["suction_bar"] = rows["suction_bar"] - drop
+    out["discharge_bar"] = rows["discharge_bar"] - drop
+    out["vibration_mm_s"] = rows["vibration_mm_s"] + rng.uniform(0.1, 0.3, n)
+    return out
+
+
 # ---------------------------------------------------------------------------
 # assembly
 # ---------------------------------------------------------------------------
@@ -396,6 +431,7 @@ def _kind_counts(n_cases: int) -> dict[str, int]:
         kind: max(_MIN_PER_KIND, int(round(share * n_cases)))
         for kind, share in _KIND_SHARE.items()
     }
+    counts["blocked_strainer"] = _MIN_PER_KIND
     counts["disputed"] = _N_DISPUTED
     if sum(counts.values()) > n_cases // 2:
         raise ValueError(
@@ -444,6 +480,10 @@ def generate(seed: int = 7, n_train: int = 6000, n_cases: int = 2400) -> DemoSce
     faulty_worn = _worn_impeller(pool, pool_st, rng)
     faulty_bear = _bearing_wear(pool, pool_st, rng)
     faulty_seal, cavitation = _seal_or_cavitation(pool, pool_st, rng)
+    # its own stream, so adding this kind left the other kinds' draws as they were
+    strainer_rng = np.random.default_rng([seed, 15])
+    faulty_strainer = _blocked_strainer(pool, pool_st, strainer_rng)
+    high_inlet = _station_arrays(pool_st)["suction_base"] >= _HIGH_INLET
     candidates = {
         # Misses by design: every reading in its usual range.
         "worn_impeller": (faulty_worn, _in_usual_range(faulty_worn, lo, hi)),
@@ -452,12 +492,15 @@ def generate(seed: int = 7, n_train: int = 6000, n_cases: int = 2400) -> DemoSce
         "seal_or_cavitation": (faulty_seal, np.ones(n_pool, dtype=bool)),
         # Healthy readings reported as a failure.
         "disputed": (pool, _in_usual_range(pool, lo, hi)),
+        # Misses by design: in the fleet's usual range, low only for their own station.
+        "blocked_strainer": (faulty_strainer, high_inlet & _in_usual_range(faulty_strainer, lo, hi)),
     }
     for kind, (rows, ok) in candidates.items():
         eligible = np.flatnonzero(ok & available)
         if eligible.size < counts[kind]:
             raise RuntimeError(f"not enough eligible rows for {kind}")  # pragma: no cover
-        pos = np.sort(rng.choice(eligible, size=counts[kind], replace=False))
+        draw = strainer_rng if kind == "blocked_strainer" else rng
+        pos = np.sort(draw.choice(eligible, size=counts[kind], replace=False))
         available[pos] = False
         chosen.append((kind, pos, _take(rows, pos)))
 
