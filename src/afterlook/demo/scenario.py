@@ -84,11 +84,8 @@ FAILURE_KINDS: dict[str, str] = {
         "mechanical seal failure or cavitation: vibration far above normal, "
         "sometimes with a very low suction pressure"
     ),
-    "blocked_strainer": (
-        "suction strainer partly blocked: suction pressure (and with it the "
-        "discharge pressure) well below the station's own normal, yet inside "
-        "the range of the whole fleet; only visible against the station's baseline"
-    ),
+    "blocked_strainer": ("suction strainer partly blocked: suction and discharge pressure well below the "
+                         "station's own normal, yet inside the fleet's range (only its baseline shows it)"),
     "disputed": (
         "reported as a failure, but nothing was found at inspection; the "
         "readings are ordinary (label disputed)"
@@ -116,11 +113,9 @@ _NOTES: dict[str, tuple[str, ...]] = {
         "cavitation damage at impeller eye, low inlet level",
         "inlet tank drawn down, pump cavitating",
     ),
-    "blocked_strainer": (
-        "suction strainer half clogged with debris, cleaned",
-        "low inlet pressure traced to a fouled strainer basket",
-        "strainer differential high; basket cleared by site crew",
-    ),
+    "blocked_strainer": ("suction strainer half clogged with debris, cleaned",
+                         "low inlet pressure traced to a fouled strainer basket",
+                         "strainer differential high; basket cleared by site crew"),
     "disputed": (
         "operator reported unusual noise; nothing found at inspection",
         "alarm raised by site crew; inspection found no fault",
@@ -152,7 +147,7 @@ STATIONS: dict[str, tuple[float, float, float, float, float, float, float]] = {
 # review covers the weeks right after it (the two periods never overlap).
 _TRAIN_START = np.datetime64("2026-01-05T00:00")
 
-# Share of each kind among the review cases (about 2.5 % anomalous overall).
+# Share of each kind among the review cases (about 3 % anomalous overall, with the strainers).
 _KIND_SHARE = {
     "worn_impeller": 0.0085,
     "bearing_wear": 0.0085,
@@ -372,19 +367,15 @@ def _seal_or_cavitation(rows: dict, station_idx: np.ndarray, rng) -> tuple[dict,
 def _blocked_strainer(rows: dict, station_idx: np.ndarray, rng) -> dict:
     """A partly blocked suction strainer: the inlet loses pressure across the clogged basket.
 
-    Suction pressure drops by 0.45-0.7 bar. The pump still adds its usual
-    pressure rise for the flow the demand asks, so the discharge pressure
-    falls by the same amount; the turbulent inlet adds a little vibration.
-    Flow, current and temperatures are unchanged. At a station with a high
-    inlet the lowered readings are ordinary for the fleet (other stations
-    run that low every day), so only the station's own baseline shows it.
+    Suction pressure drops by 0.7-1.0 bar; the pump still adds its usual rise for the flow
+    asked, so the discharge pressure falls as much; the turbulent inlet adds a little
+    vibration. At a high-inlet station the lowered readings are ordinary for the fleet
+    (other stations run that low every day): only the station's own baseline shows it.
     """
     out = {k: v.copy() for k, v in rows.items()}
-    n = station_idx.size
-    drop = rng.uniform(0.7, 1.0, n)
-    out["suction_bar"] = rows["suction_bar"] - drop
-    out["discharge_bar"] = rows["discharge_bar"] - drop
-    out["vibration_mm_s"] = rows["vibration_mm_s"] + rng.uniform(0.1, 0.3, n)
+    drop = rng.uniform(0.7, 1.0, station_idx.size)
+    out["suction_bar"], out["discharge_bar"] = rows["suction_bar"] - drop, rows["discharge_bar"] - drop
+    out["vibration_mm_s"] = rows["vibration_mm_s"] + rng.uniform(0.1, 0.3, station_idx.size)
     return out
 
 
