@@ -38,7 +38,7 @@ class PairView:
     @property
     def band_words(self) -> str:
         if self.counts.band is None:
-            return "no normal band (the candidate reads more than these two columns)"
+            return "no normal band (the candidate reads more than these two columns, or each unit's own baseline)"
         lo, hi = PAIR_BAND
         return f"normal band: the candidate between its {lo:.0%} and {hi:.0%} quantiles over normal rows"
 
@@ -65,7 +65,10 @@ def pair_view(session, name: str, expression: str, inputs: tuple[str, str], case
     # zscore(...) and unit baselines frozen on the normal rows, as a fit does
     expr = expressions.parse(expression, known_columns=session.known_columns).fit(normal)
     feature = None
-    if set(expr.columns) <= {x_name, y_name}:
+    # a unit-relative candidate depends on each row's unit (its baseline, its past), not on the two readings
+    # alone: no band can be drawn on their plane
+    by_unit = expr.history > 0 or any(k.split("(", 1)[0] in ("unit_median", "unit_scale") for k in expr.calls)
+    if set(expr.columns) <= {x_name, y_name} and not by_unit:
         def feature(x, y):
             return expr.evaluate({x_name: x, y_name: y})
     case_xy = (float(cases[x_name][i]), float(cases[y_name][i]))
