@@ -34,11 +34,14 @@ class PairView:
     case_xy: tuple[float, float]
     counts: PairCounts
     normal_source: str
+    by_unit: bool = False  # the candidate reads each row's unit (a baseline, its past): no band on this plane
 
     @property
     def band_words(self) -> str:
         if self.counts.band is None:
-            return "no normal band (the candidate reads more than these two columns, or each unit's own baseline)"
+            if self.by_unit:
+                return "no normal band (the candidate reads each unit's own baseline, not these two readings alone)"
+            return "no normal band (the candidate reads more than these two columns)"
         lo, hi = PAIR_BAND
         return f"normal band: the candidate between its {lo:.0%} and {hi:.0%} quantiles over normal rows"
 
@@ -75,4 +78,4 @@ def pair_view(session, name: str, expression: str, inputs: tuple[str, str], case
     counts = pair_counts(normal[x_name], normal[y_name], case_xy, cases[x_name][others], cases[y_name][others],
                          nx=nx, ny=ny, feature=feature)
     return PairView(name, expression, x_name, y_name, str(session.ids[i]), case_xy, counts,
-                    session.training.source)
+                    session.training.source, by_unit)
