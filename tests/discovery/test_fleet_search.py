@@ -196,3 +196,16 @@ def test_demo_try_with_the_unit_relative_candidate_catches_the_strainer_miss(str
     # the search's exact re-fit is the try: the same false alarms added and the same held-out gain
     assert best.false_alarms_added == tried.after.fp - tried.before.fp
     assert best.heldout.gain == pytest.approx(tried.to_dict()["heldout"]["gain"], rel=1e-12, abs=1e-12)
+
+
+def test_several_planted_misses_find_the_unit_candidate_and_the_fold_searches_find_it_again():
+    # construction as above: the planted misses share one mechanism (p low for its own unit), so the
+    # fold searches (each over the misses of the other folds) find the same unit-relative candidate
+    model, cs, tr, targets = _fitted(1, planted=True)
+    session = Session(model, cs, tr)
+    missed = [t for t in targets if not session.scored.flagged[session.row(t)]]
+    result = suggest(session, None, case_ids=missed, top=5)
+    best = next(c for c in result.candidates[:3] if c.kind in ("unit_relative", "unit_standardized"))
+    assert best.inputs == ("p",) and best.beyond_chance
+    h = best.to_dict()["heldout"]
+    assert h["found_in_folds"] is not None and h["found_in_folds"] >= 3, h
