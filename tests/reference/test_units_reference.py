@@ -212,3 +212,17 @@ def test_the_search_s_change_candidate_keeps_the_context_readings_as_past():
     expected = (ordered["x"] - ordered.groupby("unit")["x"].shift(1)).reindex(whole.index).to_numpy()[400:][rows]
     np.testing.assert_array_equal(np.isnan(got), np.isnan(expected))
     np.testing.assert_allclose(got[~np.isnan(got)], expected[~np.isnan(expected)], rtol=0, atol=0)
+
+
+def test_remembered_label_codes_follow_each_array():
+    # apply_baseline remembers each label array's codes (by identity); arrays made and dropped in a loop
+    # reuse ids, so a stale entry would give another array's units. Reference: a plain dict lookup per row.
+    from afterlook.core.units import apply_baseline
+
+    params = {"units": {"A": 1.0, "B": 2.0, "C": 3.0}, "fleet": 9.0}
+    rng = np.random.default_rng(3)
+    for _ in range(200):
+        labels = rng.choice(["A", "B", "C", "D"], rng.integers(1, 40)).astype(object)
+        want = np.array([params["units"].get(u, params["fleet"]) for u in labels])
+        np.testing.assert_array_equal(apply_baseline(params, labels, len(labels), "k"), want)
+        np.testing.assert_array_equal(apply_baseline(params, labels, len(labels), "k"), want)

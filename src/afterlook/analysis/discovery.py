@@ -168,7 +168,8 @@ def suggest(model, cases, train=None, case_ids=None, top: int = 10, *,
                               progress=_stage(progress, "exact statistics", 0.3, 0.35))
     ranked, dropped_collinear = _addable(model, sample, ranked, progress)
     if fleet is not None:  # the same exact pass on the fleet's own mappings, merged into the one ranking
-        more, dropped = fleet.addable(fleet.exact(fleet_found, tried, idx, target_ids, other, other_is_miss, settings))
+        more, dropped = fleet.addable(fleet.exact(fleet_found, tried, idx, target_ids, other, other_is_miss, settings,
+                                                  progress=_stage(progress, "exact statistics", 0.35, 0.35)))
         ranked, dropped_collinear = merged(ranked, more, settings), dropped_collinear + dropped
     if dropped_collinear:
         warnings.append(f"left out {dropped_collinear} candidate(s) that are linear combinations of the model's "
