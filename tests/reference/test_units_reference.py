@@ -226,3 +226,14 @@ def test_remembered_label_codes_follow_each_array():
         want = np.array([params["units"].get(u, params["fleet"]) for u in labels])
         np.testing.assert_array_equal(apply_baseline(params, labels, len(labels), "k"), want)
         np.testing.assert_array_equal(apply_baseline(params, labels, len(labels), "k"), want)
+
+
+def test_numeric_unit_and_time_columns_are_keys_not_readings():
+    # A numeric unit id or time key groups and orders the rows; modelled, a later period's times would sit
+    # beyond the training range and look anomalous. Named explicitly (--columns) they are modelled.
+    frame = _table()
+    numeric = frame.assign(unit=frame["unit"].map({"U1": 1, "U2": 2, "U3": 3, "tiny": 4}),
+                           time=(pd.to_datetime(frame["time"]) - pd.Timestamp("2026-01-01")).dt.total_seconds())
+    model = fit(numeric.dropna(), unit_col="unit", time_col="time")
+    assert model.features == ["x", "y"]
+    assert fit(numeric.dropna(), unit_col="unit", time_col="time", columns=["x", "time"]).features == ["x", "time"]
