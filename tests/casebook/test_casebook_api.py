@@ -9,6 +9,7 @@ histogram counts are recounted naively with plain comparisons.
 from __future__ import annotations
 
 import csv
+import json
 import math
 import re
 from datetime import datetime, timedelta, timezone
@@ -241,3 +242,28 @@ def test_check_scores_the_stored_snapshot_of_a_case_missing_from_the_table(demo,
     with pytest.raises(AfterlookError) as info:
         check_casebook(book, new, without)
     assert demo.worst in info.value.message
+
+
+def test_a_snapshot_without_its_unit_scores_when_the_recipe_reads_no_unit(demo, explained):
+    # The demo model records station and hour but no feature reads them: a snapshot whose context lacks
+    # the station (an entry written before the demo had units) scores as one with it. Reference: the
+    # same snapshot scored with its context (the test above checks that one against the table's row).
+    from afterlook.analysis.trial import try_features
+
+    model = afterlook.load_model(demo.model)
+    assert model.unit_col == "station" and not model.recipe.reads_units
+    new = try_features(model, demo.cases, {demo.name: demo.expression}, train=demo.train).model
+    cases = pd.read_csv(demo.cases)
+    without = cases[cases["id"] != demo.worst]
+    book = Casebook("unused.json")
+    book.upsert(explained)
+    with_context = check_casebook(book, new, without).details[0]["log_density"]
+    bare = json.loads(json.dumps(explained))
+    bare["snapshot"]["context"] = {}
+    book.upsert(bare)
+    assert check_casebook(book, new, without).details[0]["log_density"] == pytest.approx(with_context, rel=1e-12)
+    # a recipe that reads the unit cannot score a snapshot without it: one clear line naming the case
+    reads = try_features(model, demo.cases, {"s": "suction_bar - unit_median(suction_bar)"}, train=demo.train).model
+    with pytest.raises(AfterlookError) as info:
+        check_casebook(book, reads, without)
+    assert demo.worst in info.value.message and "unit column" in info.value.message

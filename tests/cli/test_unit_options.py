@@ -79,3 +79,15 @@ def test_context_gives_the_cases_their_units_past(fitted, run_cli, one_json, tmp
     assert code == 0, err
     doc = one_json(out)
     assert doc["before"]["unscored"] == 0 and doc["after"]["unscored"] == 0
+
+
+def test_the_streamed_engine_takes_a_model_that_records_units_but_reads_none(fitted, demo_written, run_cli,
+                                                                           tmp_path):
+    # the demo model records station and hour, and no feature reads them: chunked scoring is the same
+    code, out, err = run_cli("score", str(demo_written.model), str(demo_written.cases), "--out",
+                             str(tmp_path / "a.csv"), "--engine", "chunked")
+    assert code == 0, err
+    # a model whose features read a unit's baseline and past needs the whole table: refused in one line
+    code, out, err = run_cli("score", str(fitted / "m.json"), str(fitted / "cases.csv"), "--out",
+                             str(tmp_path / "b.csv"), "--engine", "chunked")
+    assert code == 2 and "the memory engine" in err and len(err.strip().splitlines()) == 1

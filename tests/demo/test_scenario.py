@@ -134,13 +134,13 @@ def test_labels_and_notes(demo, kind_of_case):
     cases = demo.cases
     assert set(cases["label"]) == {"anomaly", "normal"}
     anomalous = (cases["label"] == "anomaly").to_numpy()
-    assert 0.02 <= anomalous.mean() <= 0.03
+    assert 0.02 <= anomalous.mean() <= 0.035  # about 3 %: five failure kinds of about 15 cases in 2400
     assert (cases.loc[anomalous, "review_note"].str.len() > 0).all()
     assert (cases.loc[~anomalous, "review_note"] == "").all()
     assert set(demo.kinds) == set(cases.loc[anomalous, "id"])
     assert set(demo.kinds.values()) <= set(FAILURE_KINDS)
     counts = pd.Series(kind_of_case).value_counts()
-    for kind in (*RELATION_KINDS, "seal_or_cavitation"):
+    for kind in (*RELATION_KINDS, "seal_or_cavitation", "blocked_strainer"):
         assert counts[kind] >= 15, kind
     assert all(isinstance(v, str) and v for v in FAILURE_KINDS.values())
 

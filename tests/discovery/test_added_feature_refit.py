@@ -133,3 +133,40 @@ def test_same_fit_reads_columns_as_it_reads_the_matrix():
     assert same_fit(model.density, X, X.mean(axis=0)) is model.density
     other = [c[:-3] for c in columns]
     assert same_fit(model.density, other, column_means(other)) is None
+
+
+UNIT_EXPRESSIONS = [
+    "suction_bar - unit_median(suction_bar)",
+    "(suction_bar - unit_median(suction_bar)) / unit_scale(suction_bar) - "
+    "(ambient_temp_c - unit_median(ambient_temp_c)) / unit_scale(ambient_temp_c)",
+    "motor_current_a / unit_median(motor_current_a) / (flow_m3h / unit_median(flow_m3h))",
+]
+
+
+@pytest.mark.parametrize("kind,shrinkage", [("independent", None), ("full", None), ("full", 0.2)])
+def test_fast_refit_of_a_unit_relative_candidate_equals_try(demo, kind, shrinkage):
+    # The search freezes a unit candidate's baselines itself (analysis/fleet_search.py) and the fast re-fit
+    # uses that frozen expression; reference: try_features, which freezes them again on the training rows.
+    from afterlook.analysis.fleet_search import FleetSearch
+    from afterlook.analysis.session import as_table
+    from afterlook.core import expressions
+    from afterlook.core.candidates import Settings
+
+    tr, cs = as_table(demo.train), as_table(demo.cases)
+    model = afterlook.fit(tr, cases=cs, kind=kind, shrinkage=shrinkage, unit_col="station", time_col="hour",
+                          transform={"hours_since_service": "log(hours_since_service + 1)"})
+    session = Session(model, cs, tr)
+    fleet = FleetSearch.prepare(session, model.recipe.features, Settings())
+    fast = AddedFeatureRefit.prepare(session)
+    for text in UNIT_EXPRESSIONS:
+        expr = expressions.parse(text).with_frozen(fleet.frozen)
+        assert expr.is_fitted
+        outcome = fast.evaluate(expr)
+        full = try_features(model, cs, {"candidate": text}, train=tr)
+        assert full.model.recipe.frozen == {k: v for k, v in fleet.frozen.items() if k in expr.calls}, text
+        np.testing.assert_allclose(outcome.log_density, Session(full.model, cs).scored.log_density, rtol=1e-9,
+                                   atol=1e-9)
+        assert outcome.threshold == pytest.approx(full.threshold_after, rel=1e-9, abs=1e-9)
+        assert outcome.confusion == full.after, text
+    # a change candidate is NaN on each station's first training reading: the search re-fits it in full (try)
+    assert fast.evaluate("suction_bar - lag(suction_bar, 1)") is None

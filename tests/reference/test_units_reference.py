@@ -177,3 +177,63 @@ def test_unit_relative_texts_read_back_as_the_robust_z_against_the_units_baselin
     big = (frame.groupby("unit")["x"].transform("count") >= MIN_UNIT_ROWS).to_numpy()
     ok = big & frame["x"].notna().to_numpy()
     np.testing.assert_allclose(got[ok], ((frame["x"] - med) / mad).to_numpy()[ok], rtol=1e-12)
+
+
+@pytest.mark.parametrize("share", [0.1, 0.5, 1.0])
+def test_the_search_s_change_candidate_on_a_row_subset_is_pandas_shift_on_the_whole_table(share):
+    # The search evaluates `x - lag(x, 1)` on a random subset of rows (its sample, the targets), with the
+    # rest of the table as the units' past (core.unit_candidates.with_past). Reference: pandas
+    # x - groupby(unit)[x].shift(1) on the whole table sorted by (unit, time), read at the subset's rows.
+    from afterlook.core.unit_candidates import unit_relative_texts, with_past
+
+    frame = _table()
+    rng = np.random.default_rng(11)
+    rows = np.sort(rng.choice(len(frame), int(share * len(frame)), replace=False))
+    text = unit_relative_texts("x")["change"]
+    got = expressions.parse(text).evaluate(with_past(_columns(frame), rows, ["x"]))
+    ordered = frame.assign(t=pd.to_datetime(frame["time"])).sort_values(["unit", "t"], kind="mergesort")
+    expected = (ordered["x"] - ordered.groupby("unit")["x"].shift(1)).reindex(frame.index).to_numpy()[rows]
+    np.testing.assert_array_equal(np.isnan(got), np.isnan(expected))
+    np.testing.assert_allclose(got[~np.isnan(got)], expected[~np.isnan(expected)], rtol=0, atol=0)
+
+
+def test_the_search_s_change_candidate_keeps_the_context_readings_as_past():
+    # Cases with --context (readings before them): the subset's past is the other cases and the context.
+    # Reference: pandas shift on the concatenation of context and cases.
+    from afterlook.core.unit_candidates import with_past
+
+    frame = _table()
+    context, cases = frame.iloc[:400].reset_index(drop=True), frame.iloc[400:].reset_index(drop=True)
+    columns = {"x": cases["x"].to_numpy(float), **row_context(cases, "unit", "time", context=context)}
+    rows = np.arange(0, len(cases), 3)
+    got = expressions.parse("x - lag(x, 1)").evaluate(with_past(columns, rows, ["x"]))
+    whole = pd.concat([context, cases], ignore_index=True)
+    ordered = whole.assign(t=pd.to_datetime(whole["time"])).sort_values(["unit", "t"], kind="mergesort")
+    expected = (ordered["x"] - ordered.groupby("unit")["x"].shift(1)).reindex(whole.index).to_numpy()[400:][rows]
+    np.testing.assert_array_equal(np.isnan(got), np.isnan(expected))
+    np.testing.assert_allclose(got[~np.isnan(got)], expected[~np.isnan(expected)], rtol=0, atol=0)
+
+
+def test_remembered_label_codes_follow_each_array():
+    # apply_baseline remembers each label array's codes (by identity); arrays made and dropped in a loop
+    # reuse ids, so a stale entry would give another array's units. Reference: a plain dict lookup per row.
+    from afterlook.core.units import apply_baseline
+
+    params = {"units": {"A": 1.0, "B": 2.0, "C": 3.0}, "fleet": 9.0}
+    rng = np.random.default_rng(3)
+    for _ in range(200):
+        labels = rng.choice(["A", "B", "C", "D"], rng.integers(1, 40)).astype(object)
+        want = np.array([params["units"].get(u, params["fleet"]) for u in labels])
+        np.testing.assert_array_equal(apply_baseline(params, labels, len(labels), "k"), want)
+        np.testing.assert_array_equal(apply_baseline(params, labels, len(labels), "k"), want)
+
+
+def test_numeric_unit_and_time_columns_are_keys_not_readings():
+    # A numeric unit id or time key groups and orders the rows; modelled, a later period's times would sit
+    # beyond the training range and look anomalous. Named explicitly (--columns) they are modelled.
+    frame = _table()
+    numeric = frame.assign(unit=frame["unit"].map({"U1": 1, "U2": 2, "U3": 3, "tiny": 4}),
+                           time=(pd.to_datetime(frame["time"]) - pd.Timestamp("2026-01-01")).dt.total_seconds())
+    model = fit(numeric.dropna(), unit_col="unit", time_col="time")
+    assert model.features == ["x", "y"]
+    assert fit(numeric.dropna(), unit_col="unit", time_col="time", columns=["x", "time"]).features == ["x", "time"]

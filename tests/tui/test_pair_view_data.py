@@ -34,3 +34,13 @@ def test_a_candidate_reading_a_third_column_has_no_band(session):
     v = pair_view(session, "x", "motor_current_a / hydraulic_power + 0 * flow_m3h",
                   ("motor_current_a", "hydraulic_power"), WORST)
     assert v.counts.band is None and v.counts.in_band is None
+
+
+def test_a_unit_relative_pair_has_no_band_but_its_readings_are_drawn(session):
+    # its value depends on each row's station (the demo model records it), not on the two readings alone
+    text = ("(suction_bar - unit_median(suction_bar)) / unit_scale(suction_bar) - "
+            "(ambient_temp_c - unit_median(ambient_temp_c)) / unit_scale(ambient_temp_c)")
+    v = pair_view(session, "s", text, ("suction_bar", "ambient_temp_c"), WORST)
+    assert v.counts.band is None and "own baseline" in v.band_words
+    assert v.case_xy == (session.scope("cases")["ambient_temp_c"][session.row(WORST)],
+                         session.scope("cases")["suction_bar"][session.row(WORST)])

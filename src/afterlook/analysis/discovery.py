@@ -23,6 +23,7 @@ from ..core.search_inputs import finite_sample, seeded_subset
 from ..core.recipe import free_name
 from ..core.blas import with_limited_blas
 from .added_refit import AddedFeatureRefit, Refitted
+from .fleet_search import FleetSearch, merged
 from .fitting import refit
 from .model import Model
 from .session import Session, prepare
@@ -153,6 +154,10 @@ def suggest(model, cases, train=None, case_ids=None, top: int = 10, *,
     screened = seeded_subset(sample, SCREEN_ROWS, settings.random_state)
     candidates, tried, _ = cand.generate_and_screen(names, screened, T, shaped, settings, select=True,
                                                     progress=_stage(progress, "screening candidates", 0.15, 0.3))
+    # with a unit column: unit-relative and change candidates (analysis/fleet_search.py), counted as tried
+    fleet = FleetSearch.prepare(session, names, settings)
+    fleet_found = fleet.screen(idx) if fleet is not None else []
+    tried += fleet.tried if fleet is not None else 0
     _report(progress, "exact statistics", 0.35)
     targets = set(idx)
     other = np.array([i for i in np.flatnonzero(labels) if i not in targets and np.all(np.isfinite(C[i]))],
@@ -166,6 +171,10 @@ def suggest(model, cases, train=None, case_ids=None, top: int = 10, *,
                               progress=_stage(progress, "exact statistics", 0.3, 0.35), measure=measure,
                               exact_first=max(exact, top))
     ranked, dropped_collinear = _addable(model, sample, ranked, progress)
+    if fleet is not None:  # the same exact pass on the fleet's own mappings, merged into the one ranking
+        more, dropped = fleet.addable(fleet.exact(fleet_found, tried, idx, target_ids, other, other_is_miss, settings,
+                                                  progress=_stage(progress, "exact statistics", 0.35, 0.35)))
+        ranked, dropped_collinear = merged(ranked, more, settings), dropped_collinear + dropped
     if dropped_collinear:
         warnings.append(f"left out {dropped_collinear} candidate(s) that are linear combinations of the model's "
                         "features (a full covariance cannot take them)")
@@ -192,7 +201,7 @@ def suggest(model, cases, train=None, case_ids=None, top: int = 10, *,
     warnings += refitter.warnings
     failed = refitter.failed
     if folds is not None and len(idx) > 1:
-        _stability(final, names, sample, screened, C, idx, folds, shaped, settings, top, progress)
+        _stability(final, names, sample, screened, C, idx, folds, shaped, settings, top, progress, fleet=fleet)
     _report(progress, "done", 1.0)
     return SuggestResult(target_ids, tried, final, training.source, A.shape[0], settings.chance_level, warnings,
                          beyond_chance_total=beyond_total, dropped_collinear=dropped_collinear,
@@ -246,7 +255,8 @@ def _folds(session: Session, warnings: list[str]):
         return None
 
 
-def _stability(final: list, names, sample, screened, C, idx, folds, shaped, settings, top: int, progress=None) -> None:
+def _stability(final: list, names, sample, screened, C, idx, folds, shaped, settings, top: int, progress=None,
+               fleet: FleetSearch | None = None) -> None:
     """In how many folds each listed candidate is found again (in the top ``top``) from the other folds' misses."""
     listed = {c.expression for c in final}
     found = dict.fromkeys(listed, 0)
@@ -260,8 +270,14 @@ def _stability(final: list, names, sample, screened, C, idx, folds, shaped, sett
         searched += 1
         T = C[keep]
         cands, tried, _ = cand.generate_and_screen(names, screened, T, shaped, settings, select=True)
+        more = fleet.screen(keep) if fleet is not None else []
+        tried += fleet.tried if fleet is not None else 0
         again = cand.second_pass(cands, tried, sample, {n: T[:, k] for k, n in enumerate(names)},
                                  [str(i) for i in keep], None, None, settings, exact_first=top)
+        if fleet is not None:
+            again = merged(again, fleet.exact(more, tried, keep, [str(i) for i in keep], None, None, settings,
+                                              exact_first=top), settings)
+            again = cand.measured_whole(again, top, settings)
         for c in again[:top]:
             if c.expression in found:
                 found[c.expression] += 1

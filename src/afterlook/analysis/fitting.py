@@ -100,7 +100,8 @@ def fit(
 
     constants: dict[str, float] = {}
     if recipe is None:
-        recipe = _build_recipe(table, normal_frame, columns, derive, transform, warnings, constants, columns_of)
+        recipe = _build_recipe(table, normal_frame, columns, derive, transform, warnings, constants, columns_of,
+                               keys=(unit_col, time_col))
     columns_map = columns_of(recipe.required_columns())
     # Lambdas and frozen statistics are fitted on the rows whose raw inputs are
     # all finite (the rows a streamed fit sees too), so both engines give the
@@ -262,11 +263,12 @@ def checked_base_columns(table: Table, columns) -> list[str]:
 
 
 def _build_recipe(table: Table, normal_frame: pd.DataFrame, columns, derive, transform, warnings,
-                  constants: dict | None = None, columns_of=None) -> Recipe:
+                  constants: dict | None = None, columns_of=None, keys=()) -> Recipe:
     if columns:
         base = checked_base_columns(table, columns)
     else:
-        base = list(table.numeric_columns)
+        # a numeric unit id or time key orders and groups the rows; it is not a reading to model
+        base = [c for c in table.numeric_columns if c not in {k for k in keys if k}]
         values = (columns_of or (lambda names: numeric_columns_of(normal_frame, names)))(base)
         constant = [c for c in base if _is_constant(values[c])] if len(normal_frame) else []
         if constant:

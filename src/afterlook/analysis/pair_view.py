@@ -34,10 +34,13 @@ class PairView:
     case_xy: tuple[float, float]
     counts: PairCounts
     normal_source: str
+    by_unit: bool = False  # the candidate reads each row's unit (a baseline, its past): no band on this plane
 
     @property
     def band_words(self) -> str:
         if self.counts.band is None:
+            if self.by_unit:
+                return "no normal band (the candidate reads each unit's own baseline, not these two readings alone)"
             return "no normal band (the candidate reads more than these two columns)"
         lo, hi = PAIR_BAND
         return f"normal band: the candidate between its {lo:.0%} and {hi:.0%} quantiles over normal rows"
@@ -65,11 +68,14 @@ def pair_view(session, name: str, expression: str, inputs: tuple[str, str], case
     # zscore(...) and unit baselines frozen on the normal rows, as a fit does
     expr = expressions.parse(expression, known_columns=session.known_columns).fit(normal)
     feature = None
-    if set(expr.columns) <= {x_name, y_name}:
+    # a unit-relative candidate depends on each row's unit (its baseline, its past), not on the two readings
+    # alone: no band can be drawn on their plane
+    by_unit = expr.history > 0 or any(k.split("(", 1)[0] in ("unit_median", "unit_scale") for k in expr.calls)
+    if set(expr.columns) <= {x_name, y_name} and not by_unit:
         def feature(x, y):
             return expr.evaluate({x_name: x, y_name: y})
     case_xy = (float(cases[x_name][i]), float(cases[y_name][i]))
     counts = pair_counts(normal[x_name], normal[y_name], case_xy, cases[x_name][others], cases[y_name][others],
                          nx=nx, ny=ny, feature=feature)
     return PairView(name, expression, x_name, y_name, str(session.ids[i]), case_xy, counts,
-                    session.training.source)
+                    session.training.source, by_unit)

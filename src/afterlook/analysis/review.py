@@ -456,6 +456,14 @@ def _score_snapshot(model: Model, entry: dict, cid: str, table) -> float:
         raise AfterlookError(f"case {cid!r} of the casebook is not in {where} and its entry has no stored snapshot",
                              title="Unknown case")
     frame = pd.DataFrame({str(k): [np.nan if v is None else v] for k, v in columns.items()})
+    context = snapshot.get("context") if isinstance(snapshot.get("context"), dict) else {}
+    for col in (model.unit_col, model.time_col):  # the case's unit and time, kept with its context
+        if col and col not in frame.columns and context.get(col) is not None:
+            frame[col] = [context[col]]
+    if model.unit_col and not model.recipe.reads_units and model.unit_col not in frame.columns:
+        import dataclasses
+
+        model = dataclasses.replace(model, unit_col=None, time_col=None)  # recorded, never read by a feature
     try:
         return float(model.log_density(frame)[0])
     except AfterlookError as exc:

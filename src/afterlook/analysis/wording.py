@@ -128,3 +128,22 @@ def stability_text(c) -> str:
     if h is None or h.found_in_folds is None or not h.stability_folds:
         return "n/a"
     return f"{h.found_in_folds}/{h.stability_folds}"
+
+
+#: The candidate kinds of a search with a unit column, in words (the CLI table and the workbench name them;
+#: the pair kinds read from their expression).
+UNIT_KIND_WORDS = {
+    "unit_relative": "vs its unit's baseline",
+    "unit_standardized": "vs its unit's baseline, in unit sd",
+    "change": "change since the previous reading",
+    "unit_standardized_difference": "pair, each vs its unit",
+    "unit_ratio": "pair, each over its unit's median",
+}
+#: What the unit functions in a candidate's text mean (the legend says it when one is listed).
+UNIT_FUNCTIONS_WORDS = ("unit_median, unit_scale: the unit's own median and spread (MAD x 1.4826), frozen from "
+                        "its normal training rows; lag(x, 1): the unit's previous reading")
+
+
+def kind_words(kind: str) -> str | None:
+    """A unit kind in words, or None for the pair kinds (their expression says what they are)."""
+    return UNIT_KIND_WORDS.get(kind)

@@ -6,7 +6,8 @@ import math
 
 from ..core.errors import AfterlookError
 from ..analysis import shown
-from ..analysis.wording import candidate_verdict, flag_word, flip_words, heldout_gain_text, stability_text
+from ..analysis.wording import (UNIT_FUNCTIONS_WORDS, candidate_verdict, flag_word, flip_words, heldout_gain_text,
+                                kind_words, stability_text)
 from ..core.errors import EXIT_OK
 from .inputs import table_options
 from .output import emit_json, warn
@@ -104,7 +105,10 @@ def suggest_table(result):
     for k, c in enumerate(result.candidates, 1):
         fa = "n/a" if c.false_alarms_added is None else f"{c.false_alarms_added:+d}"
         caught = "n/a" if c.catches_targets is None else f"{c.catches_targets}/{n_targets}"
-        table.add_row(str(k), c.expression, shown.z(c.case_z), shown.tail(c.adjusted_tail), caught, fa,
+        expression = Text(c.expression)
+        if kind_words(c.kind):  # a unit kind: what it compares, in words
+            expression.append(f"\n({kind_words(c.kind)})", style="dim")
+        table.add_row(str(k), expression, shown.z(c.case_z), shown.tail(c.adjusted_tail), caught, fa,
                       heldout_gain_text(c), stability_text(c), Text(candidate_verdict(c), style=styles.get(c.verdict, "dim")))
     folds = f"{result.heldout_folds}-fold" if result.heldout_folds else "K-fold"
     note = Text(suggest_legend(result, folds), style="dim")
@@ -139,6 +143,8 @@ def suggest_legend(result, folds: str) -> str:
         f"held-out F1: F1 change on cases the threshold was not picked on ({folds})",
         "found: fold searches that found the candidate again",
     ]
+    if any(kind_words(c.kind) for c in result.candidates):
+        parts.append(UNIT_FUNCTIONS_WORDS)
     seen = [v for v in _VERDICT_WORDS if any(c.verdict == v for c in result.candidates)]
     if seen:
         parts.append("verdicts: " + ", ".join(_VERDICT_WORDS[v] for v in seen))

@@ -176,7 +176,7 @@ def _run_streamed(args) -> int:
     if args.context:
         raise AfterlookError("--context needs the memory engine; drop --engine")
     model = load_model(args.model)
-    if model.unit_col:
+    if model.unit_col and model.recipe.reads_units:  # a model that only records its unit column streams as before
         raise AfterlookError(f"the model reads units ('{model.unit_col}'): a unit's baselines and past need the "
                              "whole table, so score it with the memory engine (drop --engine)")
     # The column rules (which columns are context, not modelled) said once, from the file's first rows;

@@ -17,6 +17,25 @@ shaped_difference      standardized difference of the shaped        a shaping
                        columns (log or power transform)             transform
 =====================  ==========================================  ==============
 
+With a unit column (``--unit-col``) the search adds the unit-relative and
+change kinds of :mod:`afterlook.core.unit_candidates` (each column against
+its unit's own baseline, ``x - unit_median(x)`` and
+``(x - unit_median(x)) / unit_scale(x)``; its change since the unit's
+previous reading, ``x - lag(x, 1)``, with a time column; and the
+standardized difference and ratio of two unit-relative columns). They go
+through the same passes, the same chance guard (the candidates tried count
+them) and the same ranking:
+
+=============================  ==================================================
+kind                           expression
+=============================  ==================================================
+unit_relative                  ``x - unit_median(x)``
+unit_standardized              ``(x - unit_median(x)) / unit_scale(x)``
+change                         ``x - lag(x, 1)`` (needs ``--time-col``)
+unit_standardized_difference   difference of two unit-standardized columns
+unit_ratio                     ``a / unit_median(a) / (b / unit_median(b))``
+=============================  ==================================================
+
 **Three passes.**
 
 1. *Moments without materialising anything.* The mean and variance of every
@@ -96,7 +115,9 @@ from .tails import (  # noqa: F401 - part of this module's interface
     tail_probability,
 )
 
-KINDS = ("ratio", "log_ratio", "standardized_difference", "product", "square_ratio", "shaped_difference")
+KINDS = ("ratio", "log_ratio", "standardized_difference", "product", "square_ratio", "shaped_difference",
+         # with a unit column (core/unit_candidates.py)
+         "unit_relative", "unit_standardized", "change", "unit_standardized_difference", "unit_ratio")
 #: verdicts in ranking order, and what each tells a reviewer
 VERDICTS = {
     "holds-up": "beyond chance, and adding it raised F1 on held-out cases, in no fold lower, beyond noise",
@@ -153,7 +174,7 @@ class Candidate:
 
     expression: str
     kind: str
-    inputs: tuple[str, str]
+    inputs: tuple[str, ...]  # the pair (a, b); one column for the single-column unit kinds
     r: float  # correlation of the input pair in the normal population
     first_pass_z: float = float("nan")
     case_z: float = float("nan")  # robust z of the target (median over several)
@@ -185,11 +206,13 @@ class Candidate:
     @property
     def name(self) -> str:
         """A derived-feature name for the candidate (identifier-safe)."""
-        a, b = (_ident(x) for x in self.inputs)
+        a, b = (_ident(x) for x in (*self.inputs, "")[:2])
         pattern = {
             "ratio": "{a}_per_{b}", "log_ratio": "log_{a}_per_{b}", "product": "{a}_times_{b}",
             "square_ratio": "{a}_sq_per_{b}", "standardized_difference": "{a}_vs_{b}",
             "shaped_difference": "shaped_{a}_vs_{b}",
+            "unit_relative": "{a}_vs_unit", "unit_standardized": "{a}_unit_z", "change": "{a}_change",
+            "unit_standardized_difference": "{a}_vs_{b}_in_unit", "unit_ratio": "{a}_per_{b}_in_unit",
         }.get(self.kind, "{a}_{b}")
         if self.kind in ("ratio", "square_ratio"):
             # the orientation is in the expression: numerator first

@@ -17,9 +17,14 @@ from . import expressions
 from .chance import chance_verdict
 from .search_inputs import seeded_subset
 from .tails import Deviations
+from .units import PAST, TIMES, UNITS
 
 if TYPE_CHECKING:
     from .candidates import Candidate, Settings
+
+#: Kinds whose ``r`` is the correlation of two raw columns, as the moment screen computed it on the rows it
+#: read (:mod:`afterlook.core.candidate_pairs`); measured whole, it is taken again on the whole sample.
+RAW_PAIR_KINDS = ("ratio", "log_ratio", "standardized_difference", "product", "square_ratio", "shaped_difference")
 
 __all__ = ["QUICK_ROWS", "EXACT_FIRST", "RobustMeasure", "is_whole", "measured_whole"]
 
@@ -48,8 +53,13 @@ class RobustMeasure:
         self.others = other_anomalies is not None and other_is_miss is not None and len(other_is_miss) > 0
         self.other_anomalies, self.other_is_miss = other_anomalies, other_is_miss
         self.n = len(next(iter(sample.values())))
-        quick = seeded_subset(sample, QUICK_ROWS, settings.random_state)
-        self.quick_sample = None if quick is sample else quick
+        # a sample that carries each row's unit and its units' past (the fleet search's) is measured whole:
+        # a subset of its rows would lose the previous readings lag() reads
+        if any(k in sample for k in (UNITS, TIMES, PAST)):
+            self.quick_sample = None
+        else:
+            quick = seeded_subset(sample, QUICK_ROWS, settings.random_state)
+            self.quick_sample = None if quick is sample else quick
 
     def quickly(self, c: Candidate) -> bool:
         """Measure ``c`` on the subset (on the whole sample when it is small); False: it cannot be measured."""
@@ -61,8 +71,11 @@ class RobustMeasure:
 
     def _measure(self, c: Candidate, sample) -> bool:
         settings = self.settings
-        # zscore(...) in a candidate is frozen on the normal rows it is measured on (never on the targets)
-        expr = c.parsed = expressions.parse(c.expression).fit(sample)
+        if c.measured_by is None and c.parsed is not None and c.parsed.is_fitted:
+            expr = c.parsed  # frozen before the search measured it (unit baselines: on the rows try freezes them on)
+        else:
+            # zscore(...) in a candidate is frozen on the normal rows it is measured on (never on the targets)
+            expr = c.parsed = expressions.parse(c.expression).fit(sample)
         v = expr.evaluate(sample)
         v = v[np.isfinite(v)]
         if v.size < 30 or v.std() == 0:
@@ -98,7 +111,8 @@ class RobustMeasure:
         c.measured_by = self
         if sample is self.sample:
             c.rows_used = self.n
-            c.r = self._correlation(c.inputs)
+            if c.kind in RAW_PAIR_KINDS:
+                c.r = self._correlation(c.inputs)
         else:
             c.rows_used = -len(next(iter(sample.values())))
         return True

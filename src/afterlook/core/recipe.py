@@ -247,6 +247,14 @@ class Recipe:
         """Earlier readings of its unit a row needs for every feature (lag, rolling_median; an upper bound)."""
         return sum(self._parsed[name].history for name, _ in self.derived)
 
+    @property
+    def reads_units(self) -> bool:
+        """Whether a feature reads each row's unit (a baseline: unit_median, unit_scale) or its past (lag,
+        rolling_median). A model can record a unit column that its recipe never reads."""
+        from .units import BASELINES
+
+        return self.history > 0 or any(k.split("(", 1)[0] in BASELINES for k in self.stateful_calls)
+
     def needs_fit(self) -> bool:
         """Whether :meth:`fit` has something to compute: a lambda or a frozen statistic."""
         return (any(t.kind in POWER_KINDS and t.lmbda is None for t in self.transforms.values())

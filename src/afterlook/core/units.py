@@ -49,6 +49,8 @@ that read the table.
 
 from __future__ import annotations
 
+import weakref
+
 import numpy as np
 
 from .errors import AfterlookError
@@ -104,12 +106,37 @@ def fit_baseline(function: str, argument: str, key: str, values: np.ndarray, uni
             "fallback_units": too_few, "min_rows": MIN_UNIT_ROWS, "rows": int(ok.sum())}
 
 
+#: The distinct labels and each row's code of the last few unit-label arrays seen (by identity, checked by a
+#: weak reference): a search evaluates hundreds of unit candidates on the same few row sets, and sorting the
+#: labels again for each call was most of its cost. Label arrays are never changed in place.
+_CODES: dict[int, tuple] = {}
+_CODES_SIZE = 8
+
+
+def _label_codes(units) -> tuple[np.ndarray, np.ndarray]:
+    """``np.unique(labels as str, return_inverse=True)`` of a unit-label array, remembered per array."""
+    if isinstance(units, np.ndarray):
+        hit = _CODES.get(id(units))
+        if hit is not None and hit[0]() is units and hit[1] == units.shape:
+            return hit[2], hit[3]
+    names, inverse = np.unique(np.asarray(units, dtype=object).astype(str), return_inverse=True)
+    if isinstance(units, np.ndarray):
+        try:
+            while len(_CODES) >= _CODES_SIZE:
+                _CODES.pop(next(iter(_CODES)), None)
+        except (StopIteration, RuntimeError):  # another thread emptied or changed it: nothing to drop
+            pass
+        key = id(units)
+        # the entry goes with its array (a dead array's codes are never kept, and its id can be reused)
+        _CODES[key] = (weakref.ref(units, lambda _, key=key: _CODES.pop(key, None)), units.shape, names, inverse)
+    return names, inverse
+
+
 def apply_baseline(params: dict, units, n: int, key: str) -> np.ndarray:
     """Each row's unit statistic (the fleet's for a unit without its own)."""
     if units is None:
         raise AfterlookError(f"{key} needs the unit of each row (--unit-col)")
-    labels = np.asarray(units, dtype=object).astype(str)
-    names, inverse = np.unique(labels, return_inverse=True)
+    names, inverse = _label_codes(units)
     table = np.array([params["units"].get(str(u), params["fleet"]) for u in names], dtype=np.float64)
     out = table[inverse] if len(names) else np.empty(0)
     return np.broadcast_to(out, (n,)) if out.size != n else out

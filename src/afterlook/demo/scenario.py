@@ -36,8 +36,11 @@ Physics, simplified but kept consistent (all of it invented):
 Failure kinds in ``cases`` (see :data:`FAILURE_KINDS`): a worn impeller
 (current normal for too little water), bearing wear (too hot for the load and
 ambient), seal failure or cavitation (vibration far too high, sometimes with
-a very low suction pressure) and a couple of disputed reports whose readings
-are entirely ordinary.
+a very low suction pressure), a partly blocked suction strainer at a station
+whose inlet is normally high (suction and discharge pressure low for *that*
+station, still inside the fleet's range: only visible against the station's
+own normal) and a couple of disputed reports whose readings are entirely
+ordinary.
 """
 
 from __future__ import annotations
@@ -81,6 +84,8 @@ FAILURE_KINDS: dict[str, str] = {
         "mechanical seal failure or cavitation: vibration far above normal, "
         "sometimes with a very low suction pressure"
     ),
+    "blocked_strainer": ("suction strainer partly blocked: suction and discharge pressure well below the "
+                         "station's own normal, yet inside the fleet's range (only its baseline shows it)"),
     "disputed": (
         "reported as a failure, but nothing was found at inspection; the "
         "readings are ordinary (label disputed)"
@@ -108,6 +113,9 @@ _NOTES: dict[str, tuple[str, ...]] = {
         "cavitation damage at impeller eye, low inlet level",
         "inlet tank drawn down, pump cavitating",
     ),
+    "blocked_strainer": ("suction strainer half clogged with debris, cleaned",
+                         "low inlet pressure traced to a fouled strainer basket",
+                         "strainer differential high; basket cleared by site crew"),
     "disputed": (
         "operator reported unusual noise; nothing found at inspection",
         "alarm raised by site crew; inspection found no fault",
@@ -139,13 +147,16 @@ STATIONS: dict[str, tuple[float, float, float, float, float, float, float]] = {
 # review covers the weeks right after it (the two periods never overlap).
 _TRAIN_START = np.datetime64("2026-01-05T00:00")
 
-# Share of each kind among the review cases (about 2.5 % anomalous overall).
+# Share of each kind among the review cases (about 3 % anomalous overall, with the strainers).
 _KIND_SHARE = {
     "worn_impeller": 0.0085,
     "bearing_wear": 0.0085,
     "seal_or_cavitation": 0.0075,
 }
 _MIN_PER_KIND = 15
+#: Stations whose inlet sits high enough (suction base >= 1.8 bar) that a blocked
+#: strainer's drop keeps the suction pressure inside the fleet's range.
+_HIGH_INLET = 1.8
 _N_DISPUTED = 2
 
 _MOTOR_EFFICIENCY = 0.93
@@ -353,6 +364,21 @@ def _seal_or_cavitation(rows: dict, station_idx: np.ndarray, rng) -> tuple[dict,
     return out, cavitation
 
 
+def _blocked_strainer(rows: dict, station_idx: np.ndarray, rng) -> dict:
+    """A partly blocked suction strainer: the inlet loses pressure across the clogged basket.
+
+    Suction pressure drops by 0.7-1.0 bar; the pump still adds its usual rise for the flow
+    asked, so the discharge pressure falls as much; the turbulent inlet adds a little
+    vibration. At a high-inlet station the lowered readings are ordinary for the fleet
+    (other stations run that low every day): only the station's own baseline shows it.
+    """
+    out = {k: v.copy() for k, v in rows.items()}
+    drop = rng.uniform(0.7, 1.0, station_idx.size)
+    out["suction_bar"], out["discharge_bar"] = rows["suction_bar"] - drop, rows["discharge_bar"] - drop
+    out["vibration_mm_s"] = rows["vibration_mm_s"] + rng.uniform(0.1, 0.3, station_idx.size)
+    return out
+
+
 # ---------------------------------------------------------------------------
 # assembly
 # ---------------------------------------------------------------------------
@@ -396,6 +422,7 @@ def _kind_counts(n_cases: int) -> dict[str, int]:
         kind: max(_MIN_PER_KIND, int(round(share * n_cases)))
         for kind, share in _KIND_SHARE.items()
     }
+    counts["blocked_strainer"] = _MIN_PER_KIND
     counts["disputed"] = _N_DISPUTED
     if sum(counts.values()) > n_cases // 2:
         raise ValueError(
@@ -444,6 +471,10 @@ def generate(seed: int = 7, n_train: int = 6000, n_cases: int = 2400) -> DemoSce
     faulty_worn = _worn_impeller(pool, pool_st, rng)
     faulty_bear = _bearing_wear(pool, pool_st, rng)
     faulty_seal, cavitation = _seal_or_cavitation(pool, pool_st, rng)
+    # its own stream, so adding this kind left the other kinds' draws as they were
+    strainer_rng = np.random.default_rng([seed, 15])
+    faulty_strainer = _blocked_strainer(pool, pool_st, strainer_rng)
+    high_inlet = _station_arrays(pool_st)["suction_base"] >= _HIGH_INLET
     candidates = {
         # Misses by design: every reading in its usual range.
         "worn_impeller": (faulty_worn, _in_usual_range(faulty_worn, lo, hi)),
@@ -452,12 +483,15 @@ def generate(seed: int = 7, n_train: int = 6000, n_cases: int = 2400) -> DemoSce
         "seal_or_cavitation": (faulty_seal, np.ones(n_pool, dtype=bool)),
         # Healthy readings reported as a failure.
         "disputed": (pool, _in_usual_range(pool, lo, hi)),
+        # Misses by design: in the fleet's usual range, low only for their own station.
+        "blocked_strainer": (faulty_strainer, high_inlet & _in_usual_range(faulty_strainer, lo, hi)),
     }
     for kind, (rows, ok) in candidates.items():
         eligible = np.flatnonzero(ok & available)
         if eligible.size < counts[kind]:
             raise RuntimeError(f"not enough eligible rows for {kind}")  # pragma: no cover
-        pos = np.sort(rng.choice(eligible, size=counts[kind], replace=False))
+        draw = strainer_rng if kind == "blocked_strainer" else rng
+        pos = np.sort(draw.choice(eligible, size=counts[kind], replace=False))
         available[pos] = False
         chosen.append((kind, pos, _take(rows, pos)))
 

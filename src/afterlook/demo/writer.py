@@ -18,6 +18,10 @@ DEMO_KIND = "independent"
 # power as a derived feature, and the skewed service counter log-shaped.
 DEMO_DERIVE = {"hydraulic_power": "flow_m3h * (discharge_bar - suction_bar)"}
 DEMO_TRANSFORM = {"hours_since_service": "log(hours_since_service + 1)"}
+# Each row's station and hour: the model records them, so the search can set a reading against its
+# own station's baseline (unit_median, unit_scale) and its previous reading (lag).
+DEMO_UNIT_COL = "station"
+DEMO_TIME_COL = "hour"
 
 
 # The demo leaves this mark in its folder: only a marked (or empty) folder is written into again,
@@ -80,7 +84,7 @@ def write_demo(folder: Path, seed: int = 7):
     train = load_table(train_path)
     cases = load_table(cases_path, require_labels=True)
     model = fit(train, cases=cases, kind=DEMO_KIND, threshold="f1", derive=DEMO_DERIVE,
-                    transform=DEMO_TRANSFORM)
+                    transform=DEMO_TRANSFORM, unit_col=DEMO_UNIT_COL, time_col=DEMO_TIME_COL)
     model.save(model_path)
     return train_path, cases_path, model_path
 

@@ -7,7 +7,7 @@ from textual.app import ComposeResult
 from textual.containers import Horizontal, Vertical
 from textual.widgets import DataTable, ProgressBar, Static
 
-from ...analysis.wording import candidate_verdict, heldout_gain_text, stability_text
+from ...analysis.wording import candidate_verdict, heldout_gain_text, kind_words, stability_text
 from ...analysis import shown
 from ...core.expressions import FUNCTIONS
 from .. import format as fmt
@@ -177,7 +177,8 @@ class CandidatesPanel(Vertical):
         t.append(f"{index + 1}: {fmt.plain(c.name)} = ", style="bold")
         t.append(fmt.plain(c.expression))
         good = c.verdict == "holds-up" or (not c.verdict and c.beyond_chance)
-        t.append(f"  ({candidate_verdict(c)})", style=self._style("candidates--finding" if good else "candidates--chance"))
+        what = f"{kind_words(c.kind)}; " if kind_words(c.kind) else ""  # a unit kind, in words
+        t.append(f"  ({what}{candidate_verdict(c)})", style=self._style("candidates--finding" if good else "candidates--chance"))
         detail.update(t)
 
     def on_data_table_row_highlighted(self, event: DataTable.RowHighlighted) -> None:

@@ -130,7 +130,8 @@ class PairPanel(Vertical):
             lo, hi = PAIR_BAND
             parts.append(f"· band edge (the candidate's {lo:.0%}-{hi:.0%} on normal rows)")
         elif c.band is None:
-            parts.append("no band: the candidate reads other columns too")
+            parts.append("no band: the candidate reads each unit's own baseline" if v.by_unit
+                         else "no band: the candidate reads other columns too")
         if "others" in used:
             parts.append("x other anomalies")
         if "case" in used:
