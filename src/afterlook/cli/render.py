@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import os
+
 import math
 
 from rich import box
@@ -219,5 +221,13 @@ class PlainConsole(Console):
                 yield Segment(printable(segment.text, keep_newlines=True), segment.style, segment.control)
 
 
+#: Width of output that goes to a file or a pipe (no terminal to ask) when COLUMNS does not say: wide enough
+#: that the tables keep their numbers whole (at Rich's default 80 a z column read "-0.…").
+PIPE_WIDTH = 120
+
+
 def console(stderr: bool = False) -> Console:
-    return PlainConsole(stderr=stderr, highlight=False, soft_wrap=False, markup=False, emoji=False)
+    c = PlainConsole(stderr=stderr, highlight=False, soft_wrap=False, markup=False, emoji=False)
+    if not c.is_terminal and not os.environ.get("COLUMNS", "").strip().isdigit():
+        c.width = PIPE_WIDTH
+    return c
