@@ -10,6 +10,7 @@ from __future__ import annotations
 import json
 import pickle
 import shutil
+from pathlib import Path
 
 import numpy as np
 import pytest
@@ -86,6 +87,48 @@ def test_a_full_model_with_a_power_transform_round_trips_exactly(tmp_path, demo_
     back = model_from_parameters_document(json.loads(json.dumps(parameters_document(model))), source="test")
     cases = afterlook.load_table(demo_written.cases).frame
     np.testing.assert_array_equal(back.log_density(cases), model.log_density(cases))
+
+
+def test_frozen_statistics_and_units_travel_in_the_parameter_document(run_cli, demo_written, tmp_path):
+    # A derived feature reading zscore(...) and each station's own baseline (unit_median, unit_scale) can only be
+    # computed with the statistics frozen at fit: export must write them, and import must score the cases as the
+    # model does (reference: the model's own log-density), also when the threshold is picked on the cases.
+    import jsonschema
+
+    import afterlook.store
+    from afterlook.analysis.interop import parameters_document
+
+    schema = Path(afterlook.store.__file__).parent / "schemas" / "afterlook-parameters.schema.json"
+
+    train = afterlook.load_table(demo_written.train)
+    rel = "(suction_bar - unit_median(suction_bar)) / unit_scale(suction_bar)"
+    model = afterlook.fit(train, columns=["suction_bar", "motor_current_a"], derive={"rel": rel, "zq": "zscore(flow_m3h)"},
+                          unit_col="station", time_col="hour", threshold="value:-9")
+    model.save(tmp_path / "m.json")
+    doc = parameters_document(model)
+    jsonschema.validate(doc, json.loads(schema.read_text()))  # the published schema accepts it
+    assert {e["function"] for e in doc["frozen"]} == {"unit_median", "unit_scale", "zscore"}
+    assert doc["units"] == {"unit_col": "station", "time_col": "hour"}
+    code, _, err = run_cli("model", "export", str(tmp_path / "m.json"), "--format", "json",
+                           "--out", str(tmp_path / "p.json"))
+    assert code == 0, err
+    cases = afterlook.load_table(demo_written.cases).frame
+    for extra in ([], ["--cases", str(demo_written.cases), "--threshold", "f1"]):
+        code, _, err = run_cli("model", "import", str(tmp_path / "p.json"), "--out", str(tmp_path / "back.json"),
+                               "--force", *extra)
+        assert code == 0, err
+        back = afterlook.load_model(tmp_path / "back.json")
+        assert back.unit_col == "station" and back.time_col == "hour"
+        np.testing.assert_array_equal(back.log_density(cases), model.log_density(cases))
+
+
+def test_a_derived_feature_without_its_frozen_statistics_is_refused_at_import(run_cli, tmp_path):
+    doc = {"columns": ["a", "z"], "mean": [0, 0], "variances": [1, 1], "threshold": -5,
+           "derive": [{"name": "z", "expression": "zscore(a)"}]}
+    (tmp_path / "p.json").write_text(json.dumps(doc))
+    code, _, err = run_cli("model", "import", str(tmp_path / "p.json"), "--out", str(tmp_path / "m.json"))
+    assert code == 2 and "zscore(a)" in err and "frozen" in err and len(err.strip().splitlines()) == 1
+    assert not (tmp_path / "m.json").exists()
 
 
 @pytest.mark.parametrize("content,message", [

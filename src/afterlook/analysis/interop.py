@@ -52,11 +52,13 @@ import numpy as np
 
 from ..core.blas import with_limited_blas
 from ..core.errors import AfterlookError
+from ..core.frozen import frozen_from_list, frozen_to_list
 from ..core.gaussian import LOG_2PI, GaussianModel
 from ..core.recipe import POWER_KINDS, Recipe, parse_transform
 from ..core.thresholds import ThresholdPolicy, apply_undefined_policy, choose_threshold, parse_policy
 from .model import Model
 from .session import as_table, derive_pairs, numeric_columns_of, table_name
+from .unit_rows import row_context
 
 __all__ = ["from_parameters", "from_estimator", "parameters_document", "model_from_parameters_document",
            "NOT_AVAILABLE", "SUPPORTED_ESTIMATORS", "DEFAULT_OWN_RATE"]
@@ -77,7 +79,8 @@ SYMMETRY_TOL = 1e-9
 
 @with_limited_blas
 def from_parameters(mean, covariance=None, variances=None, *, columns, threshold=None, cases=None,
-                    derive=None, transforms=None, undefined: str = "flag",
+                    derive=None, transforms=None, undefined: str = "flag", frozen=None,
+                    unit_col: str | None = None, time_col: str | None = None,
                     source: str = "parameters given by hand", _density_options: dict | None = None,
                     _own_threshold=None) -> Model:
     """An afterlook model from a Gaussian's mean and covariance (full) or variances (independent).
@@ -102,13 +105,19 @@ def from_parameters(mean, covariance=None, variances=None, *, columns, threshold
         Per-feature transforms (an expression over the feature, or
         ``boxcox(L)`` / ``yeojohnson(L)`` with a fixed lambda).
     undefined : "flag" or "skip", as :func:`afterlook.fit`.
+    frozen : list of frozen statistics, optional
+        The statistics of the stateful calls in ``derive`` (``zscore``, ``unit_median``,
+        ``unit_scale``), as a model file's ``recipe.frozen`` holds them and
+        ``afterlook model export`` writes them; required when ``derive`` uses such a call.
+    unit_col, time_col : the unit and time columns the features read (``unit_median``, ``lag``), as
+        :func:`afterlook.fit` records them.
     """
     columns = _checked_columns(columns)
     d = len(columns)
     mu = _vector(mean, "mean", d)
     if (covariance is None) == (variances is None):
         raise AfterlookError("give exactly one of covariance (a full model) and variances (an independent model)")
-    recipe = _recipe(columns, derive, transforms)
+    recipe = _recipe(columns, derive, transforms, frozen)
     order = [columns.index(f) for f in recipe.features]
     options = dict(_density_options or {})
     density = GaussianModel(kind="independent" if covariance is None else "full",
@@ -136,14 +145,16 @@ def from_parameters(mean, covariance=None, variances=None, *, columns, threshold
     if _own_threshold is not None and threshold is None:
         policy, value, basis = _own_threshold(density)
     else:
-        policy, value, basis = pick_threshold(density, recipe, threshold, cases, undefined, warnings)
+        policy, value, basis = pick_threshold(density, recipe, threshold, cases, undefined, warnings,
+                                              unit_col=unit_col, time_col=time_col)
     training = {"imported": {"source": source, "features": list(recipe.features)}, "path": None, "sha256": None}
     return Model(recipe=recipe, density=density, threshold=value, policy=policy, threshold_basis=basis,
-                 training=training, quantiles=None, warnings=warnings, undefined=undefined)
+                 training=training, quantiles=None, warnings=warnings, undefined=undefined,
+                 unit_col=unit_col, time_col=time_col if unit_col else None)
 
 
 def pick_threshold(density: GaussianModel, recipe: Recipe, threshold, cases, undefined: str,
-                   warnings: list[str]) -> tuple[ThresholdPolicy, float, str]:
+                   warnings: list[str], *, unit_col: str | None = None, time_col: str | None = None) -> tuple[ThresholdPolicy, float, str]:
     """``(policy, value, basis)`` for an imported density (see the module docstring)."""
     if isinstance(threshold, (int, float, np.floating, np.integer)) and not isinstance(threshold, bool):
         value = float(threshold)
@@ -159,7 +170,8 @@ def pick_threshold(density: GaussianModel, recipe: Recipe, threshold, cases, und
         case_table = as_table(cases)
         if case_table.labels is not None:
             cols = numeric_columns_of(case_table.frame, recipe.required_columns())
-            ld = density.log_density(recipe.apply(cols).values)
+            inputs = {**cols, **row_context(case_table.frame, unit_col, time_col, table_name(case_table))}
+            ld = density.log_density(recipe.apply(inputs).values)
             inputs_ok = np.all(np.column_stack([np.isfinite(v) for v in cols.values()]), axis=1)
             case_ld, case_y = apply_undefined_policy(ld, inputs_ok, undefined), case_table.labels
     has_anomalies = case_y is not None and bool(case_y.any())
@@ -340,7 +352,7 @@ def _matrix(values, d: int) -> np.ndarray:
     return (S + S.T) / 2.0  # exact for a symmetric matrix; rounding-level asymmetry averaged away
 
 
-def _recipe(columns: list[str], derive, transforms) -> Recipe:
+def _recipe(columns: list[str], derive, transforms, frozen=None) -> Recipe:
     derived = derive_pairs(derive)
     names = [n for n, _ in derived]
     missing = [n for n in names if n not in columns]
@@ -357,7 +369,12 @@ def _recipe(columns: list[str], derive, transforms) -> Recipe:
             raise AfterlookError(f"transform '{feature}={text}': an imported model needs the lambda the detector "
                                  f"used, e.g. {t.kind}(0.5)")
         parsed[feature] = t
-    return Recipe(base, derived, parsed)
+    recipe = Recipe(base, derived, parsed, frozen_from_list(list(frozen or [])))
+    missing = [k for k in recipe.stateful_calls if k not in recipe.frozen]
+    if missing:  # refused now, not when the written model is first used
+        raise AfterlookError(f"{missing[0]} in a derived feature needs its frozen statistics (the 'frozen' entries "
+                             "that 'afterlook model export' writes); give them, or derive the feature without it")
+    return recipe
 
 
 # --------------------------------------------------------------------------
@@ -385,6 +402,10 @@ def parameters_document(model: Model) -> dict:
     doc["derive"] = [{"name": n, "expression": e} for n, e in model.recipe.derived]
     doc["transforms"] = {n: transform_text(t) for n, t in model.recipe.transforms.items()}
     doc["undefined"] = model.undefined
+    if model.recipe.frozen:  # zscore / unit baselines: the derived features cannot be computed without them
+        doc["frozen"] = frozen_to_list(model.recipe.frozen)
+    if model.unit_col:
+        doc["units"] = {"unit_col": model.unit_col, "time_col": model.time_col}
     return doc
 
 
@@ -403,4 +424,6 @@ def model_from_parameters_document(doc: Mapping, *, threshold=None, cases=None, 
     return from_parameters(doc["mean"], doc.get("covariance"), doc.get("variances"), columns=doc["columns"],
                            threshold=threshold if threshold is not None else doc.get("threshold"), cases=cases,
                            derive=derive, transforms=doc.get("transforms") or None,
-                           undefined=doc.get("undefined", "flag"), source=source)
+                           undefined=doc.get("undefined", "flag"), frozen=doc.get("frozen"),
+                           unit_col=(doc.get("units") or {}).get("unit_col"),
+                           time_col=(doc.get("units") or {}).get("time_col"), source=source)
