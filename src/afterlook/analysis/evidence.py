@@ -15,6 +15,7 @@ from ..core.quality import RankingQuality, UnseenValue, ranking_quality, unseen_
 from ..store.columns import numeric_columns_of
 from ..core.thresholds import Confusion
 from ..core.blas import with_limited_blas
+from .unit_evidence import unit_context
 from .session import Session, case_context, prepare, table_name
 
 __all__ = ["Miss", "MissesResult", "misses", "ExplainResult", "explain", "explain_case"]
@@ -160,6 +161,7 @@ class ExplainResult(Tabular):
     model_kind: str
     outside_domain: bool = False  # -inf because a feature is undefined on finite readings (not an overflow)
     percentiles: bool = True  # False for an imported model: no training rows, no quantile grid
+    unit_context: object | None = None  # analysis.unit_evidence.UnitContext: the case against its unit's own normal
 
     @property
     def overflow(self) -> bool:
@@ -192,6 +194,7 @@ class ExplainResult(Tabular):
             "model_kind": self.model_kind,
             "context": self.context,
             "features": [f.to_dict() for f in self.features],
+            "unit_context": None if self.unit_context is None else self.unit_context.to_dict(),
         }
 
 
@@ -233,4 +236,4 @@ def explain_case(session: Session, case_id) -> ExplainResult:
     domain = sc.outside_domain is not None and bool(sc.outside_domain[i])
     return ExplainResult(str(sc.table.ids[i]), float(sc.log_density[i]), model.threshold, ev,
                          bool(sc.flagged[i]), label, case_context(sc.table, i), model.describe_kind(), domain,
-                         model.quantiles is not None)
+                         model.quantiles is not None, unit_context(session, i))

@@ -117,6 +117,9 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("model", metavar="MODEL")
     p.add_argument("cases", metavar="CASES")
     p.add_argument("case_id", metavar="CASE_ID")
+    p.add_argument("--train", metavar="TRAIN",
+                   help="normal rows for the case's own-unit baseline, with --unit-col (default: the model's "
+                        "recorded training file)")
     _add_table_opts(p)
     _add_common(p)
 

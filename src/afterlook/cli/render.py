@@ -181,7 +181,40 @@ def explain_table(result: ExplainResult) -> Group:
     if full:
         parts.append(Text("cond z: standard deviations from the value expected given all other features"
                           + (f"; ! = relation broken ({RELATION_RULE})" if broken else ""), style="dim"))
+    if result.unit_context is not None:
+        parts += unit_context_lines(result.unit_context)
     return Group(*parts)
+
+
+#: Columns of the own-unit table in explain (the farthest from the unit's normal; --json lists all).
+UNIT_ROWS_SHOWN = 5
+
+
+def unit_context_lines(ctx) -> list:
+    """The case against its unit's own normal (analysis.unit_evidence): the farthest columns, and a sentence
+    when one is ordinary for the fleet but far from its unit's normal."""
+    from ..analysis.unit_evidence import FLEET_ORDINARY, OWN_FAR
+
+    head = Text(f"\nagainst {ctx.unit}'s own normal ({ctx.unit_rows} normal rows of {ctx.unit} in {ctx.source}):",
+                style="bold")
+    table = Table(box=box.SIMPLE_HEAD, show_edge=False)
+    for name, justify in (("feature", "left"), ("reading", "right"), ("unit median", "right"),
+                          ("unit z", "right"), ("fleet z", "right")):
+        table.add_column(name, justify=justify, no_wrap=True, overflow="ellipsis", max_width=20 if name == "feature" else None)
+    for r in ctx.by_distance()[:UNIT_ROWS_SHOWN]:
+        table.add_row(r.feature, shown.reading(r.reading), shown.reading(r.unit_median) + (" (fleet)" if r.fallback else ""),
+                      shown.z(r.unit_z), shown.z(r.fleet_z))
+    lines = [head, table, Text("unit z: (reading - the unit's median) / the unit's MAD x 1.4826 over its normal "
+                               "training rows, what unit_median and unit_scale freeze; fleet z: the same over every "
+                               "normal training row; (fleet): the unit has too few rows of its own", style="dim")]
+    only = [r for r in ctx.by_distance() if r.only_against_its_unit]
+    if only:
+        r = only[0]
+        lines.append(Text(f"{r.feature} is ordinary for the fleet (z {shown.z(r.fleet_z)}) but far from {ctx.unit}'s own "
+                          f"normal (z {shown.z(r.unit_z)}; rule of thumb: |z| >= {OWN_FAR:g} own, < {FLEET_ORDINARY:g} "
+                          f"fleet): a unit-relative feature such as {r.feature} - unit_median({r.feature}) would "
+                          "expose it (afterlook suggest tries them)."))
+    return lines
 
 
 def _signed(x: float | None, sign: str = "+") -> str:
