@@ -238,6 +238,29 @@ async def test_a_panel_mounted_while_the_workbench_is_taken_down_is_ignored(demo
 
 
 @pytest.mark.asyncio
+async def test_the_evidence_sets_a_strainer_miss_against_its_own_station(demo, tmp_path):
+    # The demo's blocked-strainer miss (invented data, seed 7) is ordinary for the fleet and far from its own
+    # station's suction pressure; the panel's unit line says so with explain's numbers.
+    from afterlook.analysis.evidence import explain
+    from afterlook.analysis import shown
+
+    case = "PS-11/2026-04-20T17:00"
+    app = create_app(demo.model, demo.cases, train_path=demo.train, casebook=tmp_path / "b.json",
+                     auto_candidates=False)
+    async with app.run_test(size=SIZE) as pilot:
+        await pilot.pause()
+        app.select_case(case)
+        await pilot.pause()
+        line = app.workbench.query_one("#evidence-unit", Static)
+        assert line.display
+        text = text_of(line)
+        ctx = explain(afterlook.load_model(demo.model), demo.cases, case).unit_context
+        top = ctx.by_distance()[0]
+        assert "PS-11's own normal" in text and "ordinary for the fleet" in text
+        assert f"{top.feature} z {shown.z(top.unit_z)}" in text and f"fleet {shown.z(top.fleet_z)}" in text
+
+
+@pytest.mark.asyncio
 async def test_stale_candidate_runs_are_dropped(demo, tmp_path, monkeypatch, wait_until):
     from afterlook.analysis import workbench as wd
 

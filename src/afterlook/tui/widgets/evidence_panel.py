@@ -62,6 +62,7 @@ class EvidencePanel(Vertical):
         yield Static("select a case", id="evidence-head")
         yield Static("", id="evidence-context")
         yield DataTable(id="evidence-table", cursor_type="row", zebra_stripes=True)
+        yield Static("", id="evidence-unit")
         yield Static("", id="evidence-legend")
 
     def _style(self, name: str):
@@ -81,6 +82,7 @@ class EvidencePanel(Vertical):
         self.query_one("#evidence-head", Static).update(Text(fmt.plain(message), style=self._style("evidence--dim")))
         self.query_one("#evidence-context", Static).update("")
         self.query_one("#evidence-table", DataTable).clear(columns=True)
+        self.query_one("#evidence-unit", Static).display = False
 
     def show(self, view) -> None:
         """Draw an :class:`~afterlook.analysis.workbench.EvidenceView`."""
@@ -134,6 +136,7 @@ class EvidencePanel(Vertical):
             self.feature_names = [r.name for r in view.rows]
             if keep in self.feature_names:
                 table.move_cursor(row=self.feature_names.index(keep), animate=False)
+        self._show_unit(getattr(ex, "unit_context", None))
         legend = Text(style=self._style("evidence--dim"))
         pct = ("% of normal rows at or below" if getattr(view.explain, "percentiles", True)
                else "not available for an imported model")
@@ -145,6 +148,26 @@ class EvidencePanel(Vertical):
         if view.full_model:
             legend.append("; cond z: sd from the value expected given all other features")
         self.query_one("#evidence-legend", Static).update(legend)
+
+    def _show_unit(self, ctx) -> None:
+        """One line: the readings farthest from the case's own unit's normal, the fleet's z beside each
+        (explain's unit context; shown only when the model knows each row's unit)."""
+        box = self.query_one("#evidence-unit", Static)
+        box.display = ctx is not None and bool(ctx.readings)
+        if not box.display:
+            return
+        line = Text(no_wrap=True, overflow="ellipsis")
+        far = [r for r in ctx.by_distance() if r.only_against_its_unit]
+        line.append(f"vs {fmt.plain(ctx.unit)}'s own normal", style="bold")
+        if far:
+            line.append(" (ordinary for the fleet, far from its own)", style=self._style("evidence--broken"))
+        line.append(": ")
+        for k, r in enumerate(ctx.by_distance()[:3]):
+            line.append(" · " if k else "")
+            line.append(f"{fmt.plain(r.feature)} z {shown.z(r.unit_z)}",
+                        style=self._style("evidence--extreme") if r.only_against_its_unit else None)
+            line.append(f" (fleet {shown.z(r.fleet_z)})", style=self._style("evidence--dim"))
+        box.update(line)
 
     @property
     def highlighted_feature(self) -> str | None:
