@@ -87,6 +87,16 @@ def _timed_cpu(fn):
 
 
 def _peak_mb() -> float:
+    """This process's own peak resident size: VmHWM of /proc/self/status where there is one. getrusage's
+    ru_maxrss is not used there: Linux carries the parent's high-water mark into a child across fork and
+    exec, so a benchmark parent that held a large table made every step look that large."""
+    try:
+        with open("/proc/self/status") as fh:
+            for line in fh:
+                if line.startswith("VmHWM:"):
+                    return int(line.split()[1]) / 1024
+    except OSError:
+        pass
     return resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024
 
 
