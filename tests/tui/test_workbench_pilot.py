@@ -256,7 +256,7 @@ async def test_the_evidence_sets_a_strainer_miss_against_its_own_station(demo, t
         text = text_of(line)
         ctx = explain(afterlook.load_model(demo.model), demo.cases, case).unit_context
         top = ctx.by_distance()[0]
-        assert "PS-11's own normal" in text and "ordinary for the fleet" in text
+        assert "vs own PS-11" in text and "far only from its own" in text
         assert f"{top.feature} z {shown.z(top.unit_z)}" in text and f"fleet {shown.z(top.fleet_z)}" in text
 
 

@@ -157,16 +157,15 @@ class EvidencePanel(Vertical):
         if not box.display:
             return
         line = Text(no_wrap=True, overflow="ellipsis")
-        far = [r for r in ctx.by_distance() if r.only_against_its_unit]
-        line.append(f"vs {fmt.plain(ctx.unit)}'s own normal", style="bold")
-        if far:
-            line.append(" (ordinary for the fleet, far from its own)", style=self._style("evidence--broken"))
-        line.append(": ")
+        # the most telling first: an 80-column line keeps the farthest reading and its verdict whole
+        line.append(f"vs own {fmt.plain(ctx.unit)}: ", style="bold")
         for k, r in enumerate(ctx.by_distance()[:3]):
             line.append(" · " if k else "")
             line.append(f"{fmt.plain(r.feature)} z {shown.z(r.unit_z)}",
                         style=self._style("evidence--extreme") if r.only_against_its_unit else None)
             line.append(f" (fleet {shown.z(r.fleet_z)})", style=self._style("evidence--dim"))
+            if r.only_against_its_unit:
+                line.append(", far only from its own", style=self._style("evidence--broken"))
         box.update(line)
 
     @property
