@@ -16,6 +16,8 @@ from ..messages import ExpressionEdited, ExpressionSubmitted, PanelMounted
 
 PLACEHOLDER = "NAME = EXPR or EXPR, e.g. head_per_amp = (discharge_bar - suction_bar) / motor_current_a"
 FLIPS_SHOWN = 12
+# Refreshes to wait for the comparison to be laid out before giving up the scroll to it.
+_SCROLL_TRIES = 200
 
 
 class TryPanel(VerticalScroll):
@@ -24,6 +26,8 @@ class TryPanel(VerticalScroll):
     def __init__(self, **kwargs) -> None:
         super().__init__(**kwargs)
         self.view = None
+        self._scroll_pending = False
+        self._scroll_tries = 0
 
     def compose(self) -> ComposeResult:
         yield Input(placeholder=PLACEHOLDER, id="expression", compact=True)
@@ -43,6 +47,7 @@ class TryPanel(VerticalScroll):
 
     # -- the expression -----------------------------------------------------
     def focus_expression(self) -> None:
+        self._scroll_pending = False  # typing wins over a comparison still waiting to scroll
         self.scroll_home(animate=False)  # the box sits above the last comparison
         self.query_one("#expression", Input).focus()
 
@@ -130,17 +135,34 @@ class TryPanel(VerticalScroll):
                 flips.append(f"\n  … {len(rows) - FLIPS_SHOWN} more", style=self._style("try--dim"))
         self.query_one("#trial-flips", Static).update(flips)
         # On a short screen the comparison starts below the expression box: bring
-        # it into view once the new content is laid out. The layout may land a
-        # refresh later under load, so the scroll also runs when the panel's
-        # content size changes (watch_virtual_size), not only after one refresh.
+        # it into view once the new content is laid out. Under load the layout can
+        # land several refreshes later; a scroll asked for before then is clamped
+        # to the old, shorter content, and one forced before the scrollbar is shown
+        # leaves its thumb drawn at the top (both seen). So the request stays
+        # pending until the panel can scroll and has scrolled to the comparison,
+        # retried after refreshes (a bounded number) and on every change of the
+        # panel's content or size.
         self._scroll_pending = True
+        self._scroll_tries = 0
         self.call_after_refresh(self._scroll_to_result)
 
     def _scroll_to_result(self) -> None:
-        if self.view is not None:
-            self.scroll_to_widget(self.query_one("#trial-head", Static), top=True, animate=False)
+        if self.view is None or not self._scroll_pending:
+            return
+        head = self.query_one("#trial-head", Static).virtual_region_with_margin  # its blank line above too
+        if not head.size or (self.max_scroll_y > 0 and not self.allow_vertical_scroll):
+            # Not laid out yet, or the scrollbar not shown yet: after the next refresh.
+            self._scroll_tries += 1
+            if self._scroll_tries <= _SCROLL_TRIES:
+                self.call_after_refresh(self._scroll_to_result)
+            return
+        target = min(head.y, self.max_scroll_y)
+        self.scroll_to(y=target, animate=False, immediate=True)
+        if target == head.y:  # the whole way: done; otherwise the growing content calls again
+            self._scroll_pending = False
 
     def watch_virtual_size(self, old, new) -> None:
-        if getattr(self, "_scroll_pending", False) and new.height > old.height:
-            self._scroll_pending = False
-            self._scroll_to_result()
+        self._scroll_to_result()
+
+    def on_resize(self, event) -> None:
+        self._scroll_to_result()
