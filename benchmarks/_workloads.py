@@ -191,8 +191,12 @@ def load(kind: str):
             p.join()
 
 
-def run_step(step: str, folder: Path, threads: str = "one") -> dict:
-    """Run one step in a fresh process; ``threads``: "one" (afterlook's default) or "default" (the library's)."""
+def run_step(step: str, folder: Path, threads: str = "one", cache: str = "off") -> dict:
+    """Run one step in a fresh process; ``threads``: "one" (afterlook's default) or "default" (the library's).
+
+    ``cache``: the child's AFTERLOOK_CACHE_DIR. "off" by default, so that a step is never served by
+    what an earlier run (or the user's own use) left in the cache folder; a folder to time a process
+    that finds the choices of an earlier one there."""
     import subprocess
 
     env = {k: v for k, v in os.environ.items()
@@ -200,6 +204,7 @@ def run_step(step: str, folder: Path, threads: str = "one") -> dict:
                         "PYTHONDONTWRITEBYTECODE")}
     if threads == "default":
         env["AFTERLOOK_BLAS_THREADS"] = "auto"
+    env["AFTERLOOK_CACHE_DIR"] = cache
     out = subprocess.run([sys.executable, str(HERE / "_workloads.py"), step, str(folder)], env=env,
                          capture_output=True, text=True, timeout=3600)
     if out.returncode != 0:

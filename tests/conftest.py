@@ -6,10 +6,17 @@ session; tests only read those files (a test that writes copies them first).
 
 from __future__ import annotations
 
+import os
 from dataclasses import dataclass
 from pathlib import Path
 
 import pytest
+
+# The cache folder (store/cache.py) is off for the suite: no test is served by what an
+# earlier test (or an earlier run) left there, and nothing is written to the home folder.
+# tests/store/test_cache.py and tests/discovery/test_shaping_disk_cache.py switch it on
+# in their own folders. CLI subprocesses inherit this environment.
+os.environ["AFTERLOOK_CACHE_DIR"] = "off"
 
 from afterlook_cli_runner import one_json as _one_json
 from afterlook_cli_runner import run_cli_in_process, run_cli_script

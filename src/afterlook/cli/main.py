@@ -63,6 +63,16 @@ EXAMPLES = """examples (the invented pump-station demo, written to pumps/):
   afterlook casebook check book.json --model new.json --cases pumps/cases.csv
   afterlook review pumps/model.json pumps/cases.csv   (the workbench, in a terminal)"""
 
+#: The environment variables afterlook reads, for the top-level --help.
+ENVIRONMENT = """environment:
+  AFTERLOOK_BLAS_THREADS  threads for afterlook's linear algebra: N (default 1)
+                          or auto, to leave the BLAS library's own setting
+  AFTERLOOK_CACHE_DIR     where the candidate search (suggest, the workbench)
+                          remembers its shaping choices between runs; default
+                          ~/.cache/afterlook or $XDG_CACHE_HOME/afterlook, off
+                          for none; safe to delete at any time
+  AFTERLOOK_DEBUG         1: show the traceback of an internal error"""
+
 
 def build_parser() -> argparse.ArgumentParser:
     import textwrap
@@ -71,7 +81,7 @@ def build_parser() -> argparse.ArgumentParser:
         prog="afterlook",
         description="Find out why real failures scored as normal under a Gaussian anomaly detector, "
         "and which derived or transformed feature would have exposed them.",
-        epilog=EXAMPLES + "\n\n" + textwrap.fill(CAUTION, 79),
+        epilog=EXAMPLES + "\n\n" + ENVIRONMENT + "\n\n" + textwrap.fill(CAUTION, 79),
         formatter_class=argparse.RawDescriptionHelpFormatter,
     )
     parser.add_argument("--version", action="version", version=f"afterlook {_version.__version__}")

@@ -1,0 +1,107 @@
+"""A folder of small results remembered between processes (best effort, never an error).
+
+What is kept: choices that depend only on input values and on afterlook's own
+code, keyed by a digest of both, so a stale entry can never be read for other
+values or by another release. Today that is the shaping choice per column of
+the search's sample (``analysis.discovery``): the first ``suggest`` on a
+training table pays for the shaping search, later processes read one small
+JSON file per column.
+
+Where: ``$AFTERLOOK_CACHE_DIR`` when set (empty, ``off``, ``0`` or ``no``:
+nothing is read or written), else ``$XDG_CACHE_HOME/afterlook``, else
+``~/.cache/afterlook``. Deleting the folder at any time is safe. A folder
+that cannot be made or written, or an entry that cannot be read or parsed,
+is treated as "not remembered": the work is done again and nothing is said.
+Each kind of entry keeps at most :data:`MAX_ENTRIES` files (oldest removed).
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+import os
+from pathlib import Path
+
+import secrets
+
+__all__ = ["ENV", "MAX_ENTRIES", "folder", "entry_key", "read", "write"]
+
+ENV = "AFTERLOOK_CACHE_DIR"
+#: Files kept per kind; past it the oldest (by modification time) are removed on a write.
+MAX_ENTRIES = 20_000
+_OFF = {"", "off", "0", "no", "none"}
+
+
+def folder(environ=None) -> Path | None:
+    """The cache folder (not created here), or None when the cache is switched off."""
+    env = os.environ if environ is None else environ
+    if ENV in env:
+        raw = env[ENV].strip()
+        return None if raw.lower() in _OFF else Path(raw).expanduser()
+    base = env.get("XDG_CACHE_HOME", "").strip()
+    return (Path(base) if base else Path.home() / ".cache") / "afterlook"
+
+
+def entry_key(*parts: bytes | str) -> str:
+    """A file-name-safe digest of ``parts`` (each length-prefixed, so no two lists of parts collide)."""
+    h = hashlib.sha256()
+    for p in parts:
+        b = p.encode("utf-8") if isinstance(p, str) else bytes(p)
+        h.update(len(b).to_bytes(8, "little"))
+        h.update(b)
+    return h.hexdigest()
+
+
+def _path(kind: str, key: str) -> Path | None:
+    base = folder()
+    return None if base is None else base / kind / f"{key}.json"
+
+
+def read(kind: str, key: str):
+    """The JSON value stored under ``kind``/``key``, or None when there is none (or it is unreadable)."""
+    p = _path(kind, key)
+    if p is None:
+        return None
+    try:
+        with open(p, "rb") as fh:
+            doc = json.loads(fh.read())
+    except (OSError, ValueError):
+        return None
+    if not isinstance(doc, dict) or doc.get("key") != key:
+        return None
+    return doc.get("value")
+
+
+def write(kind: str, key: str, value) -> bool:
+    """Store a JSON-able ``value``; True when it was written. Never raises for a folder or disk problem."""
+    p = _path(kind, key)
+    if p is None:
+        return False
+    # A temporary file renamed into place: a reader sees the whole entry or none. No fsync (unlike
+    # store.atomic): an entry lost in a crash is only work done again, and 40 fsyncs would cost
+    # the first call more than the cache saves.
+    tmp = p.with_name(f".{p.name}.{secrets.token_hex(4)}.tmp")
+    try:
+        p.parent.mkdir(parents=True, exist_ok=True)
+        tmp.write_bytes(json.dumps({"key": key, "value": value}).encode("utf-8"))
+        os.replace(tmp, p)
+    except OSError:
+        try:
+            tmp.unlink(missing_ok=True)
+        except OSError:
+            pass
+        return False
+    _prune(p.parent)
+    return True
+
+
+def _prune(kind_folder: Path) -> None:
+    try:
+        entries = [e for e in os.scandir(kind_folder) if e.name.endswith(".json")]
+        if len(entries) <= MAX_ENTRIES:
+            return
+        entries.sort(key=lambda e: e.stat().st_mtime)
+        for e in entries[:len(entries) - MAX_ENTRIES]:
+            os.unlink(e.path)
+    except OSError:
+        pass
