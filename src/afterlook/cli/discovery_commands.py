@@ -79,37 +79,13 @@ def run_suggest(args) -> int:
 
 
 def suggest_table(result):
-    from rich import box
-    from rich.table import Table
-    from rich.text import Text
-
     from rich.console import Group
+    from rich.text import Text
 
     head = Text()
     targets = ", ".join(result.cases[:3]) + (f" and {len(result.cases) - 3} more" if len(result.cases) > 3 else "")
     head.append(f"candidates for {targets}", style="bold")
     head.append(f"\n{result.tried} candidates tried on {result.sample_rows} normal rows ({result.training_source})")
-    table = Table(box=box.SIMPLE_HEAD, show_edge=False, pad_edge=False)
-    table.add_column("#", justify="right", style="dim")
-    table.add_column("expression", overflow="fold", ratio=1, min_width=18)
-    # several targets: the column is the median of their z, and its header says so
-    table.add_column("case z" if len(result.cases) == 1 else "median case z", justify="right", no_wrap=True)
-    table.add_column("adj tail", justify="right", no_wrap=True)
-    table.add_column("caught", justify="right", no_wrap=True)
-    table.add_column("+FA", justify="right", no_wrap=True)
-    table.add_column("held-out F1", justify="right", no_wrap=True)
-    table.add_column("found", justify="right", no_wrap=True)
-    table.add_column("verdict", no_wrap=True)
-    n_targets = len(result.cases)
-    styles = {"holds-up": "bold green", "exposes-only": "yellow", "chance": "dim", "hurts": "red"}
-    for k, c in enumerate(result.candidates, 1):
-        fa = "n/a" if c.false_alarms_added is None else f"{c.false_alarms_added:+d}"
-        caught = "n/a" if c.catches_targets is None else f"{c.catches_targets}/{n_targets}"
-        expression = Text(c.expression)
-        if kind_words(c.kind):  # a unit kind: what it compares, in words
-            expression.append(f"\n({kind_words(c.kind)})", style="dim")
-        table.add_row(str(k), expression, shown.z(c.case_z), shown.tail(c.adjusted_tail), caught, fa,
-                      heldout_gain_text(c), stability_text(c), Text(candidate_verdict(c), style=styles.get(c.verdict, "dim")))
     folds = f"{result.heldout_folds}-fold" if result.heldout_folds else "K-fold"
     note = Text(suggest_legend(result, folds), style="dim")
     verdict = Text(result.verdict(), style="bold green" if result.any_beyond_chance else "bold yellow")
@@ -117,7 +93,109 @@ def suggest_table(result):
     recommended.append(result.recommended_reason() if result.recommended else f"none ({result.recommended_reason()})",
                        style="bold green" if result.recommended else "yellow")
     verdict = Group(verdict, recommended)
-    return Group(head, table, verdict, note)
+    return Group(head, CandidateRows(result), verdict, note)
+
+
+#: Widest unbreakable piece of an expression (a name with its call, e.g. ``unit_median(suction_bar))``)
+#: the table keeps whole; a longer one is folded.
+_TOKEN_CAP = 36
+_VERDICT_STYLES = {"holds-up": "bold green", "exposes-only": "yellow", "chance": "dim", "hurts": "red"}
+
+
+class CandidateRows:
+    """The ranked candidates, laid out for the width they are drawn at (a Rich renderable).
+
+    Wide enough for every number, the verdict and the longest piece of an expression: one table,
+    the expression wrapped only at its spaces. Narrower (an 80-column terminal): each candidate's
+    numbers and verdict on one aligned line and its expression beneath, across the whole width.
+    Either way no number or verdict is cut and no name is broken (up to ``_TOKEN_CAP`` characters).
+    """
+
+    HEADERS = ("#", "case z", "adj tail", "caught", "+FA", "held-out F1", "found", "verdict")
+
+    def __init__(self, result):
+        n_targets = len(result.cases)
+        self.headers = list(self.HEADERS)
+        if n_targets != 1:
+            self.headers[1] = "median case z"  # several targets: the median of their z
+        self.rows = []
+        for k, c in enumerate(result.candidates, 1):
+            fa = "n/a" if c.false_alarms_added is None else f"{c.false_alarms_added:+d}"
+            caught = "n/a" if c.catches_targets is None else f"{c.catches_targets}/{n_targets}"
+            cells = [str(k), shown.z(c.case_z), shown.tail(c.adjusted_tail), caught, fa, heldout_gain_text(c),
+                     stability_text(c), candidate_verdict(c)]
+            self.rows.append((cells, _VERDICT_STYLES.get(c.verdict, "dim"), c.expression, kind_words(c.kind)))
+
+    def _expression(self, expression: str, words: str | None):
+        from rich.text import Text
+
+        t = Text(expression, overflow="fold")
+        if words:  # a unit kind: what it compares, in words
+            t.append(f"\n({words})", style="dim")
+        return t
+
+    def widths(self) -> list[int]:
+        return [max([len(h)] + [len(r[0][j]) for r in self.rows]) for j, h in enumerate(self.headers)]
+
+    def longest_piece(self) -> int:
+        pieces = [len(p) for r in self.rows for p in r[2].split()]
+        return min(max(pieces + [10]), _TOKEN_CAP)
+
+    def wide_width(self) -> int:
+        """Columns the one-table layout needs: SIMPLE_HEAD without edge padding puts three cells between
+        columns (a cell of padding, its blank divider, a cell of padding)."""
+        w = self.widths()
+        return sum(w) + self.longest_piece() + 3 * len(w)
+
+    def __rich_console__(self, console, options):
+        if options.max_width >= self.wide_width():
+            yield self._table()
+        else:
+            yield from self._stacked(options.max_width)
+
+    def _table(self):
+        from rich import box
+        from rich.table import Table
+        from rich.text import Text
+
+        table = Table(box=box.SIMPLE_HEAD, show_edge=False, pad_edge=False)
+        table.add_column(self.headers[0], justify="right", style="dim")
+        table.add_column("expression", ratio=1, min_width=self.longest_piece())
+        for h in self.headers[1:-1]:
+            table.add_column(h, justify="right", no_wrap=True)
+        table.add_column(self.headers[-1], no_wrap=True)
+        for cells, style, expression, words in self.rows:
+            table.add_row(cells[0], self._expression(expression, words), *cells[1:-1], Text(cells[-1], style=style))
+        return table
+
+    def _stacked(self, width: int):
+        from rich.padding import Padding
+        from rich.text import Text
+
+        w = self.widths()
+        # Narrower still than the numbers and the verdict (under about 70 columns): the verdict gets a
+        # line of its own under the numbers, never a word split from the rest.
+        own_line = sum(w) + 2 * (len(w) - 1) > width
+        shown_cols = len(w) - 1 if own_line else len(w)
+
+        def line(cells, styles):
+            t = Text()
+            for j, (cell, st) in enumerate(zip(cells[:shown_cols], styles)):
+                if j:
+                    t.append("  ")
+                last = j == len(w) - 1
+                t.append(cell if last else (cell.ljust(w[j]) if j == 0 else cell.rjust(w[j])), style=st)
+            return t
+
+        header = line(self.headers, ["bold"] * len(self.headers))
+        yield header
+        yield Text("─" * min(width, header.cell_len), style="dim")
+        indent = w[0] + 2
+        for cells, style, expression, words in self.rows:
+            yield line(cells, ["dim"] + [""] * (len(cells) - 2) + [style])
+            if own_line:
+                yield Padding(Text(cells[-1], style=style), (0, 0, 0, indent))
+            yield Padding(self._expression(expression, words), (0, 0, 0, indent))
 
 
 _VERDICT_WORDS = {
