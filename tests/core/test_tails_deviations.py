@@ -41,3 +41,37 @@ def test_one_partition_gives_numpys_median_and_quantile_exactly(n, q):
     dev = np.abs(v - np.median(v))
     assert d.quantile(q) == np.quantile(dev, q)
     np.testing.assert_array_equal(d.robust_z(v[:5]), (v[:5] - np.median(v)) / (1.4826 * np.median(dev)))
+
+
+@pytest.mark.parametrize("n", [30, 101, 5000, 50_000])
+@pytest.mark.parametrize("order", ["tail first", "z first", "quantile first", "quantile after z"])
+def test_one_tail_fit_answers_every_target_as_tail_probability_does(n, order):
+    # Reference: tail_probability (a median, then its own partition for the Pareto fit, per target)
+    # on resampled breast-cancer values; many targets beyond every normal value, so most answers
+    # come from the one Pareto fit that Deviations makes from its order statistics' partition.
+    rng = np.random.default_rng(n + 7)
+    v = load_breast_cancer().data[rng.integers(0, 569, n), 23]
+    targets = np.r_[v.max() + np.ptp(v) * np.linspace(0.01, 5, 9), v.min() - np.ptp(v) * np.linspace(0.01, 5, 9),
+                    np.quantile(v, [0.5, 0.99])]
+    d = Deviations(v)
+    if order == "z first":
+        d.robust_z(targets)
+    elif order == "quantile first":
+        d.prepare(0.99)
+    elif order == "quantile after z":
+        d.robust_z(targets)
+        d.prepare(0.995)
+    got = [d.tail(float(t)) for t in targets]
+    assert got == [tail_probability(v, float(t)) for t in targets]
+    dev = np.abs(v - np.median(v))
+    beyond = int(np.sum(np.abs(targets - np.median(v)) > dev.max()))
+    assert beyond >= 15 and sum(method == "pareto tail" for _, method, _ in got) == beyond
+    if order.startswith("quantile"):
+        q = 0.99 if order == "quantile first" else 0.995
+        assert d.quantile(q) == np.quantile(np.abs(v - np.median(v)), q)
+
+
+def test_a_single_value_has_a_tail_as_gpd_tail_gives():
+    d = Deviations(np.array([3.0]))
+    with np.errstate(all="ignore"), pytest.warns(RuntimeWarning):
+        assert d.tail(10.0) == tail_probability(np.array([3.0]), 10.0)

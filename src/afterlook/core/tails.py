@@ -19,7 +19,7 @@ MIN_TAIL_COUNT = 1  # any normal row as extreme as the target: no extrapolation
 TAIL_FRACTION = 0.05  # share of rows in the generalized Pareto tail fit
 MIN_EXCESSES = 50  # at least this many excesses in the tail fit
 
-__all__ = ["gpd_pwm", "gpd_tail", "tail_probability", "robust_z", "Deviations", "MAD_TO_SD", "MIN_TAIL_COUNT",
+__all__ = ["gpd_pwm", "gpd_tail", "ParetoTail", "tail_probability", "robust_z", "Deviations", "MAD_TO_SD", "MIN_TAIL_COUNT",
            "TAIL_FRACTION", "MIN_EXCESSES"]
 
 
@@ -47,6 +47,37 @@ def gpd_pwm(excess: np.ndarray) -> tuple[float, float]:
     return float(-k), float(alpha)
 
 
+def _tail_size(n: int, fraction: float = TAIL_FRACTION) -> int:
+    """Deviations in the generalized Pareto fit: ``fraction`` of them, at least MIN_EXCESSES, below n."""
+    return min(max(MIN_EXCESSES, int(math.ceil(fraction * n))), n - 1)
+
+
+class ParetoTail:
+    """A generalized Pareto tail fitted once to the largest absolute deviations; :meth:`probability`
+    answers for any target (the fit does not depend on it)."""
+
+    def __init__(self, top: np.ndarray, n: int):
+        """``top``: the largest ``_tail_size(n) + 1`` deviations of ``n``, in ascending order."""
+        self.n, self.n_tail = n, top.size - 1
+        self.u = top[0]
+        excess = top[1:] - self.u
+        self.xi, self.sigma = gpd_pwm(excess)
+        self.excess_mean = excess.mean()
+
+    def probability(self, target_dev: float) -> float:
+        """P(|V - med| >= target_dev), the shape clamped at >= 0."""
+        xi, sigma = self.xi, self.sigma
+        if sigma <= 0:
+            return 1.0 / (self.n + 1)
+        x = max(target_dev - self.u, 0.0)
+        if xi < 1e-9:
+            xi, sigma = 0.0, float(self.excess_mean) if self.excess_mean > 0 else sigma
+            sf = math.exp(-x / sigma)
+        else:
+            sf = (1.0 + xi * x / sigma) ** (-1.0 / xi)
+        return float((self.n_tail / self.n) * sf)
+
+
 def gpd_tail(abs_dev: np.ndarray, target_dev: float, fraction: float = TAIL_FRACTION) -> float:
     """P(|V - med| >= target_dev) extrapolated with a generalized Pareto tail.
 
@@ -55,22 +86,10 @@ def gpd_tail(abs_dev: np.ndarray, target_dev: float, fraction: float = TAIL_FRAC
     """
     d = np.asarray(abs_dev, dtype=np.float64).ravel()
     n = d.size
-    n_tail = max(MIN_EXCESSES, int(math.ceil(fraction * n)))
-    n_tail = min(n_tail, n - 1)
+    n_tail = _tail_size(n, fraction)
     # only the largest n_tail + 1 deviations are read, in order: one partition and a sort of those
     top = np.sort(np.partition(d, n - n_tail - 1)[n - n_tail - 1:])
-    u = top[0]
-    excess = top[1:] - u
-    xi, sigma = gpd_pwm(excess)
-    if sigma <= 0:
-        return 1.0 / (n + 1)
-    x = max(target_dev - u, 0.0)
-    if xi < 1e-9:
-        xi, sigma = 0.0, float(excess.mean()) if excess.mean() > 0 else sigma
-        sf = math.exp(-x / sigma)
-    else:
-        sf = (1.0 + xi * x / sigma) ** (-1.0 / xi)
-    return float((n_tail / n) * sf)
+    return ParetoTail(top, n).probability(target_dev)
 
 
 def tail_probability(values: np.ndarray, target: float) -> tuple[float, str, int]:
@@ -102,11 +121,15 @@ class Deviations:
         self.median = np.median(values)
         self.dev = np.abs(values - self.median)
         self._stats: dict = {}
+        self._top_from: np.ndarray | None = None  # the partition's upper part, until the tail is fitted
+        self._pareto: ParetoTail | None = None
 
     def _order_statistics(self, q: float | None) -> None:
-        """The median of the deviations and (with ``q``) their q-quantile, from one ``np.partition``:
-        numpy's own rules (the mean of the two middle values; linear interpolation between the order
-        statistics around ``(n - 1) q``, written as numpy's ``_lerp``)."""
+        """The median of the deviations, (with ``q``) their q-quantile and the threshold of the Pareto
+        tail fit, from one ``np.partition``: numpy's own rules (the mean of the two middle values;
+        linear interpolation between the order statistics around ``(n - 1) q``, written as numpy's
+        ``_lerp``). Extra kth in one partition change none of the values at the others, and above the
+        tail's kth lie exactly the largest deviations, as :func:`gpd_tail`'s own partition has them."""
         dev, n = self.dev, self.dev.size
         mid = [n // 2 - 1, n // 2] if n % 2 == 0 else [(n - 1) // 2]
         kth = set(mid)
@@ -115,12 +138,17 @@ class Deviations:
             lo = n - 1 if v >= n - 1 else int(math.floor(v))
             hi = n - 1 if v >= n - 1 else lo + 1
             kth |= {lo, hi}
+        tail_kth = n - _tail_size(n) - 1 if n >= 1 and self._pareto is None else None
+        if tail_kth is not None:
+            kth.add(tail_kth)
         part = np.partition(dev, sorted(kth))
         self._stats["mad"] = (part[mid[0]] + part[mid[1]]) / 2.0 if len(mid) == 2 else part[mid[0]]
         if q is not None:
             a, b, g = part[lo], part[hi], v - math.floor(v)
             diff = b - a
             self._stats[q] = b - diff * (1 - g) if g >= 0.5 else a + diff * g
+        if tail_kth is not None:
+            self._top_from = part[tail_kth:]
 
     def prepare(self, q: float) -> "Deviations":
         """Compute the median deviation and the ``q``-quantile together (both are asked for)."""
@@ -144,7 +172,16 @@ class Deviations:
         n = self.values.size
         if count >= MIN_TAIL_COUNT:
             return (count + 1) / (n + 1), "empirical", count
-        return gpd_tail(self.dev, t), "pareto tail", count
+        return self.pareto().probability(t), "pareto tail", count
+
+    def pareto(self) -> ParetoTail:
+        """The Pareto tail of the deviations, fitted on first use (from the order statistics' partition)."""
+        if self._pareto is None:
+            if self._top_from is None:
+                self._order_statistics(None)
+            self._pareto = ParetoTail(np.sort(self._top_from), self.dev.size)
+            self._top_from = None
+        return self._pareto
 
     def quantile(self, q: float) -> float:
         if q not in self._stats:
