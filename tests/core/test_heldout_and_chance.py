@@ -145,6 +145,18 @@ def test_binomial_upper_tail_matches_scipy_binomtest_and_a_direct_sum(count, n, 
             stats.binomtest(count, n, p, alternative="greater").pvalue, rel=1e-9)
 
 
+@pytest.mark.parametrize("count,n,p", [(57, 57, 1e-6), (30, 1000, 1e-3), (1, 1, 0.5), (1, 5000, 1e-9),
+                                       (2500, 5000, 0.5), (4000, 5000, 0.5), (3, 3000, 1e-4)])
+def test_binomial_upper_tail_matches_scipys_binomial_survival_function_in_the_far_tail(count, n, p):
+    # Reference: scipy.stats.binom.sf(count - 1, n, p) (its own Boost binomial), down to tails near 1e-300
+    expected = stats.binom.sf(count - 1, n, p)
+    assert binomial_upper_tail(count, n, p) == pytest.approx(expected, rel=1e-9, abs=1e-300)
+
+
+def test_more_than_n_successes_cannot_happen():
+    assert binomial_upper_tail(6, 5, 0.9) == 0.0 == stats.binom.sf(5, 5, 0.9)
+
+
 def test_one_target_keeps_the_single_target_guard():
     v = chance_verdict(np.array([1e-4]), n_tried=200)
     assert v.adjusted_tail == pytest.approx(0.02) and v.method == "single" and v.beyond_chance()
