@@ -2,11 +2,14 @@
 
 Each run is a fresh `afterlook score` process (the console script next to
 this interpreter); wall time from the parent, peak resident memory of that
-process from ``os.wait4`` (for dask: this process only, not its workers).
+process from its own ``VmHWM`` (for dask: this process only, not its workers;
+not ``os.wait4``'s ru_maxrss, which carries this benchmark's own size into
+every child).
 Input: the invented demo fleet's cases repeated with 1% noise to ``--rows``
 rows (13 columns, ~200 bytes a row as CSV), scored with the demo model.
 Idle, then loaded (one spinning process per core). Prints a Markdown table
-with each engine's time and memory as a ratio of the in-memory score.
+with each engine's time and memory as a ratio of the in-memory score, and
+whether its output file is byte for byte the in-memory score's.
 
 Usage::
 
@@ -17,6 +20,7 @@ Usage::
 from __future__ import annotations
 
 import argparse
+import filecmp
 import multiprocessing
 import os
 import statistics
@@ -53,6 +57,9 @@ def _make_inputs(folder: Path, rows: int) -> tuple[Path, Path]:
         m = min(100_000, rows - start)
         part = base.iloc[rng.integers(0, len(base), m)].reset_index(drop=True)
         part["id"] = [f"row{start + i}" for i in range(m)]
+        # each row its own time: a unit's readings must have one order (the demo model knows its time column)
+        part["hour"] = (pd.Timestamp("2030-01-01") + pd.to_timedelta(np.arange(start, start + m), unit="min")
+                        ).strftime("%Y-%m-%dT%H:%M")
         for c in numeric:
             part[c] = part[c].to_numpy(float) * (1 + 0.01 * rng.standard_normal(m))
         table = pa.Table.from_pandas(part, preserve_index=False)
@@ -62,16 +69,39 @@ def _make_inputs(folder: Path, rows: int) -> tuple[Path, Path]:
     return folder / "demo" / "model.json", path
 
 
+#: Runs the console script's own entry point, then writes this process's peak resident size (VmHWM, kB)
+#: to the file named first. Not os.wait4's ru_maxrss: Linux keeps the larger of the old address space's
+#: high-water mark across exec, and a child started by vfork has the parent's, so every child reported
+#: at least this benchmark's own size (seen: a child using 8 MB reported 526 MB beside a 500 MB parent).
+_WRAP = """import sys
+from afterlook.cli.main import entry
+report = sys.argv.pop(1)
+sys.argv[0] = "afterlook"
+try:
+    entry()
+finally:
+    with open("/proc/self/status") as fh:
+        hwm = [line.split()[1] for line in fh if line.startswith("VmHWM:")]
+    with open(report, "w") as out:
+        out.write(hwm[0] if hwm else "")
+"""
+
+
 def _run(args: list[str]) -> tuple[float, float]:
-    """(seconds, peak resident MB) of one fresh process."""
-    start = time.perf_counter()
-    proc = subprocess.Popen([str(SCRIPT), *args], stdout=subprocess.DEVNULL, stderr=subprocess.PIPE)
-    _, status, usage = os.wait4(proc.pid, 0)
-    seconds = time.perf_counter() - start
-    if os.waitstatus_to_exitcode(status) != 0:
-        raise SystemExit(f"afterlook {' '.join(args)} failed: {proc.stderr.read().decode()[:300]}")
-    proc.stderr.close()
-    return seconds, usage.ru_maxrss / 1024
+    """(seconds, peak resident MB) of one fresh process running ``afterlook ARGS``."""
+    with tempfile.NamedTemporaryFile(suffix=".hwm", delete=False) as fh:
+        report = fh.name
+    try:
+        start = time.perf_counter()
+        proc = subprocess.run([sys.executable, "-c", _WRAP, report, *args], stdout=subprocess.DEVNULL,
+                              stderr=subprocess.PIPE)
+        seconds = time.perf_counter() - start
+        if proc.returncode != 0:
+            raise SystemExit(f"afterlook {' '.join(args)} failed: {proc.stderr.decode()[:300]}")
+        kib = Path(report).read_text().strip()
+    finally:
+        os.unlink(report)
+    return seconds, (int(kib) / 1024 if kib else float("nan"))
 
 
 def main(argv: list[str] | None = None) -> int:
@@ -96,8 +126,8 @@ def main(argv: list[str] | None = None) -> int:
         lines.append(f"{rows:,} rows, {size:.0f} MiB CSV -> CSV; median of {repeat} fresh processes; "
                      f"load average at the start: {load_now}")
         lines.append("")
-        lines.append("| engine | load | seconds | peak MB | time vs memory | memory vs memory |")
-        lines.append("| --- | --- | --- | --- | --- | --- |")
+        lines.append("| engine | load | seconds | peak MB | time vs memory | memory vs memory | output |")
+        lines.append("| --- | --- | --- | --- | --- | --- | --- |")
         for load in ("idle", "loaded"):
             stop = multiprocessing.Event()
             spinners = []
@@ -114,8 +144,14 @@ def main(argv: list[str] | None = None) -> int:
                     seconds = statistics.median(r[0] for r in runs)
                     peak = max(r[1] for r in runs)
                     reference = reference or (seconds, peak)
+                    out = folder / "out.csv"
+                    if not extra:  # the in-memory score's file: what every engine must write, byte for byte
+                        out.replace(folder / "memory.csv")
+                        same = "reference"
+                    else:
+                        same = "same bytes" if filecmp.cmp(out, folder / "memory.csv", shallow=False) else "DIFFERS"
                     lines.append(f"| {name} | {load} | {seconds:.2f} | {peak:.0f} | {seconds / reference[0]:.2f}x "
-                                 f"| {peak / reference[1]:.2f}x |")
+                                 f"| {peak / reference[1]:.2f}x | {same} |")
                     print(lines[-1], flush=True)
             finally:
                 stop.set()
