@@ -63,14 +63,31 @@ def test_a_folder_that_cannot_be_made_is_not_an_error(tmp_path, monkeypatch):
     assert cache.read("kind", cache.entry_key("k")) is None
 
 
-def test_oldest_entries_are_removed_past_the_limit(tmp_path, monkeypatch):
+def test_oldest_entries_are_removed_past_the_limit_once_per_process(tmp_path, monkeypatch):
     monkeypatch.setenv("AFTERLOOK_CACHE_DIR", str(tmp_path))
-    monkeypatch.setattr(cache, "MAX_ENTRIES", 3)
-    keys = [cache.entry_key(str(i)) for i in range(5)]
-    for i, key in enumerate(keys):
-        assert cache.write("kind", key, i)
-        os.utime(tmp_path / "kind" / f"{key}.json", (1_000_000 + i, 1_000_000 + i))  # a clear order by age
-    left = sorted(p.stem for p in (tmp_path / "kind").glob("*.json"))
-    assert len(left) == 3 and set(left) <= set(keys)
-    assert cache.read("kind", keys[-1]) == 4  # the newest is kept
-    assert json.loads((tmp_path / "kind" / f"{keys[-1]}.json").read_text())["key"] == keys[-1]
+    monkeypatch.setattr(cache, "MAX_ENTRIES", 4)
+    monkeypatch.setattr(cache, "_looked_at", set())
+    folder = tmp_path / "kind"
+    folder.mkdir()
+    old = [cache.entry_key(str(i)) for i in range(5)]
+    for i, key in enumerate(old):  # an earlier process's entries, oldest first
+        (folder / f"{key}.json").write_text(json.dumps({"key": key, "value": i}))
+        os.utime(folder / f"{key}.json", (1_000_000 + i, 1_000_000 + i))
+    new = cache.entry_key("new")
+    assert cache.write("kind", new, "v")  # 6 > 4: down to 3 (three quarters), the newest kept
+    assert sorted(p.stem for p in folder.glob("*.json")) == sorted([new, old[4], old[3]])
+    assert cache.read("kind", new) == "v" and cache.read("kind", old[4]) == 4
+    for i in range(3):  # not looked at again in this process
+        assert cache.write("kind", cache.entry_key(f"more {i}"), i)
+    assert len(list(folder.glob("*.json"))) == 6
+
+
+def test_writes_into_a_full_folder_scan_it_once(tmp_path, monkeypatch):
+    monkeypatch.setenv("AFTERLOOK_CACHE_DIR", str(tmp_path))
+    monkeypatch.setattr(cache, "_looked_at", set())
+    scans = []
+    real = os.scandir
+    monkeypatch.setattr(cache.os, "scandir", lambda path: scans.append(path) or real(path))
+    for i in range(40):
+        cache.write("kind", cache.entry_key(str(i)), i)
+    assert len(scans) == 1
