@@ -503,3 +503,34 @@ async def test_a_notification_waits_while_the_help_is_open(demo, tmp_path):
         await pilot.press("escape")
         await pilot.pause()
         assert not app.held_notes and len(app._notifications) == 1
+
+
+@pytest.mark.asyncio
+async def test_the_candidate_detail_keeps_its_verdict_on_an_80_column_screen(demo, tmp_path, wait_until):
+    # The strainer miss's unit-pair candidates are the demo's longest (invented data, seed 7): name,
+    # expression and verdict need four lines at 80 columns, where the detail shows three.
+    from afterlook.analysis.wording import candidate_verdict
+    from afterlook.tui.widgets.candidates_panel import DETAIL_LINES, CandidatesPanel
+
+    case = "PS-11/2026-04-20T17:00"
+    app = create_app(demo.model, demo.cases, train_path=demo.train, casebook=tmp_path / "b.json")
+    async with app.run_test(size=(80, 24)) as pilot:
+        await pilot.pause()
+        app.select_case(case)
+        await wait_until(pilot, lambda: case in app.candidates, what="candidates for the strainer miss")
+        await pilot.press("c")
+        await pilot.pause()
+        panel = app.workbench.query_one(CandidatesPanel)
+        detail = panel.query_one("#cand-detail", Static)
+        result = app.candidates[case]
+        dropped_a_name = False
+        for i, c in enumerate(result.candidates[:6]):
+            panel._detail(i)
+            await pilot.pause()
+            from rich.text import Text
+
+            text = Text(detail.render().plain)  # wrapped as the Static wraps it (style does not change it)
+            assert len(text.wrap(app.console, detail.size.width)) <= DETAIL_LINES, text.plain
+            assert candidate_verdict(c) in text.plain and c.expression in text.plain
+            dropped_a_name |= c.name not in text.plain
+        assert dropped_a_name  # the case this guards: at least one needed the shorter form

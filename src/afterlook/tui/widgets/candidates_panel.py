@@ -15,6 +15,8 @@ from ..messages import CandidateChosen, CandidateHighlighted, PanelMounted
 
 VERDICT_WIDTH = 25
 NARROW_VERDICT_WIDTH = 10
+#: Lines of the highlighted candidate's detail (app.tcss: #cand-detail max-height).
+DETAIL_LINES = 3
 # narrow panels: the verdict in one word that fits its column (the detail line below has it in full)
 SHORT_VERDICTS = {"holds-up": "holds up", "exposes-only": "exposes", "chance": "chance", "hurts": "hurts"}
 NARROW = 100  # panel width below which the verdict column is cut short
@@ -173,12 +175,23 @@ class CandidatesPanel(Vertical):
             detail.update("")
             return
         c = self.result.candidates[index]
-        t = Text()
-        t.append(f"{index + 1}: {fmt.plain(c.name)} = ", style="bold")
-        t.append(fmt.plain(c.expression))
         good = c.verdict == "holds-up" or (not c.verdict and c.beyond_chance)
         what = f"{kind_words(c.kind)}; " if kind_words(c.kind) else ""  # a unit kind, in words
-        t.append(f"  ({what}{candidate_verdict(c)})", style=self._style("candidates--finding" if good else "candidates--chance"))
+        verdict_style = self._style("candidates--finding" if good else "candidates--chance")
+
+        def line(with_name: bool) -> Text:
+            t = Text()
+            t.append(f"{index + 1}: {fmt.plain(c.name)} = " if with_name else f"{index + 1}: ", style="bold")
+            t.append(fmt.plain(c.expression))
+            t.append(f"  ({what}{candidate_verdict(c)})", style=verdict_style)
+            return t
+
+        t = line(True)
+        # The line has DETAIL_LINES at most: when name, expression and verdict need more (a unit pair at 80
+        # columns), the generated name goes (the recommended line and `a` carry it), never the verdict.
+        width = detail.size.width or max(self.app.size.width - 4, 20)
+        if len(t.wrap(self.app.console, width)) > DETAIL_LINES:
+            t = line(False)
         detail.update(t)
 
     def on_data_table_row_highlighted(self, event: DataTable.RowHighlighted) -> None:
