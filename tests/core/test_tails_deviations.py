@@ -48,7 +48,7 @@ def test_one_partition_gives_numpys_median_and_quantile_exactly(n, q):
 def test_one_tail_fit_answers_every_target_as_tail_probability_does(n, order):
     # Reference: tail_probability (a median, then its own partition for the Pareto fit, per target)
     # on resampled breast-cancer values; many targets beyond every normal value, so most answers
-    # come from the one Pareto fit that Deviations makes from its order statistics' partition.
+    # come from the one Pareto fit that Deviations makes on the first of them and keeps.
     rng = np.random.default_rng(n + 7)
     v = load_breast_cancer().data[rng.integers(0, 569, n), 23]
     targets = np.r_[v.max() + np.ptp(v) * np.linspace(0.01, 5, 9), v.min() - np.ptp(v) * np.linspace(0.01, 5, 9),

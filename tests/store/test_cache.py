@@ -91,3 +91,15 @@ def test_writes_into_a_full_folder_scan_it_once(tmp_path, monkeypatch):
     for i in range(40):
         cache.write("kind", cache.entry_key(str(i)), i)
     assert len(scans) == 1
+
+
+def test_entries_are_written_whole_but_without_fsync(tmp_path, monkeypatch):
+    # store.atomic's writer with durable=False: a temp file renamed into place, no fsync of file or folder
+    monkeypatch.setenv("AFTERLOOK_CACHE_DIR", str(tmp_path))
+
+    def no_fsync(fd):
+        raise AssertionError("a cache entry is not worth an fsync")
+
+    monkeypatch.setattr(os, "fsync", no_fsync)
+    key = cache.entry_key("k")
+    assert cache.write("kind", key, [1, 2]) and cache.read("kind", key) == [1, 2]

@@ -19,8 +19,8 @@ MIN_TAIL_COUNT = 1  # any normal row as extreme as the target: no extrapolation
 TAIL_FRACTION = 0.05  # share of rows in the generalized Pareto tail fit
 MIN_EXCESSES = 50  # at least this many excesses in the tail fit
 
-__all__ = ["gpd_pwm", "gpd_tail", "ParetoTail", "tail_probability", "robust_z", "Deviations", "MAD_TO_SD", "MIN_TAIL_COUNT",
-           "TAIL_FRACTION", "MIN_EXCESSES"]
+__all__ = ["gpd_pwm", "gpd_tail", "ParetoTail", "tail_probability", "robust_z", "Deviations", "MAD_TO_SD",
+           "MIN_TAIL_COUNT", "TAIL_FRACTION", "MIN_EXCESSES"]
 
 
 def gpd_pwm(excess: np.ndarray) -> tuple[float, float]:
@@ -56,6 +56,14 @@ class ParetoTail:
     """A generalized Pareto tail fitted once to the largest absolute deviations; :meth:`probability`
     answers for any target (the fit does not depend on it)."""
 
+    @classmethod
+    def fit(cls, abs_dev: np.ndarray, fraction: float = TAIL_FRACTION) -> "ParetoTail":
+        d = np.asarray(abs_dev, dtype=np.float64).ravel()
+        n = d.size
+        n_tail = _tail_size(n, fraction)
+        # only the largest n_tail + 1 deviations are read, in order: one partition and a sort of those
+        return cls(np.sort(np.partition(d, n - n_tail - 1)[n - n_tail - 1:]), n)
+
     def __init__(self, top: np.ndarray, n: int):
         """``top``: the largest ``_tail_size(n) + 1`` deviations of ``n``, in ascending order."""
         self.n, self.n_tail = n, top.size - 1
@@ -84,12 +92,7 @@ def gpd_tail(abs_dev: np.ndarray, target_dev: float, fraction: float = TAIL_FRAC
     The shape is clamped at ``>= 0`` (an exponential tail at the thinnest),
     so light tails are never extrapolated as bounded.
     """
-    d = np.asarray(abs_dev, dtype=np.float64).ravel()
-    n = d.size
-    n_tail = _tail_size(n, fraction)
-    # only the largest n_tail + 1 deviations are read, in order: one partition and a sort of those
-    top = np.sort(np.partition(d, n - n_tail - 1)[n - n_tail - 1:])
-    return ParetoTail(top, n).probability(target_dev)
+    return ParetoTail.fit(abs_dev, fraction).probability(target_dev)
 
 
 def tail_probability(values: np.ndarray, target: float) -> tuple[float, str, int]:
@@ -121,15 +124,12 @@ class Deviations:
         self.median = np.median(values)
         self.dev = np.abs(values - self.median)
         self._stats: dict = {}
-        self._top_from: np.ndarray | None = None  # the partition's upper part, until the tail is fitted
-        self._pareto: ParetoTail | None = None
+        self._pareto: ParetoTail | None = None  # fitted on the first target beyond every value
 
     def _order_statistics(self, q: float | None) -> None:
-        """The median of the deviations, (with ``q``) their q-quantile and the threshold of the Pareto
-        tail fit, from one ``np.partition``: numpy's own rules (the mean of the two middle values;
-        linear interpolation between the order statistics around ``(n - 1) q``, written as numpy's
-        ``_lerp``). Extra kth in one partition change none of the values at the others, and above the
-        tail's kth lie exactly the largest deviations, as :func:`gpd_tail`'s own partition has them."""
+        """The median of the deviations and (with ``q``) their q-quantile, from one ``np.partition``:
+        numpy's own rules (the mean of the two middle values; linear interpolation between the order
+        statistics around ``(n - 1) q``, written as numpy's ``_lerp``)."""
         dev, n = self.dev, self.dev.size
         mid = [n // 2 - 1, n // 2] if n % 2 == 0 else [(n - 1) // 2]
         kth = set(mid)
@@ -138,17 +138,12 @@ class Deviations:
             lo = n - 1 if v >= n - 1 else int(math.floor(v))
             hi = n - 1 if v >= n - 1 else lo + 1
             kth |= {lo, hi}
-        tail_kth = n - _tail_size(n) - 1 if n >= 1 and self._pareto is None else None
-        if tail_kth is not None:
-            kth.add(tail_kth)
         part = np.partition(dev, sorted(kth))
         self._stats["mad"] = (part[mid[0]] + part[mid[1]]) / 2.0 if len(mid) == 2 else part[mid[0]]
         if q is not None:
             a, b, g = part[lo], part[hi], v - math.floor(v)
             diff = b - a
             self._stats[q] = b - diff * (1 - g) if g >= 0.5 else a + diff * g
-        if tail_kth is not None:
-            self._top_from = part[tail_kth:]
 
     def prepare(self, q: float) -> "Deviations":
         """Compute the median deviation and the ``q``-quantile together (both are asked for)."""
@@ -172,16 +167,9 @@ class Deviations:
         n = self.values.size
         if count >= MIN_TAIL_COUNT:
             return (count + 1) / (n + 1), "empirical", count
-        return self.pareto().probability(t), "pareto tail", count
-
-    def pareto(self) -> ParetoTail:
-        """The Pareto tail of the deviations, fitted on first use (from the order statistics' partition)."""
-        if self._pareto is None:
-            if self._top_from is None:
-                self._order_statistics(None)
-            self._pareto = ParetoTail(np.sort(self._top_from), self.dev.size)
-            self._top_from = None
-        return self._pareto
+        if self._pareto is None:  # one fit for every target: it depends on the deviations only
+            self._pareto = ParetoTail.fit(self.dev)
+        return self._pareto.probability(t), "pareto tail", count
 
     def quantile(self, q: float) -> float:
         if q not in self._stats:

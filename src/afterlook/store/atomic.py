@@ -49,10 +49,13 @@ def _write_atomic(p: Path, data: bytes, *, mode_of: Path | None = None) -> None:
 
 
 @contextlib.contextmanager
-def atomic_file(p: Path, *, mode_of: Path | None = None) -> Iterator[BinaryIO]:
+def atomic_file(p: Path, *, mode_of: Path | None = None, durable: bool = True) -> Iterator[BinaryIO]:
     """A binary file handle whose contents replace ``p`` atomically when the block ends.
 
     Temp file in the same folder, fsync, ``os.replace``, fsync the folder.
+    ``durable=False`` leaves out both fsyncs: still whole-or-nothing for a
+    reader, but a crash may lose the new file (the cache folder's entries,
+    where a lost entry is only work done again).
     The temp file is created with mode 0666 minus the umask, like any new
     file, and takes the mode of ``mode_of`` (default: the file it replaces)
     when that exists, so a file shared with a team stays readable by it. An
@@ -79,7 +82,8 @@ def atomic_file(p: Path, *, mode_of: Path | None = None) -> Iterator[BinaryIO]:
         with os.fdopen(fd, "wb") as fh:
             yield fh
             fh.flush()
-            os.fsync(fh.fileno())
+            if durable:
+                os.fsync(fh.fileno())
         source = mode_of if mode_of is not None else p
         try:
             os.chmod(tmp, stat.S_IMODE(os.stat(source).st_mode))
@@ -92,7 +96,8 @@ def atomic_file(p: Path, *, mode_of: Path | None = None) -> Iterator[BinaryIO]:
         if isinstance(exc, OSError):
             raise AfterlookError(f"cannot write {p}: {_reason(exc)}; the previous file is unchanged") from None
         raise
-    _fsync_folder(folder)
+    if durable:
+        _fsync_folder(folder)
 
 
 def _reason(exc: OSError) -> str:

@@ -23,7 +23,8 @@ import json
 import os
 from pathlib import Path
 
-import secrets
+from ..core.errors import AfterlookError
+from .atomic import atomic_file
 
 __all__ = ["ENV", "MAX_ENTRIES", "folder", "entry_key", "read", "write"]
 
@@ -78,19 +79,13 @@ def write(kind: str, key: str, value) -> bool:
     p = _path(kind, key)
     if p is None:
         return False
-    # A temporary file renamed into place: a reader sees the whole entry or none. No fsync (unlike
-    # store.atomic): an entry lost in a crash is only work done again, and 40 fsyncs would cost
-    # the first call more than the cache saves.
-    tmp = p.with_name(f".{p.name}.{secrets.token_hex(4)}.tmp")
+    # store.atomic's writer without its fsyncs: an entry lost in a crash is only work done again,
+    # and 40 fsyncs would cost the first call more than the cache saves.
     try:
         p.parent.mkdir(parents=True, exist_ok=True)
-        tmp.write_bytes(json.dumps({"key": key, "value": value}).encode("utf-8"))
-        os.replace(tmp, p)
-    except OSError:
-        try:
-            tmp.unlink(missing_ok=True)
-        except OSError:
-            pass
+        with atomic_file(p, durable=False) as fh:
+            fh.write(json.dumps({"key": key, "value": value}).encode("utf-8"))
+    except (OSError, AfterlookError):
         return False
     _prune(p.parent)
     return True
