@@ -32,7 +32,7 @@ def test_a_constant_majority_falls_back_to_the_sd_as_robust_z_does():
 
 @pytest.mark.parametrize("n", [30, 31, 100, 101, 4999, 5000, 50_000])
 @pytest.mark.parametrize("q", [0.99, 0.5, 0.9, 0.999, 0.995])
-def test_one_partition_gives_numpys_median_and_quantile_exactly(n, q):
+def test_the_order_statistics_are_numpys_median_and_quantile_exactly(n, q):
     # Reference: numpy's median and quantile (default linear method) of the same deviations,
     # on resampled breast-cancer values (real values, many ties among them)
     rng = np.random.default_rng(n)

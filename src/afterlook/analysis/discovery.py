@@ -385,7 +385,7 @@ _SHAPING_CACHE_SIZE = 4096
 #: The modules whose code decides a shaping choice and its text: part of every disk key,
 #: so an entry written by other code (another release, or a change in a checkout) is never read.
 _SHAPING_CODE = ("core/shaping.py", "core/shaping_fast.py", "core/normality.py", "core/numbers.py",
-                 "core/recipe.py", "core/shaped_text.py", "analysis/discovery.py")
+                 "core/order_stats.py", "core/recipe.py", "core/shaped_text.py", "analysis/discovery.py")
 _shaping_code_digest: bytes | None = None
 
 

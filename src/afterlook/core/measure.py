@@ -85,7 +85,7 @@ class RobustMeasure:
             return False
         spread = Deviations(v)
         if self.others:
-            spread.prepare(1.0 - settings.alarm_rate)  # the alarm quantile and the MAD from one partition
+            spread.prepare(1.0 - settings.alarm_rate)  # the alarm quantile of the deviations
         zs = spread.robust_z(tv)
         tails = [spread.tail(float(t)) for t in tv]
         guard = chance_verdict(np.array([t[0] for t in tails]), self.n_tried)

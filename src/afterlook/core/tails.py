@@ -14,6 +14,8 @@ import math
 
 import numpy as np
 
+from . import order_stats
+
 MAD_TO_SD = 1.4826  # consistency constant of the MAD for a normal distribution
 MIN_TAIL_COUNT = 1  # any normal row as extreme as the target: no extrapolation
 TAIL_FRACTION = 0.05  # share of rows in the generalized Pareto tail fit
@@ -116,45 +118,27 @@ class Deviations:
 
     :meth:`robust_z`, :meth:`tail` and :meth:`quantile` give exactly what
     :func:`robust_z`, :func:`tail_probability` and ``np.quantile(|v - med|, q)``
-    give on the same values (a test checks it), without a median per question.
+    give on the same values (a test checks it), without a median per question; the
+    order statistics come from :mod:`afterlook.core.order_stats` (one-position partitions).
     """
 
     def __init__(self, values: np.ndarray):
         self.values = values
-        self.median = np.median(values)
+        self.median = order_stats.median(values)
         self.dev = np.abs(values - self.median)
-        self._stats: dict = {}
+        self._mad: float | None = None
+        self._quantiles: dict[float, float] = {}
         self._pareto: ParetoTail | None = None  # fitted on the first target beyond every value
 
-    def _order_statistics(self, q: float | None) -> None:
-        """The median of the deviations and (with ``q``) their q-quantile, from one ``np.partition``:
-        numpy's own rules (the mean of the two middle values; linear interpolation between the order
-        statistics around ``(n - 1) q``, written as numpy's ``_lerp``)."""
-        dev, n = self.dev, self.dev.size
-        mid = [n // 2 - 1, n // 2] if n % 2 == 0 else [(n - 1) // 2]
-        kth = set(mid)
-        if q is not None:
-            v = (n - 1) * float(q)
-            lo = n - 1 if v >= n - 1 else int(math.floor(v))
-            hi = n - 1 if v >= n - 1 else lo + 1
-            kth |= {lo, hi}
-        part = np.partition(dev, sorted(kth))
-        self._stats["mad"] = (part[mid[0]] + part[mid[1]]) / 2.0 if len(mid) == 2 else part[mid[0]]
-        if q is not None:
-            a, b, g = part[lo], part[hi], v - math.floor(v)
-            diff = b - a
-            self._stats[q] = b - diff * (1 - g) if g >= 0.5 else a + diff * g
-
     def prepare(self, q: float) -> "Deviations":
-        """Compute the median deviation and the ``q``-quantile together (both are asked for)."""
-        if q not in self._stats:
-            self._order_statistics(q)
+        """Compute the ``q``-quantile of the deviations now (it will be asked for)."""
+        self.quantile(q)
         return self
 
     def robust_z(self, target: np.ndarray | float) -> np.ndarray:
-        if "mad" not in self._stats:
-            self._order_statistics(None)
-        mad = MAD_TO_SD * self._stats["mad"]
+        if self._mad is None:
+            self._mad = order_stats.median(self.dev)
+        mad = MAD_TO_SD * self._mad
         if not mad > 0:
             mad = self.values.std()
         if not mad > 0:
@@ -172,9 +156,9 @@ class Deviations:
         return self._pareto.probability(t), "pareto tail", count
 
     def quantile(self, q: float) -> float:
-        if q not in self._stats:
-            self._order_statistics(q)
-        return self._stats[q]
+        if q not in self._quantiles:
+            self._quantiles[q] = order_stats.quantile(self.dev, q)
+        return self._quantiles[q]
 
 
 def robust_z(values: np.ndarray, target: np.ndarray | float) -> np.ndarray:
