@@ -17,6 +17,7 @@ from ..cautions import CAUTION
 from ..core.blas import environment_for_new_process, limited_blas
 from ..core.errors import EXIT_BAD_INPUT, EXIT_CHECK_FAILED, EXIT_INTERNAL, EXIT_INTERRUPTED, EXIT_OK, AfterlookError
 from ..store.outputs import check_output
+from .allocator import keep_freed_memory
 from .inputs import table_options
 from .output import emit_json, error_line, metrics_lines, saved_model_summary, warn
 
@@ -306,6 +307,7 @@ def entry() -> None:
     # Before numpy loads: OpenBLAS then starts with afterlook's thread count
     # (one by default) instead of one thread per core (see core/blas.py).
     os.environ.update(environment_for_new_process())
+    keep_freed_memory()  # the command's own process: temporaries reused, not page-faulted anew (cli/allocator.py)
     sys.exit(main())
 
 
