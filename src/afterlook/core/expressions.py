@@ -154,7 +154,10 @@ class Expression:
             out = np.asarray(out, dtype=np.float64)
             if out.ndim == 0:
                 out = np.full(n if n is not None else 1, float(out))
-            out = np.where(np.isfinite(out), out, np.nan)
+            # _Evaluator.visit has already made every non-finite value NaN; only a caller's own column
+            # (the expression ``x``) comes back as it went in, and the caller gets a copy of it
+            if any(out is a for a in env.values()):
+                out = out.copy()
         return out
 
     def rename_text(self) -> str:
