@@ -45,12 +45,14 @@ class AddedFeatureRefit:
     the caller re-fits in full. A test checks it against the full re-fit.
     """
 
-    def __init__(self, model: Model, columns: list, raw_train, case_features, case_raw, labels, base: GaussianModel):
+    def __init__(self, model: Model, columns: list, raw_train, case_features, case_raw, labels, base: GaussianModel,
+                 means: np.ndarray | None = None):
         # the training features as d columns (the caller's arrays where a feature has no transform): the
         # conditional update reads them column by column, so the (n, d) matrix is made only when needed
         self.model, self.columns, self.raw_train = model, columns, raw_train
         self.case_features, self.case_raw, self.labels, self.base = case_features, case_raw, labels, base
         self._matrix = None
+        self._means = means  # the training columns' means (column_means), when the caller has them
         # log p(x) of the current features, reused: with one added column y,
         # log p(x, y) = log p(x) + log N(y; E[y | x], var(y | x)) exactly.
         # the session's scores already carry the model's undefined-value policy (-inf outside a domain)
@@ -84,7 +86,8 @@ class AddedFeatureRefit:
             columns = [np.ascontiguousarray(c) for c in fm.values[keep].T]
         if len(columns[0]) < 2:
             return None
-        base = same_fit(d, columns, column_means(columns))
+        means = column_means(columns)
+        base = same_fit(d, columns, means)
         if base is None:
             try:
                 base = GaussianModel(kind=d.kind, shrinkage=d.shrinkage).fit(np.column_stack(columns), list(model.recipe.features))
@@ -94,7 +97,8 @@ class AddedFeatureRefit:
             progress(1.0)
         scope = session.scope("normal")
         raw_train = scope if every else {k: v[keep] for k, v in scope.items()}
-        return cls(model, columns, raw_train, session.scored.features, session.scope("cases"), session.labels, base)
+        return cls(model, columns, raw_train, session.scored.features, session.scope("cases"), session.labels, base,
+                   means=means)
 
     def _parsed(self, expression) -> expressions.Expression:
         """``expression`` parsed; zscore(...) frozen on the training rows it is re-fitted on when it is not yet."""
@@ -118,7 +122,7 @@ class AddedFeatureRefit:
                 ready[expr.text] = y
         cross = None
         if ready and self.base.kind == "full" and not self.base.shrinkage_:
-            cross = centred_cross(self.columns, list(ready.values()))
+            cross = centred_cross(self.columns, list(ready.values()), x_means=self._means)
         for k, (text, y) in enumerate(ready.items()):
             self._ready[text] = (y, None if cross is None else cross[:, k])
 

@@ -89,17 +89,19 @@ def same_fit(density: GaussianModel, X, mean: np.ndarray) -> GaussianModel | Non
     return density
 
 
-def centred_cross(X, Y, block: int = 8192) -> np.ndarray:
+def centred_cross(X, Y, block: int = 8192, x_means: np.ndarray | None = None) -> np.ndarray:
     """``(X - X.mean(axis=0))^T (Y - Y.mean(axis=0)) / n`` (d x k) for many columns ``Y`` at once.
 
     ``X`` and ``Y`` are (n, d) and (n, k) arrays or sequences of columns. Both are
     centred a block of rows at a time into two small column-major buffers that stay
     in cache, so no centred (or stacked) copy of the rows is made; the means are
-    taken per column, as :func:`afterlook.core.added_column.added_column` takes them.
+    taken per column, as :func:`afterlook.core.added_column.added_column` takes them (``x_means``:
+    :func:`column_means` of ``X``, when the caller already has them).
     """
     xs, ys = as_columns(X), as_columns(Y)
     n, d, k = len(xs[0]), len(xs), len(ys)
-    mx, my = column_means(xs), column_means(ys)
+    mx = column_means(xs) if x_means is None else x_means
+    my = column_means(ys)
     out = np.zeros((d, k))
     bx = np.empty((min(block, n), d), order="F")
     by = np.empty((min(block, n), k), order="F")
