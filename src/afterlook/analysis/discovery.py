@@ -159,9 +159,9 @@ def suggest(model, cases, train=None, case_ids=None, top: int = 10, *,
     fleet_found = fleet.screen(idx) if fleet is not None else []
     tried += fleet.tried if fleet is not None else 0
     _report(progress, "exact statistics", 0.35)
-    targets = set(idx)
-    other = np.array([i for i in np.flatnonzero(labels) if i not in targets and np.all(np.isfinite(C[i]))],
-                     dtype=int)
+    candidates_other = labels & np.all(np.isfinite(C), axis=1)
+    candidates_other[idx] = False
+    other = np.flatnonzero(candidates_other)
     other_cols = {n: C[other, k] for k, n in enumerate(names)}
     other_is_miss = miss_mask[other] if len(other) else np.zeros(0, bool)
     target_cols = {n: T[:, k] for k, n in enumerate(names)}

@@ -188,7 +188,31 @@ def parse(text: str, known_columns: list[str] | tuple[str, ...] | None = None) -
         raise AfterlookError("empty expression")
     if len(source) > MAX_LENGTH:
         raise AfterlookError(f"expression is longer than {MAX_LENGTH} characters")
+    expr = _PARSED.get(source)
+    if expr is None:
+        expr = _parsed(source)
+        if len(_PARSED) >= _PARSED_SIZE:
+            _PARSED.pop(next(iter(_PARSED)))
+        _PARSED[source] = expr
+    if known_columns is not None:
+        known = list(known_columns)
+        for col in expr.columns:
+            if col not in known:
+                raise AfterlookError(
+                    f"expression '{_short(source)}' uses unknown column {_quote(col)}"
+                    + _did_you_mean(col, known)
+                )
+    return expr
 
+
+#: Expressions parsed before, by their text: an Expression never changes (fitting makes a new one), and
+#: the candidate search parses the same few hundred texts in its screen, its passes and every new search.
+_PARSED: dict[str, Expression] = {}
+_PARSED_SIZE = 8192
+
+
+def _parsed(source: str) -> Expression:
+    """The checked tree of ``source`` (stripped, at most MAX_LENGTH characters) as an Expression."""
     # Backtick-quoted names become placeholders so that names with spaces parse.
     names: dict[str, str] = {}
     quoted: dict[str, str] = {}
@@ -222,17 +246,8 @@ def parse(text: str, known_columns: list[str] | tuple[str, ...] | None = None) -
         key = frozen_calls.call_key(node.func.id, _unparse(node.args[0], names))
         call_keys[id(node)] = key
         call_nodes.setdefault(key, node)
-    expr = Expression(text=source, columns=tuple(ordered), _tree=tree.body, _names=names,
+    return Expression(text=source, columns=tuple(ordered), _tree=tree.body, _names=names,
                       calls=tuple(call_nodes), _call_nodes=call_nodes, _call_keys=call_keys, history=checker.history)
-    if known_columns is not None:
-        known = list(known_columns)
-        for col in expr.columns:
-            if col not in known:
-                raise AfterlookError(
-                    f"expression '{_short(source)}' uses unknown column {_quote(col)}"
-                    + _did_you_mean(col, known)
-                )
-    return expr
 
 
 def evaluate(text: str, columns: Mapping[str, np.ndarray]) -> tuple[np.ndarray, int]:

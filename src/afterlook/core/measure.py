@@ -53,6 +53,14 @@ class RobustMeasure:
         self.others = other_anomalies is not None and other_is_miss is not None and len(other_is_miss) > 0
         self.other_anomalies, self.other_is_miss = other_anomalies, other_is_miss
         self.n = len(next(iter(sample.values())))
+        # the targets and the other anomalies evaluated together, one call per candidate, when every
+        # function is row by row (no unit labels, times or earlier readings in either mapping)
+        self._both = None
+        if self.others and not any(k in m for m in (targets, other_anomalies) for k in (UNITS, TIMES, PAST)) \
+                and set(targets) == set(other_anomalies):
+            self._both = {k: np.concatenate([np.asarray(targets[k], dtype=np.float64),
+                                             np.asarray(other_anomalies[k], dtype=np.float64)]) for k in targets}
+            self._n_targets = len(np.asarray(next(iter(targets.values()))))
         # a sample that carries each row's unit and its units' past (the fleet search's) is measured whole:
         # a subset of its rows would lose the previous readings lag() reads
         if any(k in sample for k in (UNITS, TIMES, PAST)):
@@ -80,7 +88,12 @@ class RobustMeasure:
         v = v[np.isfinite(v)]
         if v.size < 30 or v.std() == 0:
             return False
-        tv = expr.evaluate(self.targets)
+        if self._both is not None:
+            both = expr.evaluate(self._both)
+            tv, ov = both[:self._n_targets], both[self._n_targets:]
+        else:
+            tv = expr.evaluate(self.targets)
+            ov = expr.evaluate(self.other_anomalies) if self.others else None
         if not np.all(np.isfinite(tv)):
             return False
         spread = Deviations(v)
@@ -100,7 +113,6 @@ class RobustMeasure:
         c.chance_method, c.count_tail = guard.method, guard.count_tail
         c.beyond_chance = guard.beyond_chance(settings.chance_level)
         if self.others:
-            ov = expr.evaluate(self.other_anomalies)
             med = spread.median
             cut = spread.quantile(1.0 - settings.alarm_rate)
             sep = np.isfinite(ov) & (np.abs(ov - med) > cut)
