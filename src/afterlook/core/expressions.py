@@ -22,41 +22,27 @@ exception or an infinity: callers count the NaN rows and report them.
 from __future__ import annotations
 
 import ast
-import math
 import keyword
 import warnings
 import difflib
 import re
 from dataclasses import dataclass, field, replace
-from typing import Callable, Mapping
+from typing import Mapping
 
 import numpy as np
 
 from . import frozen as frozen_calls
 from . import units as unit_stats
 from .errors import AfterlookError
+from .expression_eval import (BINARY_OPS, UNARY_FUNCTIONS, VARIADIC_FUNCTIONS, Evaluator, number_of, row_context,
+                              short)
 
 MAX_LENGTH = 2000  # characters; a derived feature is a formula, not a program
 MAX_DEPTH = 60  # nesting depth of the syntax tree
 
-_UNARY_FUNCTIONS: dict[str, Callable[[np.ndarray], np.ndarray]] = {
-    "log": np.log,
-    "log1p": np.log1p,
-    "sqrt": np.sqrt,
-    "abs": np.abs,
-    "exp": np.exp,
-}
-_VARIADIC_FUNCTIONS = {"min": np.minimum, "max": np.maximum}  # NaN propagates
-FUNCTIONS = tuple(sorted([*_UNARY_FUNCTIONS, *_VARIADIC_FUNCTIONS, "clip", *frozen_calls.STATEFUL,
+FUNCTIONS = tuple(sorted([*UNARY_FUNCTIONS, *VARIADIC_FUNCTIONS, "clip", *frozen_calls.STATEFUL,
                           *frozen_calls.NAMED, *unit_stats.RECENT]))
 
-_BINARY_OPS = {
-    ast.Add: np.add,
-    ast.Sub: np.subtract,
-    ast.Mult: np.multiply,
-    ast.Div: np.divide,
-    ast.Pow: np.power,
-}
 _BINARY_SYMBOLS = {ast.Add: "+", ast.Sub: "-", ast.Mult: "*", ast.Div: "/", ast.Pow: "**"}
 _PRECEDENCE = {ast.Add: 1, ast.Sub: 1, ast.Mult: 2, ast.Div: 2, ast.Pow: 4}
 
@@ -112,18 +98,18 @@ class Expression:
         if not self.calls:
             return self
         env, n = self._env(normal)
-        context = _context(normal)
+        context = row_context(normal)
         done: dict[str, dict] = {}
         with np.errstate(all="ignore"):
             for key in self.calls:
                 node = self._call_nodes[key]
                 try:
-                    values = _Evaluator(env, done, self._call_keys, self.text, context).visit(node.args[0])
+                    values = Evaluator(env, done, self._call_keys, self.text, context).visit(node.args[0])
                     values = np.broadcast_to(np.asarray(values, dtype=np.float64), (n if n is not None else 1,))
                     done[key] = frozen_calls.fit_call(node.func.id, key[len(node.func.id) + 1:-1], values,
                                                       context[0])
                 except AfterlookError as exc:
-                    raise AfterlookError(f"expression '{_short(self.text)}': {exc.message}") from None
+                    raise AfterlookError(f"expression '{short(self.text)}': {exc.message}") from None
         return replace(self, frozen=done)
 
     def _env(self, columns: Mapping[str, np.ndarray]) -> tuple[dict, int | None]:
@@ -149,8 +135,8 @@ class Expression:
         """
         env, n = self._env(columns)
         with np.errstate(all="ignore"):
-            out = _Evaluator(env, self.frozen, self._call_keys, self.text,
-                             _context(columns, self._names)).visit(self._tree)
+            out = Evaluator(env, self.frozen, self._call_keys, self.text,
+                             row_context(columns, self._names)).visit(self._tree)
             out = np.asarray(out, dtype=np.float64)
             if out.ndim == 0:
                 out = np.full(n if n is not None else 1, float(out))
@@ -199,7 +185,7 @@ def parse(text: str, known_columns: list[str] | tuple[str, ...] | None = None) -
         for col in expr.columns:
             if col not in known:
                 raise AfterlookError(
-                    f"expression '{_short(source)}' uses unknown column {_quote(col)}"
+                    f"expression '{short(source)}' uses unknown column {_quote(col)}"
                     + _did_you_mean(col, known)
                 )
     return expr
@@ -235,7 +221,7 @@ def _parsed(source: str) -> Expression:
             tree = ast.parse(prepared.strip(), mode="eval")
     except (SyntaxError, ValueError, RecursionError, MemoryError, OverflowError) as exc:
         detail = getattr(exc, "msg", None) or type(exc).__name__
-        raise AfterlookError(f"cannot parse expression '{_short(source)}': {detail}") from None
+        raise AfterlookError(f"cannot parse expression '{short(source)}': {detail}") from None
     back = {ph: col for col, ph in quoted.items()}
     ordered: list[str] = []
     checker = _Checker(back, names, ordered, source)
@@ -289,13 +275,13 @@ class _Checker:
         self.history = 0
 
     def fail(self, what: str) -> None:
-        raise AfterlookError(f"expression '{_short(self.source)}': {what} is not allowed")
+        raise AfterlookError(f"expression '{short(self.source)}': {what} is not allowed")
 
     def check(self, node: ast.AST, depth: int) -> None:
         if depth > MAX_DEPTH:
-            raise AfterlookError(f"expression '{_short(self.source)}' is nested too deeply")
+            raise AfterlookError(f"expression '{short(self.source)}' is nested too deeply")
         if isinstance(node, ast.BinOp):
-            if type(node.op) not in _BINARY_OPS:
+            if type(node.op) not in BINARY_OPS:
                 self.fail(f"operator '{type(node.op).__name__}'")
             self.check(node.left, depth + 1)
             self.check(node.right, depth + 1)
@@ -311,7 +297,7 @@ class _Checker:
             except OverflowError:
                 finite = False
             if not finite:
-                raise AfterlookError(f"expression '{_short(self.source)}': the number {_short(str(node.value), 20)} is too large")
+                raise AfterlookError(f"expression '{short(self.source)}': the number {short(str(node.value), 20)} is too large")
         elif isinstance(node, ast.Name):
             if not isinstance(node.ctx, ast.Load):
                 self.fail("assignment")
@@ -332,26 +318,26 @@ class _Checker:
                 self.fail("a keyword argument")
             name = node.func.id
             n = len(node.args)
-            if name in _UNARY_FUNCTIONS and n != 1:
-                raise AfterlookError(f"expression '{_short(self.source)}': {name}() takes one argument, got {n}")
-            if name in _VARIADIC_FUNCTIONS and n < 2:
-                raise AfterlookError(f"expression '{_short(self.source)}': {name}() takes two or more arguments")
+            if name in UNARY_FUNCTIONS and n != 1:
+                raise AfterlookError(f"expression '{short(self.source)}': {name}() takes one argument, got {n}")
+            if name in VARIADIC_FUNCTIONS and n < 2:
+                raise AfterlookError(f"expression '{short(self.source)}': {name}() takes two or more arguments")
             if name == "clip" and n != 3:
-                raise AfterlookError(f"expression '{_short(self.source)}': clip() takes (x, lo, hi)")
+                raise AfterlookError(f"expression '{short(self.source)}': clip() takes (x, lo, hi)")
             if name in frozen_calls.STATEFUL and n != frozen_calls.STATEFUL[name]:
-                raise AfterlookError(f"expression '{_short(self.source)}': {name}() takes one argument, got {n}")
+                raise AfterlookError(f"expression '{short(self.source)}': {name}() takes one argument, got {n}")
             if name in frozen_calls.NAMED:
                 if n != 2:
-                    raise AfterlookError(f"expression '{_short(self.source)}': {name}() takes (x, p), got {n} "
+                    raise AfterlookError(f"expression '{short(self.source)}': {name}() takes (x, p), got {n} "
                                          "argument(s)")
-                if _number_of(node.args[1]) is None:
-                    raise AfterlookError(f"expression '{_short(self.source)}': the power p of {name}(x, p) must "
+                if number_of(node.args[1]) is None:
+                    raise AfterlookError(f"expression '{short(self.source)}': the power p of {name}(x, p) must "
                                          "be a number")
             if name in unit_stats.RECENT:
                 what = unit_stats.RECENT[name]
-                count = _number_of(node.args[1]) if n == 2 else None
+                count = number_of(node.args[1]) if n == 2 else None
                 if n != 2 or count is None or count != int(count) or count < 1 or count > 100_000:
-                    raise AfterlookError(f"expression '{_short(self.source)}': {name}() takes (x, {what}) with {what} "
+                    raise AfterlookError(f"expression '{short(self.source)}': {name}() takes (x, {what}) with {what} "
                                          "a whole number of readings, at least 1")
                 self.history += int(count) - (1 if name == "rolling_median" else 0)
             for arg in node.args:
@@ -370,86 +356,6 @@ class _Checker:
                 ast.IfExp: "'if' expressions",
             }.get(type(node), f"'{type(node).__name__}'")
             self.fail(label)
-
-
-class _Evaluator(ast.NodeVisitor):
-    """Evaluates a checked tree; every intermediate non-finite value becomes NaN,
-    so ``1 / (x / 0)`` stays NaN instead of quietly turning into 0."""
-
-    def __init__(self, env: Mapping[str, np.ndarray], frozen: Mapping[str, dict] | None = None,
-                 call_keys: Mapping[int, str] | None = None, text: str = "", context=(None, None, None)):
-        self.env = env
-        self.units, self.times, self.past = context
-        self.frozen = frozen or {}
-        self.call_keys = call_keys or {}
-        self.text = text
-
-    def visit(self, node):
-        value = super().visit(node)
-        if isinstance(value, np.ndarray) and value.dtype == np.float64 and value.ndim == 1 \
-                and math.isfinite(float(np.add.reduce(value))):
-            return value  # a finite sum means every value is finite (a NaN or an infinity would carry through)
-        return np.where(np.isfinite(value), value, np.nan)
-
-    def visit_BinOp(self, node: ast.BinOp):
-        return _BINARY_OPS[type(node.op)](self.visit(node.left), self.visit(node.right))
-
-    def visit_UnaryOp(self, node: ast.UnaryOp):
-        value = self.visit(node.operand)
-        return np.negative(value) if isinstance(node.op, ast.USub) else value
-
-    def visit_Constant(self, node: ast.Constant):
-        # Constants are float64 from the start: an integer power tower can
-        # never turn into an arbitrarily large Python int.
-        try:
-            return np.float64(node.value)
-        except OverflowError:
-            return np.float64(np.inf if node.value > 0 else -np.inf)
-
-    def visit_Name(self, node: ast.Name):
-        return self.env[node.id]
-
-    def visit_Call(self, node: ast.Call):
-        name = node.func.id
-        if name in frozen_calls.NAMED:
-            return frozen_calls.apply_named(name, self.visit(node.args[0]), _number_of(node.args[1]))
-        if name in unit_stats.RECENT:
-            values = np.asarray(self.visit(node.args[0]), dtype=np.float64)
-            if values.ndim == 0:
-                values = np.full(len(self.units) if self.units is not None else 1, float(values))
-            fn = unit_stats.lag if name == "lag" else unit_stats.rolling_median
-            units, times = self.units, self.times
-            m = 0
-            if self.past is not None and units is not None:  # the units' earlier readings come first
-                env, past_units, past_times = self.past
-                before = _Evaluator(env, self.frozen, self.call_keys, self.text, (past_units, past_times, None))
-                earlier = np.broadcast_to(np.asarray(before.visit(node.args[0]), dtype=np.float64), (len(past_units),))
-                m = earlier.shape[0]
-                values = np.concatenate([earlier, values])
-                units = np.concatenate([np.asarray(past_units, dtype=object), np.asarray(units, dtype=object)])
-                times = np.concatenate([np.asarray(past_times), np.asarray(times)])
-            return fn(values, int(_number_of(node.args[1])), units, times, f"{name}() in '{_short(self.text)}'")[m:]
-        args = [self.visit(a) for a in node.args]
-        if name in frozen_calls.STATEFUL:
-            key = self.call_keys[id(node)]
-            params = self.frozen.get(key)
-            if params is None:
-                raise AfterlookError(f"expression '{_short(self.text)}': {_short(key)} has no statistics frozen "
-                                     "from normal rows (fit it on the normal population first)")
-            return frozen_calls.apply_call(name, args[0], params, self.units)
-        if name in _UNARY_FUNCTIONS:
-            return _UNARY_FUNCTIONS[name](np.asarray(args[0], dtype=np.float64))
-        if name in _VARIADIC_FUNCTIONS:
-            fn = _VARIADIC_FUNCTIONS[name]
-            out = args[0]
-            for a in args[1:]:
-                out = fn(out, a)
-            return out
-        x, lo, hi = args
-        return np.minimum(np.maximum(x, lo), hi)
-
-    def generic_visit(self, node):  # pragma: no cover - the checker forbids it
-        raise AfterlookError(f"'{type(node).__name__}' is not allowed")
 
 
 def _unparse(node: ast.AST, names: Mapping[str, str], parent_prec: int = 0, right: bool = False) -> str:
@@ -473,38 +379,6 @@ def _unparse(node: ast.AST, names: Mapping[str, str], parent_prec: int = 0, righ
     raise AfterlookError(f"cannot print '{type(node).__name__}'")  # pragma: no cover
 
 
-def _context(columns: Mapping, names: Mapping[str, str] | None = None) -> tuple:
-    """The rows' unit labels and time keys, when the layer that read the table put them in ``columns``,
-    and the preceding readings (``--context``) as (placeholder env, units, times) or None."""
-    try:
-        units = columns[unit_stats.UNITS] if unit_stats.UNITS in columns else None
-        times = columns[unit_stats.TIMES] if unit_stats.TIMES in columns else None
-        past = columns[unit_stats.PAST] if unit_stats.PAST in columns else None
-    except KeyError:
-        return None, None, None
-    if past is None or names is None or not len(past.get(unit_stats.UNITS, ())):
-        return units, times, None
-    m = len(past[unit_stats.UNITS])
-    env = {ph: (np.asarray(past[col], dtype=np.float64) if col in past else np.full(m, np.nan))
-           for ph, col in names.items()}
-    return units, times, (env, past[unit_stats.UNITS], past[unit_stats.TIMES])
-
-
-def _number_of(node: ast.AST) -> float | None:
-    """The value of a number written in the expression (``0.5``, ``-0.05``), else None."""
-    sign = 1.0
-    while isinstance(node, ast.UnaryOp) and isinstance(node.op, (ast.USub, ast.UAdd)):
-        sign = -sign if isinstance(node.op, ast.USub) else sign
-        node = node.operand
-    if isinstance(node, ast.Constant) and isinstance(node.value, (int, float)) and not isinstance(node.value, bool):
-        try:
-            value = sign * float(node.value)
-        except OverflowError:
-            return None
-        return value if np.isfinite(value) else None
-    return None
-
-
 def _common_length(arrays) -> int | None:
     n = None
     for a in arrays:
@@ -521,8 +395,6 @@ def _quote(name: str) -> str:
     return f"'{name}'"
 
 
-def _short(text: str, limit: int = 80) -> str:
-    return text if len(text) <= limit else text[: limit - 3] + "..."
 
 
 def _did_you_mean(name: str, known: list[str]) -> str:

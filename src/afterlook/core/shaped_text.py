@@ -75,7 +75,7 @@ def _readable_power(name: str, text: str) -> str:
         return expr.text
     if expr._names.get(node.left.id) != name:
         return expr.text
-    power = expressions._number_of(node.right)
+    power = expressions.number_of(node.right)
     if power is None or power == 0 or (power < 0) != negated:
         return expr.text  # -(x ** 0.5) decreases: it is not an affine map of a Box-Cox transform
     return power_text(name, "boxcox", power)
