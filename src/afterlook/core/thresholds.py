@@ -162,7 +162,9 @@ def best_f1_threshold(log_density: np.ndarray, is_anomaly: np.ndarray) -> tuple[
     always = np.isneginf(ld)
     tp0, fp0 = int((always & y).sum()), int((always & ~y).sum())
     s, yy = ld[ok], y[ok]
-    order = np.argsort(s, kind="mergesort")
+    # any sort will do: a cut is made only after the last of a run of equal scores, where the counts
+    # include the whole run whatever its order (numpy's default sort, vectorised, is ~5x a stable one)
+    order = np.argsort(s)
     s, yy = s[order], yy[order]
     # Cut after position k (flag s[0..k]); only where the next score differs.
     last_of_run = np.r_[s[1:] != s[:-1], True]
