@@ -130,14 +130,14 @@ class AddedFeatureRefit:
         """:class:`Refitted` cases after adding ``expression`` (text or parsed), or None."""
         try:
             expr = self._parsed(expression)
-            y, cross = self._ready.pop(expr.text, (None, None))
+            y, cross = self._ready.pop(expr.text, (None, None))  # prefetched: finite on every row
             if y is None:
                 y = expr.evaluate(self.raw_train)
+                if not np.all(np.isfinite(y)):
+                    return None  # a full re-fit would drop rows: parameters of every column change
             y_cases = expr.evaluate(self.case_raw)
         except AfterlookError:
             return None
-        if not np.all(np.isfinite(y)):
-            return None  # a full re-fit would drop rows: parameters of every column change
         base = self.base
         if base.kind == "full" and base.shrinkage_:
             new = with_added_column(base, self.X, y, "candidate")

@@ -192,8 +192,15 @@ def kfold_gain(before: np.ndarray, after: np.ndarray, is_anomaly: np.ndarray, po
     y = np.asarray(is_anomaly, dtype=bool)
     if not (b.shape == a.shape == y.shape):
         raise AfterlookError("held-out estimate: before, after and labels must have one value per case")
-    folds = stratified_folds(y, k, seed)
-    key = (_digest(b), _digest(y), policy, float(false_alarm_rate), int(k), seed)
+    y_digest = _digest(y)
+    folds = _FOLDS.get((y_digest, int(k), seed)) if seed is not None else None
+    if folds is None:
+        folds = stratified_folds(y, k, seed)
+        folds.setflags(write=False)  # shared by later calls
+        if len(_FOLDS) >= 8:
+            _FOLDS.pop(next(iter(_FOLDS)))
+        _FOLDS[(y_digest, int(k), seed)] = folds
+    key = (_digest(b), y_digest, policy, float(false_alarm_rate), int(k), seed)
     side_before = _BEFORE.get(key) if seed is not None else None  # no seed: fresh folds every call
     if side_before is None:
         side_before = _one_side(b, y, folds, policy, false_alarm_rate)
@@ -210,8 +217,10 @@ def kfold_gain(before: np.ndarray, after: np.ndarray, is_anomaly: np.ndarray, po
                    improved=int(np.sum(~right_before & right_after)), worsened=int(np.sum(right_before & ~right_after)))
 
 
-#: The ``before`` side of recent :func:`kfold_gain` calls (a search asks it for every candidate).
+#: The ``before`` side of recent :func:`kfold_gain` calls (a search asks it for every candidate), and the
+#: folds of recent labels (seeded folds depend on the labels, the count and the seed only).
 _BEFORE: dict = {}
+_FOLDS: dict = {}
 
 
 def _digest(values: np.ndarray) -> bytes:
