@@ -79,7 +79,9 @@ class AddedFeatureRefit:
         columns = model.recipe.feature_columns(raw)
         if progress is not None:
             progress(0.5)
-        every = all(bool(np.isfinite(c).all()) for c in columns)  # the usual case: no copy of the rows
+        known = session.finite_base_columns("normal")  # finite as read: an untransformed one is not looked at again
+        every = all((name in known and c is raw[name]) or bool(np.isfinite(c).all())
+                    for name, c in zip(model.recipe.features, columns))  # the usual case: no copy of the rows
         if not every:
             fm = model.recipe.transform_features(raw)
             keep = fm.finite_rows

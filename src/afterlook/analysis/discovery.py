@@ -141,7 +141,8 @@ def suggest(model, cases, train=None, case_ids=None, top: int = 10, *,
     names = model.recipe.features
     raw_normal = session.raw_features("normal")
     _report(progress, "normal population", 0.08)  # every report is also where the workbench can stop a search
-    A = finite_sample(raw_normal, names, settings.sample_size, settings.random_state)
+    A = finite_sample(raw_normal, names, settings.sample_size, settings.random_state,
+                      known_finite=session.finite_base_columns("normal"))
     sample = {n: A[:, k] for k, n in enumerate(names)}
     raw_cases = session.raw_features("cases")
     C = np.column_stack([raw_cases[n] for n in names])

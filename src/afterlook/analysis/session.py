@@ -298,6 +298,12 @@ class Session:
             raw = self._raw[which] = self.model.recipe.raw_features(self.columns(which))
         return raw
 
+    def finite_base_columns(self, which: str) -> frozenset:
+        """The model's base columns that hold no missing or infinite value on these rows: what the table
+        found when it was read (a subset of its rows keeps it), so a search need not look again."""
+        table = self.training.table if which == NORMAL else self.cases
+        return frozenset(self.model.recipe.base) & table.finite_columns
+
     def scope(self, which: str, extra: Sequence[str] = ()) -> dict[str, np.ndarray]:
         """Raw columns and untransformed model features by name (what an expression may read)."""
         raw = self.raw_features(which)

@@ -124,6 +124,8 @@ class Table:
         Other columns (text, dates, true/false ...), shown but not modelled.
     warnings : list of str
         One line each.
+    finite_columns : frozenset of str
+        The numeric columns with no missing or infinite value (seen while the table was read).
     """
 
     frame: pd.DataFrame = field(repr=False)
@@ -135,6 +137,7 @@ class Table:
     numeric_columns: list[str]
     context_columns: list[str]
     warnings: list[str] = field(default_factory=list)
+    finite_columns: frozenset = field(default_factory=frozenset, repr=False)
     _first_row: dict[str, int] | None = field(default=None, init=False, repr=False, compare=False)
 
     @property
@@ -454,15 +457,18 @@ def _build_table(frame: pd.DataFrame, name: str, *, id_col, label_col, require_l
     values = frame[numeric_columns]
     finite = np.ones(len(frame), dtype=bool)
     per_column: list[tuple[int, str]] = []
+    finite_columns = set()
     for col in numeric_columns:
         series = values[col]
         # float64 holds NaN for missing: read it in place instead of converting a copy
         ok = np.isfinite(series.to_numpy(copy=False) if series.dtype == np.float64
                          else series.to_numpy(dtype=np.float64, na_value=np.nan))
-        n_bad = int(len(ok) - ok.sum())
+        n_bad = len(ok) - np.count_nonzero(ok)
         if n_bad:
             per_column.append((n_bad, col))
             finite &= ok
+        else:
+            finite_columns.add(col)
     if per_column:
         n_rows = int(len(finite) - finite.sum())
         per_column.sort(key=lambda t: (-t[0], str(t[1])))
@@ -482,6 +488,7 @@ def _build_table(frame: pd.DataFrame, name: str, *, id_col, label_col, require_l
         numeric_columns=numeric_columns,
         context_columns=context_columns,
         warnings=warnings,
+        finite_columns=frozenset(finite_columns),
     )
 
 
