@@ -23,11 +23,28 @@ from .output import emit_json, error_line, metrics_lines, saved_model_summary, w
 
 
 class _Parser(argparse.ArgumentParser):
-    """argparse that reports a usage error as one line and exit code 2."""
+    """argparse that reports a usage error as one line and exit code 2, and takes a command's
+    positionals wherever they are written (``suggest MODEL CASES --train T CASE_ID`` as well as
+    ``suggest MODEL CASES CASE_ID --train T``): plain argparse stops filling ``CASE_ID ...``
+    at the first option and then calls the case id an unrecognised argument."""
+
+    _intermixing = False
 
     def error(self, message: str):  # noqa: D401 - argparse API
         where = self.prog.removeprefix("afterlook").strip()
         raise AfterlookError(f"{where + ': ' if where else ''}{message} (see '{self.prog} --help')")
+
+    def parse_known_args(self, args=None, namespace=None):
+        # argparse's intermixed parsing calls parse_known_args itself (the flag stops the recursion), and
+        # refuses a parser whose positionals include sub-commands: those parse as before
+        if self._intermixing or any(a.nargs in (argparse.PARSER, argparse.REMAINDER)
+                                    for a in self._get_positional_actions()):
+            return super().parse_known_args(args, namespace)
+        self._intermixing = True
+        try:
+            return self.parse_known_intermixed_args(args, namespace)
+        finally:
+            self._intermixing = False
 
 
 def _add_common(p: argparse.ArgumentParser) -> None:
