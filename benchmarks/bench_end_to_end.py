@@ -1,6 +1,6 @@
 """Whole operations as a user meets them, against the obvious alternative, idle and loaded.
 
-    .venv/bin/python benchmarks/bench_end_to_end.py [--quick] [--runs 3] [--only suggest,fit,score,start] [--out FILE]
+    .venv/bin/python benchmarks/bench_end_to_end.py [--quick] [--runs 3] [--only suggest,command,fit,score,start] [--out FILE]
 
 Every afterlook time is a whole API call or a whole command in a fresh
 process (``_workloads.py``), with afterlook's default of one BLAS thread; the
@@ -79,6 +79,37 @@ def start_times(demo: Path, runs: int) -> dict:
     return {k: median(v) for k, v in out.items()}
 
 
+def command_rows(say, folder: Path, rows: int, load: str, runs: int) -> None:
+    """The whole ``afterlook suggest`` command (the console script: start, imports, reading both Parquet
+    tables, the search, the JSON), taking turns: cold (cache folder off), cold with glibc's own malloc
+    settings (``MALLOC_TOP_PAD_`` at its default value turns afterlook's tuning off, cli/allocator.py),
+    and with the shaping choices an earlier command left in the cache folder."""
+    script = str(Path(sys.executable).parent / "afterlook")
+    if not (folder / "model.json").exists():  # the model the API rows fit in their own process, as a file
+        subprocess.run([script, "fit", str(folder / "train.parquet"), "--cases", str(folder / "cases.parquet"),
+                        "--kind", "full", "--out", str(folder / "model.json")], check=True, capture_output=True)
+    cmd = [script, "suggest", str(folder / "model.json"), str(folder / "cases.parquet"), "miss",
+           "--train", str(folder / "train.parquet"), "--json"]
+    base = {k: v for k, v in os.environ.items()
+            if k not in ("OPENBLAS_NUM_THREADS", "AFTERLOOK_BLAS_THREADS", "PYTHONDONTWRITEBYTECODE", "GLIBC_TUNABLES")
+            and not k.startswith("MALLOC_")}
+    with tempfile.TemporaryDirectory() as cache:
+        envs = {"cold": {**base, "AFTERLOOK_CACHE_DIR": "off"},
+                "glibc": {**base, "AFTERLOOK_CACHE_DIR": "off", "MALLOC_TOP_PAD_": str(128 * 1024)},
+                "warm": {**base, "AFTERLOOK_CACHE_DIR": cache}}
+        for env in envs.values():
+            _wall(cmd, env)  # bytecode written, the cache folder filled
+        times = {k: [] for k in envs}
+        for _ in range(runs):
+            for k, env in envs.items():
+                times[k].append(_wall(cmd, env))
+    t = {k: median(v) for k, v in times.items()}
+    say(f"| `afterlook suggest` command, {rows:,} x 40 Parquet, 1 miss, cache folder off | {load} | {t['cold']:.2f} | "
+        f"the same with glibc's default malloc settings | {t['glibc']:.2f} | {t['cold'] / t['glibc']:.2f}x | |")
+    say(f"| the same command, shaping choices read from the cache folder | {load} | {t['warm']:.2f} | "
+        f"the cold command above | {t['cold']:.2f} | {t['warm'] / t['cold']:.2f}x | |")
+
+
 def suggest_rows(say, folder: Path, rows: int, load: str, runs: int) -> None:
     """The suggest rows: first and second call (medians over fresh processes) against the pandas loop,
     in wall seconds and in CPU seconds of the process (what a busy shared machine changes least);
@@ -111,14 +142,14 @@ def main(argv=None) -> int:
     ap.add_argument("--quick", action="store_true", help="50,000 x 40, 100,000 x 32 to score, one process each")
     ap.add_argument("--runs", type=int, default=3, help="fresh processes per measurement")
     ap.add_argument("--out", help="where to write the Markdown results (a full run: results_end_to_end.md)")
-    ap.add_argument("--only", default="suggest,fit,score,start",
-                    help="comma-separated parts to run: suggest, fit, score, start (default: all)")
+    ap.add_argument("--only", default="suggest,command,fit,score,start",
+                    help="comma-separated parts to run: suggest, command, fit, score, start (default: all)")
     args = ap.parse_args(argv)
     parts = {p.strip() for p in args.only.split(",") if p.strip()}
     rows, score_rows = (50_000, 100_000) if args.quick else (200_000, 1_000_000)
     if args.quick:
         args.runs = 1
-    full = parts >= {"suggest", "fit", "score", "start"}
+    full = parts >= {"suggest", "command", "fit", "score", "start"}
     out_path = args.out or (None if args.quick or not full else str(HERE / "results_end_to_end.md"))
 
     lines = []
@@ -146,6 +177,8 @@ def main(argv=None) -> int:
             with _workloads.load(load):
                 if "suggest" in parts:
                     suggest_rows(say, folder, rows, load, args.runs)
+                if "command" in parts:
+                    command_rows(say, folder, rows, load, args.runs)
                 if "fit" in parts:
                     fits = [_workloads.run_step("fit", folder) for _ in range(args.runs)]
                     t_f, r_f = median([r["afterlook"] for r in fits]), median([r["reference"] for r in fits])
