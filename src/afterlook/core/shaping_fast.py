@@ -59,17 +59,22 @@ _GRID = np.arange(-3.25, 3.26, 0.5)  # lambda grid (no point at 0)
 _BLOCK = 64  # candidate columns scored per K^2 call (small blocks: temporaries of a few MB, reused)
 
 
-def k2_statistics(V: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+def k2_statistics(V: np.ndarray, scratch: "_Scratch | None" = None) -> tuple[np.ndarray, np.ndarray]:
     """D'Agostino-Pearson ``K^2`` and the biased skewness of every column of ``V`` (m x k, m >= 8).
 
     ``K^2`` equals ``scipy.stats.normaltest(V, axis=0).statistic``; NaN where
-    scipy returns NaN (a column whose variance is lost to rounding).
+    scipy returns NaN (a column whose variance is lost to rounding). ``scratch``: two buffers
+    of at least V's size for the temporaries (the same numbers either way).
     """
     V = np.asarray(V, dtype=np.float64)
     n = V.shape[0]
     mean = V.mean(axis=0)
-    C = V - mean
-    C2 = C * C
+    if scratch is None:
+        C = V - mean
+        C2 = C * C
+    else:
+        C = np.subtract(V, mean, out=scratch.like(0, V))
+        C2 = np.multiply(C, C, out=scratch.like(1, V))
     m2 = C2.mean(axis=0)
     m3 = np.einsum("ij,ij->j", C2, C) / n
     m4 = np.einsum("ij,ij->j", C2, C2) / n
@@ -106,16 +111,42 @@ def _log_var_ratio(lam: np.ndarray, D: np.ndarray) -> np.ndarray:
     return np.log(Z.var(axis=0)) - 2.0 * np.log(np.abs(lam))
 
 
-def _slope(lam: np.ndarray, D: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """First and second derivative in lambda of :func:`_log_var_ratio`, per column."""
-    Z = np.exp(D * lam)
+class _Scratch:
+    """Reused buffers for the (m x k) temporaries of a loop: a call that allocates a few MB afresh on every
+    step has each block page-faulted again (glibc gives such blocks back to the kernel when they are freed:
+    about 50,000 faults and half the time of a shaping search measured here), where one buffer per role is
+    faulted once. Each buffer is viewed with the memory order of the array it stands in for, so every
+    reduction sums in the same order as on a fresh temporary: the same numbers to the last bit."""
+
+    def __init__(self, size: int, roles: int):
+        self._flat = [np.empty(size) for _ in range(roles)]
+
+    def view(self, role: int, shape: tuple[int, int], fortran: bool = False) -> np.ndarray:
+        """Buffer ``role`` as an (m, k) array in C order, or in Fortran order."""
+        m, k = shape
+        flat = self._flat[role][: m * k]
+        return flat.reshape(k, m).T if fortran else flat.reshape(m, k)
+
+    def like(self, role: int, a: np.ndarray) -> np.ndarray:
+        """Buffer ``role`` as an array of ``a``'s shape and memory order."""
+        return self.view(role, a.shape, fortran=a.flags.f_contiguous and not a.flags.c_contiguous)
+
+
+def _slope(lam: np.ndarray, D: np.ndarray, scratch: _Scratch | None = None) -> tuple[np.ndarray, np.ndarray]:
+    """First and second derivative in lambda of :func:`_log_var_ratio`, per column (``scratch``: buffers
+    for the temporaries, at least five of D's size; the same numbers either way)."""
+    if scratch is None:
+        scratch = _Scratch(D.size, 5)
+    Z = np.multiply(D, lam, out=scratch.like(0, D))
+    np.exp(Z, out=Z)
     a1 = Z.mean(axis=0)
-    Zc = Z - a1
-    ZD = Z * D
+    Zc = np.subtract(Z, a1, out=scratch.like(1, D))
+    ZD = np.multiply(Z, D, out=scratch.like(2, D))
     v = np.einsum("ij,ij->j", Zc, Zc)
     v1 = 2.0 * np.einsum("ij,ij->j", Zc, ZD)
-    ZDc = ZD - ZD.mean(axis=0)
-    v2 = 2.0 * np.einsum("ij,ij->j", Zc, ZD * D) + 2.0 * np.einsum("ij,ij->j", ZDc, ZDc)
+    ZDc = np.subtract(ZD, ZD.mean(axis=0), out=scratch.like(3, D))
+    ZDD = np.multiply(ZD, D, out=scratch.like(4, D))
+    v2 = 2.0 * np.einsum("ij,ij->j", Zc, ZDD) + 2.0 * np.einsum("ij,ij->j", ZDc, ZDc)
     g1 = v1 / v - 2.0 / lam
     g2 = v2 / v - (v1 / v) ** 2 + 2.0 / lam**2
     return g1, g2
@@ -140,14 +171,15 @@ def power_mle(L: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     objective[~np.isfinite(objective)] = np.inf
     start = _GRID[np.argmin(objective, axis=0)]
     lo, hi = start - 0.5, start + 0.5
+    scratch = _Scratch(D.size, 5)
     with np.errstate(all="ignore"):
-        f_lo, f_hi = _slope(lo, D)[0], _slope(hi, D)[0]
+        f_lo, f_hi = _slope(lo, D, scratch)[0], _slope(hi, D, scratch)[0]
         for _ in range(3):  # widen a side until the derivative changes sign across the bracket (columns that need it)
             for bound, f, step, good in ((lo, f_lo, -1.0, lambda x: x < 0), (hi, f_hi, 1.0, lambda x: x > 0)):
                 bad = np.flatnonzero(~good(f))
                 if bad.size:
                     bound[bad] += step
-                    f[bad] = _slope(bound[bad], D[:, bad])[0]
+                    f[bad] = _slope(bound[bad], D[:, bad], scratch)[0]
         ok = (f_lo < 0) & (f_hi > 0)
         lam = np.clip(start, lo, hi)
         lam = np.where(lam == 0, 0.25, lam)
@@ -156,7 +188,9 @@ def power_mle(L: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
             if not active.size:
                 break
             x, a, b = lam[active], lo[active], hi[active]
-            g1, g2 = _slope(x, D[:, active])
+            # D[:, active] is a column-major copy: D itself serves when it is one already and every column is
+            # active (a row-major D would be summed in another order)
+            g1, g2 = _slope(x, D if active.size == k and D.flags.f_contiguous else D[:, active], scratch)
             a = np.where(g1 < 0, x, a)
             b = np.where(g1 > 0, x, b)
             newton = x - g1 / g2
@@ -246,11 +280,15 @@ def _fast_choices(names: list[str], arrays: dict, sample_size: int, random_state
         specs.append((j, text, complexity))
         values.append(v)
     stats = np.full(len(values), np.nan)
+    m = S.shape[0]
+    scratch = _Scratch(_BLOCK * m, 3)  # the block itself and k2_statistics' two temporaries
     for start in range(0, len(values), _BLOCK):
         progress(0.6 + 0.4 * start / len(values))
-        V = np.array(values[start:start + _BLOCK]).T  # each candidate contiguous: a copy, not a strided fill
+        block = values[start:start + _BLOCK]
+        # each candidate contiguous (a copy, not a strided fill): the layout of np.array(block).T
+        V = np.stack(block, out=scratch.view(2, (len(block), m))).T
         usable = np.all(np.isfinite(V), axis=0) & (np.ptp(V, axis=0) > 0)
-        k2, _ = k2_statistics(V)
+        k2, _ = k2_statistics(V, scratch)
         stats[start:start + _BLOCK] = np.where(usable, k2, np.nan)
     tried = {j: [TransformTried("none", None, 0, float(k2_identity[j]))] for j in search}
     for (j, text, complexity), s in zip(specs, stats):
