@@ -21,8 +21,6 @@ casebook check      entry                                      ``case``
 
 from __future__ import annotations
 
-import html
-
 __all__ = ["Tabular", "frame_of", "html_of"]
 
 #: result class name -> (key of the list of rows in to_dict(), index column)
@@ -74,6 +72,8 @@ def _frame(pd, rows: list, index: str):
 
 def html_of(result) -> str:
     """A one-line summary and the result's table, as HTML (every value escaped)."""
+    import html  # here: a notebook's HTML view only; every command would import it (2 ms) for nothing
+
     doc = result.to_dict()
     summary = "; ".join(f"{k} {_scalar(v)}" for k, v in doc.items()
                         if not isinstance(v, (list, dict)) and v is not None)
