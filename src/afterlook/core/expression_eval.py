@@ -34,6 +34,7 @@ BINARY_OPS = {
     ast.Pow: np.power,
 }
 
+
 class Evaluator(ast.NodeVisitor):
     """Evaluates a checked tree; every intermediate non-finite value becomes NaN,
     so ``1 / (x / 0)`` stays NaN instead of quietly turning into 0."""

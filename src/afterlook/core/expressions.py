@@ -395,8 +395,6 @@ def _quote(name: str) -> str:
     return f"'{name}'"
 
 
-
-
 def _did_you_mean(name: str, known: list[str]) -> str:
     close = difflib.get_close_matches(name, known, n=1)
     return f" (did you mean '{close[0]}'?)" if close else ""

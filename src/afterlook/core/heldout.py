@@ -196,10 +196,11 @@ def kfold_gain(before: np.ndarray, after: np.ndarray, is_anomaly: np.ndarray, po
     folds = _FOLDS.get((y_digest, int(k), seed)) if seed is not None else None
     if folds is None:
         folds = stratified_folds(y, k, seed)
-        folds.setflags(write=False)  # shared by later calls
-        if len(_FOLDS) >= 8:
-            _FOLDS.pop(next(iter(_FOLDS)))
-        _FOLDS[(y_digest, int(k), seed)] = folds
+        if seed is not None:  # seeded folds are the same every call: kept, read-only, for the next one
+            folds.setflags(write=False)
+            if len(_FOLDS) >= 8:
+                _FOLDS.pop(next(iter(_FOLDS)))
+            _FOLDS[(y_digest, int(k), seed)] = folds
     key = (_digest(b), y_digest, policy, float(false_alarm_rate), int(k), seed)
     side_before = _BEFORE.get(key) if seed is not None else None  # no seed: fresh folds every call
     if side_before is None:

@@ -70,11 +70,9 @@ def k2_statistics(V: np.ndarray, scratch: "_Scratch | None" = None) -> tuple[np.
     n = V.shape[0]
     mean = V.mean(axis=0)
     if scratch is None:
-        C = V - mean
-        C2 = C * C
-    else:
-        C = np.subtract(V, mean, out=scratch.like(0, V))
-        C2 = np.multiply(C, C, out=scratch.like(1, V))
+        scratch = _Scratch(V.size, 2)
+    C = np.subtract(V, mean, out=scratch.like(0, V))
+    C2 = np.multiply(C, C, out=scratch.like(1, V))
     m2 = C2.mean(axis=0)
     m3 = np.einsum("ij,ij->j", C2, C) / n
     m4 = np.einsum("ij,ij->j", C2, C2) / n
