@@ -25,6 +25,7 @@ import sys
 import threading
 
 from .errors import AfterlookError
+from .heap import settle
 
 ENV = "AFTERLOOK_BLAS_THREADS"
 DEFAULT_THREADS = 1
@@ -100,10 +101,12 @@ def limited_blas():
 
 
 def with_limited_blas(fn):
-    """Decorator form of :func:`limited_blas` for afterlook's operations."""
+    """Decorator form of :func:`limited_blas` for afterlook's operations (which also :func:`~afterlook.core.heap.settle`
+    the process's heap, once)."""
 
     @functools.wraps(fn)
     def wrapper(*args, **kwargs):
+        settle()  # once per process: glibc then keeps the operation's temporaries for reuse (core/heap.py)
         with limited_blas():
             return fn(*args, **kwargs)
 
