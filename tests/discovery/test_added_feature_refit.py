@@ -170,3 +170,23 @@ def test_fast_refit_of_a_unit_relative_candidate_equals_try(demo, kind, shrinkag
         assert outcome.confusion == full.after, text
     # a change candidate is NaN on each station's first training reading: the search re-fits it in full (try)
     assert fast.evaluate("suction_bar - lag(suction_bar, 1)") is None
+
+
+def test_a_candidate_prepared_earlier_is_not_prepared_again_and_refits_the_same(demo, monkeypatch):
+    # a spare prepared with the first re-fits is served from that pass; its outcome equals the full re-fit's
+    from afterlook.analysis import added_refit
+    from afterlook.analysis.session import as_table
+
+    tr, cs = as_table(demo.train), as_table(demo.cases)
+    model = afterlook.fit(tr, cases=cs, kind="full")
+    fast = AddedFeatureRefit.prepare(Session(model, cs, tr))
+    passes = []
+    real = added_refit.centred_cross
+    monkeypatch.setattr(added_refit, "centred_cross", lambda X, Y, **kw: passes.append(len(Y)) or real(X, Y, **kw))
+    fast.prefetch(EXPRESSIONS[:2])  # the first re-fits and their spare
+    fast.prefetch(EXPRESSIONS[1:3])  # later: the spare again, and one not prepared
+    assert passes == [2, 1]
+    outcome = fast.evaluate(EXPRESSIONS[1])
+    full = try_features(model, cs, {"candidate": EXPRESSIONS[1]}, train=tr)
+    np.testing.assert_allclose(outcome.log_density, Session(full.model, cs).scored.log_density, rtol=1e-9, atol=1e-9)
+    assert outcome.confusion == full.after

@@ -115,6 +115,8 @@ class AddedFeatureRefit:
         for k, expression in enumerate(many):
             if progress is not None and k % 2 == 0:
                 progress(k / max(len(many), 1))
+            if (expression if isinstance(expression, str) else expression.text) in self._ready:
+                continue  # prepared by an earlier call (a spare of the first re-fits)
             try:
                 expr = self._parsed(expression)
                 y = expr.evaluate(self.raw_train)

@@ -31,6 +31,9 @@ from .session import Session, prepare
 #: Re-fitted at least this many candidates by default: with fewer (``--top 3``) a candidate ranked
 #: 4th before its re-fit could never be judged ``holds-up``, so the recommendation changed with --top.
 EXACT_AT_LEAST = 10
+#: Candidates after the first ``exact`` whose training columns and cross-covariances are prepared with theirs:
+#: a verdict that demotes a re-fitted one brings the next in, and one pass over the training rows serves both.
+SPARE_REFITS = 2
 
 __all__ = ["SuggestResult", "suggest", "AddedFeatureRefit"]
 
@@ -185,7 +188,7 @@ def suggest(model, cases, train=None, case_ids=None, top: int = 10, *,
     _report(progress, "preparing the re-fits", 0.4)
     refitter = _Refitter(session, idx, folds, progress, max(exact, 0))
     ranked = cand.measured_whole(ranked, max(exact, top), settings)  # again after the affine check dropped some
-    refitter.refit_many(ranked[: max(exact, 0)])
+    refitter.refit_many(ranked[: max(exact, 0)], spare=ranked[max(exact, 0): max(exact, 0) + SPARE_REFITS])
     while True:  # the list is ranked by verdict, which needs the re-fit: re-fit what would be listed
         ranked = [c for c in ranked if id(c) not in refitter.failed]
         for c in ranked:
@@ -337,10 +340,11 @@ class _Refitter:
         self.rate = flagged_rate(scored.log_density, session.model.threshold, labels) if labels is not None else 0.0
         self.fast = AddedFeatureRefit.prepare(session, progress=_stage(progress, "preparing the re-fits", 0.4, 0.4))
 
-    def refit_many(self, cands: list) -> None:
-        """:meth:`refit` each, their training columns and cross-covariances computed together."""
+    def refit_many(self, cands: list, spare: tuple | list = ()) -> None:
+        """:meth:`refit` each, their training columns and cross-covariances computed together (with those
+        of ``spare``: the next in the ranking, which the verdicts may yet bring into the listed ones)."""
         if self.fast is not None:
-            self.fast.prefetch([c.parsed or c.expression for c in cands],
+            self.fast.prefetch([c.parsed or c.expression for c in [*cands, *spare]],
                                progress=_stage(self.progress, "preparing the re-fits", 0.4, 0.4))
         for c in cands:
             self.refit(c)
