@@ -7,7 +7,6 @@ scoring call the pure functions in :mod:`afterlook.core`; only ``save`` and
 
 from __future__ import annotations
 
-import threading
 from dataclasses import dataclass, field
 from datetime import datetime, timezone
 from typing import Mapping
@@ -18,7 +17,7 @@ import pandas as pd
 from .._version import __version__
 from ..core import fingerprint as fingerprints
 from ..core.errors import AfterlookError
-from ..core.explain import QUANTILE_POINTS, grid_of_sorted_columns, quantile_grid
+from ..core.explain import QUANTILE_POINTS, quantile_grid
 from ..core.gaussian import GaussianModel, RowMoments
 from ..core.recipe import FeatureMatrix, Recipe, apply_transform
 from ..core.thresholds import UNDEFINED_POLICIES, ThresholdPolicy, apply_undefined_policy, flag, parse_policy
@@ -71,17 +70,6 @@ class Model:
     unit_col: str | None = None  # --unit-col / --time-col recorded at fit (analysis/unit_rows.py)
     time_col: str | None = None
     context_frame: pd.DataFrame | None = None  # --context: readings before the cases (not saved)
-
-    def defer_quantiles(self, rows: np.ndarray) -> None:
-        """Make the quantile grid from ``rows`` (n, d) when it is first read, not now.
-
-        ``rows`` must be the model's own Fortran-ordered copy of its finite
-        training features: it is kept until then and sorted in place, so a fit
-        whose grid is never used (a notebook that only scores) never pays the
-        sort, and one that is saved pays it once.
-        """
-        self.__dict__["_grid_rows"] = rows
-        self.__dict__["_quantiles"] = None
 
     # -- features and scores ---------------------------------------------
     @property
@@ -293,28 +281,6 @@ class Model:
         return ", ".join(parts)
 
 
-_GRID_LOCK = threading.Lock()  # two workbench threads must not sort the same rows at once
-
-
-def _get_quantiles(self) -> np.ndarray | None:
-    if self.__dict__.get("_grid_rows") is not None:
-        with _GRID_LOCK:
-            rows = self.__dict__.get("_grid_rows")
-            if rows is not None:
-                self.__dict__["_quantiles"] = _grid_of_own_rows(rows)
-                self.__dict__["_grid_rows"] = None
-    return self.__dict__.get("_quantiles")
-
-
-def _set_quantiles(self, value) -> None:
-    self.__dict__["_grid_rows"] = None
-    self.__dict__["_quantiles"] = value
-
-
-# Set after the dataclass is made, so that ``quantiles`` stays an __init__ field.
-Model.quantiles = property(_get_quantiles, _set_quantiles, doc="Quantile grid (points, d), made on first use.")
-
-
 def load_model(path) -> Model:
     """Read a model file (clear error for anything that is not one)."""
     return Model.from_dict(model_file.read_model_document(path), source_path=str(path))
@@ -338,14 +304,6 @@ def training_summary(X: np.ndarray, names: list[str], quantiles: bool = True,
     if not quantiles:
         return stats, None
     return stats, quantile_grid(X, QUANTILE_POINTS)
-
-
-def _grid_of_own_rows(X: np.ndarray) -> np.ndarray:
-    """The quantile grid of ``X`` (n, d), Fortran-ordered and finite, sorting ``X`` in place (no copy)."""
-    if X.shape[0] < 2 or not np.isfortran(X):
-        return quantile_grid(X, QUANTILE_POINTS)
-    X.sort(axis=0)  # each column is contiguous: one in-place sort per column
-    return grid_of_sorted_columns(X.T, QUANTILE_POINTS)
 
 
 def _columns_of(obj) -> Mapping[str, np.ndarray]:

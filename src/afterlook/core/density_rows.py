@@ -108,7 +108,8 @@ class RowMoments:
     @classmethod
     def of(cls, X: np.ndarray, full: bool = True, *, mean: np.ndarray | None = None,
            minimum: np.ndarray | None = None, maximum: np.ndarray | None = None) -> "RowMoments":
-        """Moments of the rows of ``X`` (n, d); fastest when ``X`` is Fortran-ordered (columns contiguous).
+        """Moments of the rows of ``X`` (n, d), or of d columns (1-D arrays of length n, e.g. views of a
+        DataFrame's columns: no (n, d) copy is made); an array is fastest Fortran-ordered.
 
         The scatter ``sum (x - mean)(x - mean)^T`` is summed over row blocks
         centred in a cache-sized buffer, so no centred copy of ``X`` is made.
@@ -116,9 +117,18 @@ class RowMoments:
         ``mean``, ``minimum``, ``maximum``: the columns' own, when the caller
         already has them (read while each column was in cache).
         """
-        X = np.asarray(X, dtype=np.float64)
-        n, d = X.shape
-        mean = X.mean(axis=0) if mean is None else mean
+        matrix = None if isinstance(X, (list, tuple)) else X
+        if matrix is None:  # d columns: centred a block at a time into the same buffer (the same numbers)
+            columns = _as_columns(X)
+            n, d = (len(columns[0]) if columns else 0), len(columns)
+            if mean is None:
+                mean = np.array([c.mean() for c in columns])
+            if minimum is None or maximum is None:
+                minimum, maximum = np.array([c.min() for c in columns]), np.array([c.max() for c in columns])
+        else:
+            X = matrix = np.asarray(matrix, dtype=np.float64)
+            n, d = X.shape
+            mean = X.mean(axis=0) if mean is None else mean
         scatter = np.zeros((d, d))
         squares = np.zeros(d)
         block = max(1, min(n, _BLOCK_VALUES // max(d, 1)))
@@ -126,7 +136,11 @@ class RowMoments:
         for start in range(0, n, block):
             stop = min(n, start + block)
             c = buf[:, : stop - start]
-            np.subtract(X[start:stop].T, mean[:, None], out=c)
+            if matrix is not None:
+                np.subtract(X[start:stop].T, mean[:, None], out=c)
+            else:
+                for j, col in enumerate(columns):
+                    np.subtract(col[start:stop], mean[j], out=c[j])
             if full:
                 scatter += c @ c.T
             else:

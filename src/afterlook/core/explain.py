@@ -53,6 +53,23 @@ def quantile_grid(X: np.ndarray, points: int = QUANTILE_POINTS) -> np.ndarray:
     return grid_of_sorted_columns(columns, points)
 
 
+def grid_of_columns(columns, points: int = QUANTILE_POINTS) -> np.ndarray:
+    """:func:`quantile_grid` of d finite columns of equal length (1-D arrays, e.g. views of a DataFrame's
+    columns), to the bit: each is copied into one reused buffer and sorted there, so neither the
+    columns nor an (n, d) copy of them is touched or made."""
+    columns = [np.asarray(c, dtype=np.float64) for c in columns]
+    n = len(columns[0]) if columns else 0
+    if n < 2:
+        return quantile_grid(np.column_stack(columns) if columns else np.empty((n, 0)), points)
+    buffer = np.empty((1, n))
+    grid = np.empty((points, len(columns)))
+    for j, column in enumerate(columns):
+        np.copyto(buffer[0], column)
+        buffer.sort(axis=1)
+        grid[:, j] = grid_of_sorted_columns(buffer, points)[:, 0]
+    return grid
+
+
 def grid_of_sorted_columns(columns: np.ndarray, points: int = QUANTILE_POINTS) -> np.ndarray:
     """:func:`quantile_grid` of finite columns already sorted, given as the rows of ``columns`` (d, n)."""
     n = columns.shape[1]

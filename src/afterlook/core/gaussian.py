@@ -212,13 +212,21 @@ class GaussianModel:
             moments: RowMoments | None = None) -> "GaussianModel":
         """Fit on the rows of ``X`` (all finite; the caller drops the rest).
 
-        ``moments`` may pass :meth:`RowMoments.of` of the same ``X`` when the
-        caller needs them too (the training summary), so the rows are read once.
+        ``X``: an (n, d) array, or a list of d columns (1-D arrays of length n, e.g.
+        views of a DataFrame's columns: the classical fit reads them through
+        ``moments`` and makes no (n, d) copy; the robust and Ledoit-Wolf fits
+        stack them). ``moments`` may pass :meth:`RowMoments.of` of the same rows
+        when the caller needs them too (the training summary), so the rows are read once.
         """
-        X = np.asarray(X, dtype=np.float64)
-        if X.ndim != 2 or X.shape[1] == 0:
-            raise AfterlookError("nothing to fit: no feature columns")
-        n, d = X.shape
+        if isinstance(X, (list, tuple)) and (self.robust or self.shrinkage == "ledoit-wolf" or not X):
+            X = np.asfortranarray(np.column_stack(X)) if X else np.empty((0, 0))  # these fits read the rows
+        if isinstance(X, (list, tuple)):
+            n, d = len(X[0]), len(X)
+        else:
+            X = np.asarray(X, dtype=np.float64)
+            if X.ndim != 2 or X.shape[1] == 0:
+                raise AfterlookError("nothing to fit: no feature columns")
+            n, d = X.shape
         self.names = list(names) if names is not None else [f"x{j}" for j in range(d)]
         if n < 2:
             raise AfterlookError(f"nothing to fit on: {n} normal row(s) with finite values; need at least 2")
