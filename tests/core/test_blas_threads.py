@@ -10,7 +10,7 @@ import numpy as np
 import pytest
 from threadpoolctl import threadpool_info, threadpool_limits
 
-from afterlook.core.blas import ENV, limited_blas, with_limited_blas
+from afterlook.core.blas import ENV, THREAD_VARIABLES, limited_blas, with_limited_blas
 from afterlook.core.errors import AfterlookError
 
 
@@ -122,3 +122,36 @@ def test_a_new_process_starts_with_the_configured_threads():
     assert environment_for_new_process({"OPENBLAS_NUM_THREADS": "2"})["OPENBLAS_NUM_THREADS"] == "2"
     assert environment_for_new_process({ENV: "3"})["OPENBLAS_NUM_THREADS"] == "3"
     assert "OPENBLAS_NUM_THREADS" not in environment_for_new_process({ENV: "auto"})
+
+
+_NEW_PROCESS = """
+import os, sys
+from afterlook.core import blas
+os.environ.update(blas.environment_for_new_process())
+noted = blas.note_environment()
+import numpy as np
+with blas.limited_blas():
+    np.ones((64, 64)) @ np.ones((64, 64))
+    looked = "threadpoolctl" in sys.modules  # limited_blas imports it only to look at the libraries
+    from threadpoolctl import threadpool_info
+    threads = sorted({lib["num_threads"] for lib in threadpool_info() if lib["user_api"] == "blas"})
+print(int(noted), int(looked), threads[0] if threads else 0)
+"""
+
+
+@pytest.mark.parametrize("user_setting, expected", [(None, (1, 0, 1)), ("2", (0, 1, 1))])
+def test_a_command_process_started_with_the_limit_needs_no_look_at_its_libraries(user_setting, expected):
+    # the console script sets the variables before numpy loads (entry()); a user's own setting means a look
+    import os
+    import subprocess
+    import sys
+
+    env = {k: v for k, v in os.environ.items() if k not in (*THREAD_VARIABLES, ENV)}
+    if user_setting:
+        env["OPENBLAS_NUM_THREADS"] = user_setting
+    out = subprocess.run([sys.executable, "-c", _NEW_PROCESS], capture_output=True, text=True, env=env, check=True,
+                         timeout=120).stdout.split()
+    noted, looked, threads = map(int, out)
+    if threads == 0:
+        pytest.skip("numpy's BLAS is not visible to threadpoolctl here")
+    assert (noted, looked, threads) == expected

@@ -14,7 +14,7 @@ import warnings
 
 from .. import _version
 from ..cautions import CAUTION
-from ..core.blas import environment_for_new_process, limited_blas
+from ..core.blas import environment_for_new_process, limited_blas, note_environment
 from ..core.errors import EXIT_BAD_INPUT, EXIT_CHECK_FAILED, EXIT_INTERNAL, EXIT_INTERRUPTED, EXIT_OK, AfterlookError
 from ..store.outputs import check_output
 from .allocator import keep_freed_memory
@@ -324,6 +324,7 @@ def entry() -> None:
     # Before numpy loads: OpenBLAS then starts with afterlook's thread count
     # (one by default) instead of one thread per core (see core/blas.py).
     os.environ.update(environment_for_new_process())
+    note_environment()  # every BLAS this process loads starts with that limit: no need to look for them later
     keep_freed_memory()  # the command's own process: temporaries reused, not page-faulted anew (cli/allocator.py)
     sys.exit(main())
 

@@ -34,6 +34,12 @@ _lock = threading.Lock()
 _depth = 0  # blocks running now, in any thread (BLAS thread counts are process-wide)
 _limiters: list = []  # what the running blocks changed, restored when the last block ends
 _modules_seen = -1  # len(sys.modules) when the loaded libraries were last looked at
+#: The limit every BLAS of this process was started with through the environment, before any was loaded
+#: (:func:`note_environment`, called by the console script): such a process needs no look at its libraries.
+_started_with: int | None = None
+#: The variables the BLAS libraries read when they load (OpenBLAS, OpenMP builds, MKL, BLIS, Apple's vecLib).
+THREAD_VARIABLES = ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS", "BLIS_NUM_THREADS",
+                    "VECLIB_MAXIMUM_THREADS")
 
 
 def configured_threads(environ=None) -> int | None:
@@ -60,7 +66,7 @@ def _enter(n: int) -> None:
         # the last look: a block may start before numpy is loaded (the CLI's
         # dispatch), and scipy brings its own OpenBLAS. One look takes about a
         # millisecond; a nested block with nothing new imported costs nothing.
-        if len(sys.modules) == _modules_seen:
+        if len(sys.modules) == _modules_seen or _started_with == n:
             return
         _modules_seen = len(sys.modules)
         from threadpoolctl import ThreadpoolController
@@ -127,7 +133,28 @@ def environment_for_new_process(environ=None) -> dict:
     except AfterlookError:
         return env
     if n is not None:
-        for var in ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS"):
+        for var in THREAD_VARIABLES:
             env.setdefault(var, str(n))
     return env
+
+
+def note_environment(environ=None) -> bool:
+    """Record that this process's BLAS libraries will all start with the configured limit: True when no
+    numerical library is loaded yet and every variable of :data:`THREAD_VARIABLES` holds that limit
+    (what :func:`environment_for_new_process` gives, unless the user set one of them otherwise).
+
+    :func:`limited_blas` then skips its look at the loaded libraries (threadpoolctl's scan of
+    every shared object of the process: about 10 ms of each command).
+    """
+    global _started_with
+    environ = os.environ if environ is None else environ
+    try:
+        n = configured_threads(environ)
+    except AfterlookError:
+        return False
+    if n is None or any(m in sys.modules for m in ("numpy", "scipy")) \
+            or any(environ.get(var) != str(n) for var in THREAD_VARIABLES):
+        return False
+    _started_with = n
+    return True
 
