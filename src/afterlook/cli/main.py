@@ -56,6 +56,8 @@ UNIT_COMMANDS = ("fit", "suggest", "try", "review", "score", "misses", "explain"
 
 
 def _add_table_opts(p: argparse.ArgumentParser) -> None:
+    if isinstance(p, _Unused):
+        return
     if p.prog.split()[-1] in UNIT_COMMANDS:
         p.add_argument("--unit-col", metavar="COL", help="the unit (machine) of each row: unit_median(x), "
                        "unit_scale(x) (default: the one recorded in the model)")
@@ -92,7 +94,34 @@ ENVIRONMENT = """environment:
   AFTERLOOK_DEBUG         1: show the traceback of an internal error"""
 
 
-def build_parser() -> argparse.ArgumentParser:
+#: The module that registers each command (this one registers demo, fit, misses and explain itself).
+_OWNER = {"score": "score_command", "shape": "shape_command", "suggest": "discovery_commands",
+          "try": "discovery_commands", "casebook": "casebook_command", "review": "review_command",
+          "model": "model_command"}
+_OWN = ("demo", "fit", "misses", "explain")
+
+
+class _Only:
+    """Subcommands where only ``name`` gets its parser: a command line that names a command needs no other
+    (building all of them and importing their modules took about 20 ms of a command's start)."""
+
+    def __init__(self, sub, name: str):
+        self._sub, self._name = sub, name
+
+    def add_parser(self, name, **kwargs):
+        return self._sub.add_parser(name, **kwargs) if name == self._name else _Unused()
+
+
+class _Unused:
+    """Stands in for the parser of a command that is not run: takes every call and ignores it."""
+
+    def __getattr__(self, name):
+        return lambda *args, **kwargs: self
+
+
+def build_parser(only: str | None = None) -> argparse.ArgumentParser:
+    """The whole command-line parser, or (``only``: a command's name) the same parser with that command
+    alone (:func:`main` uses it when the command line names one; a test compares the two)."""
     import textwrap
 
     parser = _Parser(
@@ -104,6 +133,8 @@ def build_parser() -> argparse.ArgumentParser:
     )
     parser.add_argument("--version", action="version", version=f"afterlook {_version.__version__}")
     sub = parser.add_subparsers(dest="command", metavar="COMMAND", parser_class=_Parser)
+    if only is not None:
+        sub = _Only(sub, only)
 
     p = sub.add_parser("demo", help="write the invented pump-station demo and show the analysis", epilog=CAUTION)
     p.add_argument("--dir", default="afterlook-demo", help="folder for train.csv, cases.csv, model.json")
@@ -151,10 +182,12 @@ def build_parser() -> argparse.ArgumentParser:
     _add_table_opts(p)
     _add_common(p)
 
-    from . import casebook_command, discovery_commands, model_command, review_command, score_command, shape_command
+    import importlib
 
     # The command registry: each module adds its subcommands and returns their handlers.
-    for module in (score_command, shape_command, discovery_commands, casebook_command, review_command, model_command):
+    owners = dict.fromkeys(_OWNER.values()) if only is None else ([_OWNER[only]] if only in _OWNER else [])
+    for name in owners:
+        module = importlib.import_module(f".{name}", __package__)
         COMMANDS.update(module.register(sub, _add_common, _add_table_opts, CAUTION))
     return parser
 
@@ -264,7 +297,9 @@ COMMANDS = {
 def main(argv: list[str] | None = None) -> int:
     """Run the CLI; returns the exit code (never raises for bad input)."""
     try:
-        parser = build_parser()
+        words = sys.argv[1:] if argv is None else argv
+        named = words[0] if words and (words[0] in _OWN or words[0] in _OWNER) else None
+        parser = build_parser(only=named)
         args = parser.parse_args(argv)
         if not args.command:
             parser.print_help()
