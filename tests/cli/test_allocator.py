@@ -17,27 +17,16 @@ import pytest
 
 import afterlook.cli.main as cli_main
 from afterlook.cli import allocator
+from malloc_probe import FREED_BLOCK_KEPT_MIB
 
 glibc = pytest.mark.skipif(not (hasattr(os, "confstr") and os.confstr("CS_GNU_LIBC_VERSION")),
                            reason="glibc's malloc only")
 
 _PROBE = """
-import ctypes, sys
+import sys
 from afterlook.cli.allocator import keep_freed_memory
-tuned = keep_freed_memory() if sys.argv[1] == "tune" else False
-import numpy as np
-
-class Info(ctypes.Structure):
-    _fields_ = [(name, ctypes.c_size_t) for name in
-                ("arena", "ordblks", "smblks", "hblks", "hblkhd", "usmblks", "fsmblks", "uordblks", "fordblks",
-                 "keepcost")]
-
-libc = ctypes.CDLL(None)
-libc.mallinfo2.restype = Info
-block = np.ones(20 << 17)  # 20 MiB: above glibc's starting threshold of 128 KiB, below the tuned 32 MiB
-del block
-print(int(tuned), libc.mallinfo2().fordblks >> 20)
-"""
+print(int(keep_freed_memory() if sys.argv[1] == "tune" else False))
+""" + FREED_BLOCK_KEPT_MIB
 
 
 def _probe(mode: str, **env) -> tuple[int, int]:

@@ -17,28 +17,17 @@ import numpy as np
 import pytest
 
 from afterlook.core import blas, heap
+from malloc_probe import FREED_BLOCK_KEPT_MIB
 
 glibc = pytest.mark.skipif(not (hasattr(os, "confstr") and os.confstr("CS_GNU_LIBC_VERSION")),
                            reason="glibc's malloc only")
 
 _PROBE = """
-import ctypes, sys
-import numpy as np
+import sys
 from afterlook.core import heap
 if sys.argv[1] == "settle":
     heap.settle()
-
-class Info(ctypes.Structure):
-    _fields_ = [(name, ctypes.c_size_t) for name in
-                ("arena", "ordblks", "smblks", "hblks", "hblkhd", "usmblks", "fsmblks", "uordblks", "fordblks",
-                 "keepcost")]
-
-libc = ctypes.CDLL(None)
-libc.mallinfo2.restype = Info
-block = np.ones(20 << 17)  # 20 MiB, touched: above the starting threshold, under the settled one
-del block
-print(libc.mallinfo2().fordblks >> 20)
-"""
+""" + FREED_BLOCK_KEPT_MIB
 
 
 def _kept_mib(mode: str, **env) -> int:
