@@ -186,9 +186,10 @@ def suggest(model, cases, train=None, case_ids=None, top: int = 10, *,
 
     folds = _folds(session, warnings)
     _report(progress, "preparing the re-fits", 0.4)
-    refitter = _Refitter(session, idx, folds, progress, max(exact, 0))
+    n_exact = max(exact, 0)
+    refitter = _Refitter(session, idx, folds, progress, n_exact)
     ranked = cand.measured_whole(ranked, max(exact, top), settings)  # again after the affine check dropped some
-    refitter.refit_many(ranked[: max(exact, 0)], spare=ranked[max(exact, 0): max(exact, 0) + SPARE_REFITS])
+    refitter.refit_many(ranked[:n_exact], spare=ranked[n_exact: n_exact + SPARE_REFITS])
     while True:  # the list is ranked by verdict, which needs the re-fit: re-fit what would be listed
         ranked = [c for c in ranked if id(c) not in refitter.failed]
         for c in ranked:

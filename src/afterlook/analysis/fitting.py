@@ -8,7 +8,7 @@ than memory in chunks (or on a Dask cluster) and gives the same Gaussian.
 
 from __future__ import annotations
 
-import threading
+from concurrent.futures import ThreadPoolExecutor
 from typing import Iterable, Mapping
 
 import numpy as np
@@ -17,6 +17,7 @@ import pandas as pd
 from ..core.errors import AfterlookError
 from ..core.explain import grid_of_columns
 from ..core.gaussian import GaussianModel, RowMoments
+from ..core.search_inputs import as_columns
 from ..core.recipe import POWER_KINDS, Recipe, apply_transform, parse_transform
 from ..core.thresholds import UNDEFINED_POLICIES, ThresholdPolicy, apply_undefined_policy, choose_threshold, parse_policy
 from ..core.blas import with_limited_blas
@@ -133,18 +134,16 @@ def fit(
         raise AfterlookError(f"nothing normal to fit on: {n_used} usable normal row(s); need at least 2")
     # The quantile grid (a sort of a copy of every column) is made beside the fit and the threshold, in a
     # second thread (numpy's sort lets go of the interpreter), and the fit waits for it before returning.
-    grid = _Beside(grid_of_columns, _as_column_list(X)) if quantiles else None
-    try:
+    # Leaving the block waits for the thread on every way out: no sort outlives the call.
+    with ThreadPoolExecutor(max_workers=1, thread_name_prefix="afterlook-grid") as beside:
+        grid = beside.submit(grid_of_columns, as_columns(X)) if quantiles else None
         moments = RowMoments.of(X, kind == "full" and not robust, **known)
         density.fit(X, recipe.features, moments=moments)
         if density.support_fraction_ is not None:
             warnings.append(f"robust fit kept {density.support_fraction_:.1%} of the training rows as its core")
         policy, value, basis = _pick_threshold(density, recipe, threshold, cases, X, warnings, undefined,
                                                f"training rows ({n_used})", units=(unit_col, time_col, context))
-    finally:
-        if grid is not None:
-            grid.wait()  # on every way out: no sort outlives the call
-    grid_values = grid.result() if grid is not None else None
+    grid_values = grid.result() if grid is not None else None  # raises what the grid's thread raised
 
     stats, _ = training_summary(X, recipe.features, quantiles=False, moments=moments)
     training = {
@@ -163,38 +162,6 @@ def fit(
                   training=training, quantiles=grid_values, warnings=warnings + list(table.warnings),
                   undefined=undefined, unit_col=unit_col, time_col=time_col, context_frame=context)
     return model
-
-
-class _Beside:
-    """``fn(*args)`` run in a second thread from now; :meth:`result` waits for it and returns it (or raises
-    what it raised). Only numpy work that lets go of the interpreter belongs here (a sort does)."""
-
-    def __init__(self, fn, *args):
-        self._out: dict = {}
-        self._thread = threading.Thread(target=self._run, args=(fn, args), name="afterlook-beside", daemon=True)
-        self._thread.start()
-
-    def _run(self, fn, args) -> None:
-        try:
-            self._out["value"] = fn(*args)
-        except BaseException as exc:  # handed to the caller by result()
-            self._out["error"] = exc
-
-    def wait(self) -> None:
-        self._thread.join()
-
-    def result(self):
-        self._thread.join()
-        if "error" in self._out:
-            raise self._out["error"]
-        return self._out["value"]
-
-
-def _as_column_list(rows) -> list[np.ndarray]:
-    """The columns of the training rows: as they are when already columns, else views of the matrix."""
-    if isinstance(rows, list):
-        return rows
-    return [rows[:, j] for j in range(rows.shape[1])]
 
 
 def _training_rows(recipe: Recipe, columns: dict[str, np.ndarray],

@@ -15,8 +15,8 @@ exits (at most :data:`TRIM_THRESHOLD` of it above the heap's top).
 
 Only :func:`afterlook.cli.main.entry` calls this: a library sets no allocator option in a
 process it does not own (in any process, the first afterlook operation frees one block so that
-glibc's own rule gets most of the way there: :mod:`afterlook.core.heap`). Nothing is changed when the user set glibc's own tunables
-(``MALLOC_MMAP_THRESHOLD_``, ``MALLOC_TRIM_THRESHOLD_``, ``MALLOC_TOP_PAD_`` or
+glibc's own rule gets most of the way there: :mod:`afterlook.core.heap`). Nothing is changed
+when the user set glibc's own tunables (``MALLOC_MMAP_THRESHOLD_``, ``MALLOC_TRIM_THRESHOLD_``, ``MALLOC_TOP_PAD_`` or
 ``GLIBC_TUNABLES``) or under another C library.
 """
 
