@@ -39,7 +39,7 @@ def test_the_checked_in_demo_documents_validate(path, name):
 
 
 @pytest.mark.parametrize("options", [{"kind": "full"}, {"kind": "independent"}, {"kind": "full", "robust": True},
-                                     {"kind": "full", "shrinkage": "ledoit-wolf"}])
+                                     {"kind": "full", "shrinkage": "ledoit-wolf"}, {"kind": "full", "shaping": True}])
 def test_fitted_models_validate(tmp_path, options):
     import afterlook
     from afterlook.demo import generate
@@ -48,8 +48,9 @@ def test_fitted_models_validate(tmp_path, options):
     path = tmp_path / "model.json"
     afterlook.fit(sc.train, cases=sc.cases, threshold="f1", derive={"r": "flow_m3h / motor_current_a"},
                   transform={"hours_since_service": "boxcox"}, **options).save(path)
-    jsonschema.validate(json.loads(path.read_text("utf-8")), schema_of("afterlook-model"),
-                        cls=jsonschema.Draft202012Validator)
+    doc = json.loads(path.read_text("utf-8"))
+    assert ("shaping" in doc["training"]) == bool(options.get("shaping"))  # the record is there to be checked
+    jsonschema.validate(doc, schema_of("afterlook-model"), cls=jsonschema.Draft202012Validator)
 
 
 def _broken_copy(src: Path, folder: Path, breaker) -> Path:
@@ -76,7 +77,12 @@ def _book_with_unknown_label(doc):
     doc["entries"][0]["label"] = "perhaps"
 
 
-@pytest.mark.parametrize("breaker", [_model_without_threshold_value, _model_with_text_mean])
+def _model_with_numeric_shaping(doc):
+    doc["training"]["shaping"] = {doc["recipe"]["base"][0]: {"key": "0" * 64, "expression": 7}}
+
+
+@pytest.mark.parametrize("breaker", [_model_without_threshold_value, _model_with_text_mean,
+                                     _model_with_numeric_shaping])
 def test_a_broken_model_file_is_refused_by_the_api_and_the_cli(tmp_path, breaker, run_cli):
     import afterlook
 

@@ -22,6 +22,7 @@ from ..core.numbers import sample_rows
 from ..core.search_inputs import finite_sample, seeded_subset
 from ..core.recipe import free_name
 from ..core.blas import with_limited_blas
+from . import shaping_choices
 from .added_refit import AddedFeatureRefit, Refitted
 from .fleet_search import FleetSearch, merged
 from .fitting import refit
@@ -153,7 +154,9 @@ def suggest(model, cases, train=None, case_ids=None, top: int = 10, *,
     if not np.all(np.isfinite(T)):
         raise AfterlookError("a target case has NaN or infinite features; it cannot be searched")
 
-    shaped = _shaping_expressions(model, sample, progress) if shaping else {}
+    shaped = (shaping_choices.expressions(model.recipe.transforms, sample, model.training.get("shaping"),
+                                          progress=_stage(progress, "shaping columns", 0.1, 0.15))
+              if shaping else {})
     _report(progress, "screening candidates", 0.15)
     screened = seeded_subset(sample, SCREEN_ROWS, settings.random_state)
     candidates, tried, _ = cand.generate_and_screen(names, screened, T, shaped, settings, select=True,
@@ -380,113 +383,6 @@ def _stage(progress, stage: str, start: float, end: float):
     if progress is None:
         return None
     return lambda done: progress(stage, start + (end - start) * done)
-
-
-#: Shaping choices already made in this process, by column name and a digest of its values:
-#: the workbench searches case after case on the same normal population, and the
-#: stability re-search and a repeated API call see the same columns again. Below it,
-#: the same choices on disk (``store.cache``, kind "shaping") for the next process.
-_SHAPING_CACHE: dict[tuple[str, bytes], str | None] = {}
-_SHAPING_CACHE_SIZE = 4096
-#: The modules whose code decides a shaping choice and its text: part of every disk key,
-#: so an entry written by other code (another release, or a change in a checkout) is never read.
-_SHAPING_CODE = ("core/shaping.py", "core/shaping_fast.py", "core/normality.py", "core/numbers.py",
-                 "core/order_stats.py", "core/recipe.py", "core/shaped_text.py", "analysis/discovery.py")
-_shaping_code_digest: bytes | None = None
-
-
-def _shaping_code() -> bytes:
-    global _shaping_code_digest
-    if _shaping_code_digest is None:
-        import hashlib
-        from pathlib import Path
-
-        from .._version import __version__
-
-        root = Path(__file__).resolve().parent.parent
-        h = hashlib.sha256(__version__.encode())
-        for rel in _SHAPING_CODE:
-            try:
-                h.update((root / rel).read_bytes())
-            except OSError:  # e.g. a zipped install: the release alone keys the entries
-                h.update(rel.encode())
-        _shaping_code_digest = h.digest()
-    return _shaping_code_digest
-
-
-def _shaping_expressions(model: Model, sample: dict, progress=None) -> dict[str, str]:
-    """Expression text of a shaping transform per column (the recipe's own, else a search).
-
-    The search is :func:`afterlook.core.shaping_fast.chosen_transforms`: the choices of
-    :func:`afterlook.core.shaping.chosen_transform`, for all columns at once in numpy.
-    A choice made before, in this process or (``store.cache``) in an earlier one, for a
-    column of the same name and values and by the same code, is not searched again.
-    """
-    out = {}
-    for name, t in model.recipe.transforms.items():
-        if t.kind == "expression":
-            out[name] = t.expression
-    from ..core import shaping_fast
-    from ..store import cache
-
-    _report(progress, "shaping columns", 0.1)
-    keys = {name: (name, _digest(values)) for name, values in sample.items() if name not in out}
-    texts: dict[str, str | None] = {}
-    disk_keys = {}
-    for name, key in keys.items():
-        if key in _SHAPING_CACHE:
-            texts[name] = _SHAPING_CACHE[key]
-            continue
-        disk_keys[name] = cache.entry_key("shaping", _shaping_code(), name, key[1])
-        remembered = cache.read("shaping", disk_keys[name])
-        if isinstance(remembered, dict) and (remembered.get("expression") is None
-                                             or isinstance(remembered.get("expression"), str)):
-            texts[name] = remembered["expression"]
-            _remember(key, texts[name])
-    todo = [name for name in keys if name not in texts]
-    if todo:
-        _report(progress, "shaping columns", 0.12)
-        try:
-            chosen = shaping_fast.chosen_transforms({name: sample[name] for name in todo},
-                                                    progress=_stage(progress, "shaping columns", 0.12, 0.15))
-        except (AfterlookError, TypeError):
-            chosen = dict.fromkeys(todo)
-        for name in todo:
-            try:
-                text = _as_expression(chosen[name], name)
-            except (AfterlookError, TypeError):
-                text = None
-            texts[name] = text
-            _remember(keys[name], text)
-            cache.write("shaping", disk_keys[name], {"column": name, "expression": text})
-    for name in keys:
-        if texts[name]:
-            out[name] = texts[name]
-    _report(progress, "shaping columns", 0.15)
-    return out
-
-
-def _remember(key: tuple[str, bytes], text: str | None) -> None:
-    if len(_SHAPING_CACHE) >= _SHAPING_CACHE_SIZE:
-        _SHAPING_CACHE.pop(next(iter(_SHAPING_CACHE)))
-    _SHAPING_CACHE[key] = text
-
-
-def _digest(values) -> bytes:
-    import hashlib
-
-    a = np.ascontiguousarray(values, dtype=np.float64)
-    return hashlib.sha256(memoryview(a).cast("B")).digest()  # no copy of the bytes; sha256 is the fastest here
-
-
-def _as_expression(transform, name: str) -> str | None:
-    from ..core.shaped_text import shaped_text
-
-    if transform is None:
-        return None
-    if transform.kind == "expression" or (transform.kind == "boxcox" and transform.lmbda is not None):
-        return shaped_text(name, transform)  # boxcox(x, p) for a power; the search offers no Yeo-Johnson
-    return None
 
 
 def _report(progress, stage: str, fraction: float) -> None:

@@ -215,7 +215,8 @@ def cmd_fit(args) -> int:
             train = load_table(args.train, **table_options(args))
             model = fitting.fit(train, cases=cases, kind=args.kind, robust=args.robust, shrinkage=args.shrinkage,
                                 derive=derive, transform=transform, threshold=args.threshold, columns=args.columns,
-                                undefined=args.undefined, unit_col=args.unit_col, time_col=args.time_col)
+                                undefined=args.undefined, unit_col=args.unit_col, time_col=args.time_col,
+                                shaping=True)  # the model file carries the search's shaping choices
     else:
         if args.engine not in ("chunked", "dask"):
             raise AfterlookError(f"unknown --engine '{args.engine}' (choose: memory, chunked, dask)")

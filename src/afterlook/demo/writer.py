@@ -84,7 +84,7 @@ def write_demo(folder: Path, seed: int = 7):
     train = load_table(train_path)
     cases = load_table(cases_path, require_labels=True)
     model = fit(train, cases=cases, kind=DEMO_KIND, threshold="f1", derive=DEMO_DERIVE,
-                    transform=DEMO_TRANSFORM, unit_col=DEMO_UNIT_COL, time_col=DEMO_TIME_COL)
+                    transform=DEMO_TRANSFORM, unit_col=DEMO_UNIT_COL, time_col=DEMO_TIME_COL, shaping=True)
     model.save(model_path)
     return train_path, cases_path, model_path
 

@@ -3,7 +3,7 @@
 What is kept: choices that depend only on input values and on afterlook's own
 code, keyed by a digest of both, so a stale entry can never be read for other
 values or by another release. Today that is the shaping choice per column of
-the search's sample (``analysis.discovery``): the first ``suggest`` on a
+the search's sample (``analysis.shaping_choices``): the first ``suggest`` on a
 training table pays for the shaping search, later processes read one small
 JSON file per column.
 

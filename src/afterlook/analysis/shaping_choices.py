@@ -1,0 +1,208 @@
+"""The search's shaping choice per column: searched once, then remembered.
+
+A candidate search offers, for each skewed feature, the shaping transform
+(log, power, Box-Cox) that makes its normal rows look most Gaussian. The
+choice is :func:`afterlook.core.shaping_fast.chosen_transforms` on the
+column's values in the search's seeded sample of the normal rows. It
+depends only on those values and on afterlook's own code, so it is kept
+under a key made of both (:func:`entry_key`), in three places, read in this
+order:
+
+1. this process (the workbench searches case after case on the same rows);
+2. the model file (``training.shaping``): the fit draws the same seeded
+   sample of its own normal rows and records the choice for each feature, so
+   the first search after a fit finds it;
+3. the cache folder (:mod:`afterlook.store.cache`, kind "shaping").
+
+A choice is used only where its key is the key of the values at hand: other
+rows, other sample settings, another release or an edited checkout give
+another key, and the column is searched again. Nothing here is ever an
+error: a choice that cannot be read or made is searched, or left out.
+"""
+
+from __future__ import annotations
+
+import hashlib
+from collections.abc import Mapping
+
+import numpy as np
+
+from ..core.errors import AfterlookError
+
+__all__ = ["expressions", "fit_sample", "recorded", "entry_key"]
+
+#: Choices already made in this process, by column name and a digest of its values.
+_SHAPING_CACHE: dict[tuple[str, bytes], str | None] = {}
+_SHAPING_CACHE_SIZE = 4096
+#: The modules whose code decides a shaping choice and its text: part of every key,
+#: so a choice made by other code (another release, or a change in a checkout) is never read.
+_SHAPING_CODE = ("core/shaping.py", "core/shaping_fast.py", "core/normality.py", "core/numbers.py",
+                 "core/order_stats.py", "core/recipe.py", "core/shaped_text.py", "analysis/shaping_choices.py")
+_shaping_code_digest: bytes | None = None
+
+
+def _shaping_code() -> bytes:
+    global _shaping_code_digest
+    if _shaping_code_digest is None:
+        from pathlib import Path
+
+        from .._version import __version__
+
+        root = Path(__file__).resolve().parent.parent
+        h = hashlib.sha256(__version__.encode())
+        for rel in _SHAPING_CODE:
+            try:
+                h.update((root / rel).read_bytes())
+            except OSError:  # e.g. a zipped install: the release alone keys the entries
+                h.update(rel.encode())
+        _shaping_code_digest = h.digest()
+    return _shaping_code_digest
+
+
+def entry_key(name: str, digest: bytes) -> str:
+    """The key of a choice for column ``name`` whose values have ``digest`` (:func:`_digest`)."""
+    from ..store import cache
+
+    return cache.entry_key("shaping", _shaping_code(), name, digest)
+
+
+def expressions(transforms: Mapping, sample: Mapping[str, np.ndarray], recorded: Mapping | None = None,
+                progress=None) -> dict[str, str]:
+    """Expression text of a shaping transform per column (the recipe's own, else the search's choice).
+
+    ``transforms``: the recipe's transforms (a column the recipe shapes by an
+    expression keeps it). ``recorded``: a model's ``training.shaping``.
+    ``progress``: optional callable(done) with done in [0, 1].
+    """
+    out = {name: t.expression for name, t in transforms.items() if t.kind == "expression"}
+    from ..store import cache
+
+    _tell(progress, 0.0)
+    keys = {name: (name, _digest(values)) for name, values in sample.items() if name not in out}
+    texts: dict[str, str | None] = {}
+    disk_keys = {}
+    for name, key in keys.items():
+        if key in _SHAPING_CACHE:
+            texts[name] = _SHAPING_CACHE[key]
+            continue
+        disk_keys[name] = entry_key(name, key[1])
+        found, text = _recorded_choice(recorded, name, disk_keys[name])
+        if not found:
+            remembered = cache.read("shaping", disk_keys[name])
+            found, text = _valid(remembered)
+        if found:
+            texts[name] = text
+            _remember(key, text)
+    todo = [name for name in keys if name not in texts]
+    if todo:
+        _tell(progress, 0.4)
+        chosen = _search({name: sample[name] for name in todo},
+                         progress=None if progress is None else lambda done: progress(0.4 + 0.6 * done))
+        for name in todo:
+            texts[name] = chosen[name]
+            _remember(keys[name], chosen[name])
+            cache.write("shaping", disk_keys[name], {"column": name, "expression": chosen[name]})
+    for name in keys:
+        if texts[name]:
+            out[name] = texts[name]
+    _tell(progress, 1.0)
+    return out
+
+
+def fit_sample(transforms: Mapping, raw: Mapping[str, np.ndarray], names: list[str]) -> dict[str, np.ndarray]:
+    """The columns a search of a fit's normal rows would make its shaping choices on.
+
+    ``raw``: the fit's normal rows, features before the recipe's transforms
+    (what a search's session reads). The sample is the search's own, with the
+    default sample settings (:class:`afterlook.core.candidates.Settings`), so a
+    search of these rows with those settings finds every choice that
+    :func:`recorded` makes of it. Features the recipe shapes by an expression
+    are left out (the search keeps the recipe's own); empty when nothing is
+    to be chosen.
+    """
+    from ..core.candidates import Settings
+    from ..core.search_inputs import finite_sample
+
+    todo = [n for n in names if not (n in transforms and transforms[n].kind == "expression")]
+    if not todo or any(np.ndim(raw[n]) == 0 for n in names):  # a constant feature: the search reads no sample
+        return {}
+    settings = Settings()
+    A = finite_sample(raw, names, settings.sample_size, settings.random_state)
+    if A.shape[0] == 0:
+        return {}
+    return {n: A[:, names.index(n)] for n in todo}
+
+
+def recorded(columns: Mapping[str, np.ndarray]) -> dict:
+    """What a fit records in its model file (``training.shaping``) for the columns of :func:`fit_sample`:
+    ``{feature: {"key": ..., "expression": text or None}}``. Choices made here are remembered in the
+    process too, but not written to the cache folder: the model file is their place."""
+    digests = {n: _digest(v) for n, v in columns.items()}
+    known = {n: _SHAPING_CACHE[(n, d)] for n, d in digests.items() if (n, d) in _SHAPING_CACHE}
+    chosen = _search({n: v for n, v in columns.items() if n not in known})
+    out = {}
+    for n, d in digests.items():
+        text = known[n] if n in known else chosen[n]
+        _remember((n, d), text)
+        out[n] = {"key": entry_key(n, d), "expression": text}
+    return out
+
+
+def _search(columns: dict[str, np.ndarray], progress=None) -> dict[str, str | None]:
+    """The search's choice for each column, as expression text (None: leave it as it is)."""
+    from ..core import shaping_fast
+
+    if not columns:
+        return {}
+    try:
+        chosen = shaping_fast.chosen_transforms(columns, progress=progress)
+    except (AfterlookError, TypeError):
+        chosen = dict.fromkeys(columns)
+    out = {}
+    for name in columns:
+        try:
+            out[name] = _as_expression(chosen[name], name)
+        except (AfterlookError, TypeError):
+            out[name] = None
+    return out
+
+
+def _recorded_choice(recorded, name: str, key: str) -> tuple[bool, str | None]:
+    entry = recorded.get(name) if isinstance(recorded, Mapping) else None
+    if isinstance(entry, Mapping) and entry.get("key") == key:
+        return _valid(entry)
+    return False, None
+
+
+def _valid(entry) -> tuple[bool, str | None]:
+    """(found, expression) of a stored choice: an expression that is text, or None for "leave it"."""
+    if isinstance(entry, Mapping) and "expression" in entry and (entry["expression"] is None
+                                                                  or isinstance(entry["expression"], str)):
+        return True, entry["expression"]
+    return False, None
+
+
+def _tell(progress, done: float) -> None:
+    if progress is not None:
+        progress(done)
+
+
+def _remember(key: tuple[str, bytes], text: str | None) -> None:
+    if len(_SHAPING_CACHE) >= _SHAPING_CACHE_SIZE:
+        _SHAPING_CACHE.pop(next(iter(_SHAPING_CACHE)))
+    _SHAPING_CACHE[key] = text
+
+
+def _digest(values) -> bytes:
+    a = np.ascontiguousarray(values, dtype=np.float64)
+    return hashlib.sha256(memoryview(a).cast("B")).digest()  # no copy of the bytes; sha256 is the fastest here
+
+
+def _as_expression(transform, name: str) -> str | None:
+    from ..core.shaped_text import shaped_text
+
+    if transform is None:
+        return None
+    if transform.kind == "expression" or (transform.kind == "boxcox" and transform.lmbda is not None):
+        return shaped_text(name, transform)  # boxcox(x, p) for a power; the search offers no Yeo-Johnson
+    return None
