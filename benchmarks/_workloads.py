@@ -2,7 +2,7 @@
 and bench_blas_threads.py; not a benchmark on its own).
 
     python benchmarks/_workloads.py prepare DIR [--rows N] [--columns D] [--score-rows N]
-    python benchmarks/_workloads.py STEP DIR          # STEP: fit, suggest, score, pandas_loop
+    python benchmarks/_workloads.py STEP DIR   # STEP: fit, fit_shaping, suggest, suggest_file, score, pandas_loop
 
 A step prints one JSON line: ``afterlook`` (the first call in this process,
 seconds), ``afterlook_again`` (a second call), for suggest and the pandas loop
@@ -100,16 +100,22 @@ def _peak_mb() -> float:
     return resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024
 
 
-def step_fit(folder: Path) -> dict:
+def step_fit(folder: Path, shaping: bool = False) -> dict:
+    """``afterlook.fit(train, kind="full")``, or with ``shaping=True`` (what ``afterlook fit`` does: the
+    search's shaping choices recorded in the model), twice, against numpy.cov of the same array."""
     import afterlook
 
     fit = afterlook.fit  # the import is not part of the call
     train = pd.read_parquet(folder / "train.parquet")
-    t1, model = _timed(lambda: fit(train, kind="full"))
+    t1, model = _timed(lambda: fit(train, kind="full", shaping=shaping))
     # The quantile grid (percentiles, and what save() writes) is made inside the fit; its first read is timed
     # too, so that a grid ever left for later would show up in the row.
     t_grid, _ = _timed(lambda: model.quantiles)
-    t2, _ = _timed(lambda: fit(train, kind="full"))
+    if shaping:
+        from afterlook.analysis import shaping_choices
+
+        shaping_choices._SHAPING_CACHE.clear()  # the second fit makes its choices again, as a new process would
+    t2, _ = _timed(lambda: fit(train, kind="full", shaping=shaping))
     limit, threads = _reference_threads()
     with limit:
         X = train.to_numpy(dtype=float)
@@ -135,6 +141,20 @@ def step_suggest(folder: Path) -> dict:
             "same_result_twice": same,
             "tried": res.tried, "recommended": res.recommended,
             "top": [c.expression for c in res.candidates[:3]], "peak_mb": _peak_mb()}
+
+
+def step_suggest_file(folder: Path) -> dict:
+    """The first suggest of a process with the model file ``afterlook fit`` wrote (``model_cli.json``,
+    made by the caller): its shaping choices come from the file."""
+    import afterlook
+
+    train = pd.read_parquet(folder / "train.parquet")
+    cases = pd.read_parquet(folder / "cases.parquet")
+    model = afterlook.load_model(folder / "model_cli.json")
+    afterlook.suggest  # the import is not part of the call
+    t1, c1, res = _timed_cpu(lambda: afterlook.suggest(model, cases, train=train, case_ids=["miss"]))
+    return {"afterlook": t1, "afterlook_cpu": c1, "top": [c.expression for c in res.candidates[:3]],
+            "peak_mb": _peak_mb()}
 
 
 def step_pandas_loop(folder: Path) -> dict:
@@ -218,7 +238,8 @@ def median(values):
     return values[len(values) // 2]
 
 
-STEPS = {"fit": step_fit, "suggest": step_suggest, "score": step_score, "pandas_loop": step_pandas_loop}
+STEPS = {"fit": step_fit, "fit_shaping": lambda folder: step_fit(folder, shaping=True), "suggest": step_suggest,
+         "suggest_file": step_suggest_file, "score": step_score, "pandas_loop": step_pandas_loop}
 
 
 def main(argv=None) -> int:

@@ -13,14 +13,17 @@ ratio afterlook / reference (below 1: afterlook is faster).
   on 200,000 x 40 with 3,000 labelled cases, all passes (screen, exact
   statistics, collinearity check, re-fits, held-out K-fold gains, stability),
   first call of the process (what ``fit`` imported is already imported;
-  whatever ``suggest`` imports itself counts) and a second call; reference:
-  the plain pandas loop of ``bench_suggest.py`` (every pair candidate built
-  as a column, its mean and sd, the miss's z; target: the first call at
-  least 50x faster);
-* fit: ``afterlook.fit(train_df, kind="full")`` (threshold and summary
-  included) against ``numpy.cov`` of the same array; and the same fit plus the
-  first read of its quantile grid, which the fit leaves until it is used
-  (saving the model, a percentile);
+  whatever ``suggest`` imports itself counts) and a second call; then the
+  first call of new processes that find the shaping choices in the cache
+  folder, or in the model file that ``afterlook fit`` wrote; reference: the
+  plain pandas loop of ``bench_suggest.py`` (every pair candidate built as a
+  column, its mean and sd, the miss's z; target: the first call at least
+  50x faster);
+* fit: ``afterlook.fit(train_df, kind="full")`` (threshold, summary and
+  quantile grid included; the grid's first read is added to be sure nothing
+  is left for later) against ``numpy.cov`` of the same array; and the same
+  with ``shaping=True`` (the search's shaping choices recorded, as
+  ``afterlook fit`` does);
 * score: ``Model.score(df)`` on 1,000,000 x 32 (DataFrame in, scored
   DataFrame out) against ``scipy.stats.multivariate_normal.logpdf(df)``;
 * start: the ``afterlook misses`` command on the demo (the console script)
@@ -110,6 +113,16 @@ def command_rows(say, folder: Path, rows: int, load: str, runs: int) -> None:
         f"the cold command above | {t['cold']:.2f} | {t['warm'] / t['cold']:.2f}x | |")
 
 
+def _fit_command(folder: Path) -> None:
+    """``afterlook fit`` on the training table (once; the model file of a user's first ``suggest``)."""
+    if (folder / "model_cli.json").exists():
+        return
+    exe = Path(sys.executable).with_name("afterlook")
+    subprocess.run([str(exe), "fit", str(folder / "train.parquet"), "--cases", str(folder / "cases.parquet"),
+                    "--kind", "full", "--out", str(folder / "model_cli.json")],
+                   check=True, capture_output=True, env={**os.environ, "AFTERLOOK_CACHE_DIR": "off"})
+
+
 def suggest_rows(say, folder: Path, rows: int, load: str, runs: int) -> None:
     """The suggest rows: first and second call (medians over fresh processes) against the pandas loop,
     in wall seconds and in CPU seconds of the process (what a busy shared machine changes least);
@@ -119,21 +132,25 @@ def suggest_rows(say, folder: Path, rows: int, load: str, runs: int) -> None:
     with tempfile.TemporaryDirectory() as cache:
         _workloads.run_step("suggest", folder, cache=cache)  # fills the folder (a cold call itself)
         warm = [_workloads.run_step("suggest", folder, cache=cache) for _ in range(runs)]
+    _fit_command(folder)
+    from_file = [_workloads.run_step("suggest_file", folder) for _ in range(runs)]
     loop = _workloads.run_step("pandas_loop", folder)
     ref, ref_cpu = loop["reference"], loop["reference_cpu"]
     for label, results, key in (
-            ("first call", sug, "afterlook"),
+            ("first call (model fitted in the process, nothing remembered)", sug, "afterlook"),
             ("second call in the process (shaping remembered)", sug, "afterlook_again"),
             ("first call of a new process after an earlier one (shaping choices read from the cache folder)",
-             warm, "afterlook")):
+             warm, "afterlook"),
+            ("first call of a new process with the model file `afterlook fit` wrote (shaping choices in the file, "
+             "cache folder off)", from_file, "afterlook")):
         t, c = median([r[key] for r in results]), median([r[key + "_cpu"] for r in results])
         say(f"| whole suggest, {rows:,} x 40, 3,000 cases, 1 miss, {label} | {load} | {t:.2f} (CPU {c:.2f}) | "
             f"plain pandas loop ({loop['tried']} candidates) | {ref:.2f} (CPU {ref_cpu:.2f}) | {t / ref:.3f}x "
             f"(loop / afterlook {ref / t:.1f}; CPU {ref_cpu / c:.1f}; target >= 50) | "
             + (f"{sug[0]['tried']} tried; same result twice: {all(r['same_result_twice'] for r in sug)} |"
                if results is sug and key == "afterlook" else
-               f"same top 3 as the cold calls: {all(r['top'] == sug[0]['top'] for r in warm)} |"
-               if results is warm else "|"))
+               f"same top 3 as the cold calls: {all(r['top'] == sug[0]['top'] for r in results)} |"
+               if results is warm or results is from_file else "|"))
     say(f"| peak memory of the suggest process | {load} | {max(r['peak_mb'] for r in sug + warm):.0f} MB | | | | |")
 
 
@@ -180,13 +197,15 @@ def main(argv=None) -> int:
                 if "command" in parts:
                     command_rows(say, folder, rows, load, args.runs)
                 if "fit" in parts:
-                    fits = [_workloads.run_step("fit", folder) for _ in range(args.runs)]
-                    # the grid is made inside the fit (a second thread); its first read is added to be sure
-                    t_f = median([r["afterlook"] + r["grid_read"] for r in fits])
-                    r_f = median([r["reference"] for r in fits])
-                    say(f"| whole fit, {rows:,} x 40 DataFrame (threshold, summary and quantile grid) | {load} | "
-                        f"{t_f:.3f} | numpy.cov | {r_f:.3f} | {t_f / r_f:.1f}x | "
-                        f"{max(r['agreement'] for r in fits):.1e} |")
+                    for step, what in (("fit", "threshold, summary and quantile grid"),
+                                       ("fit_shaping", "the same and the shaping choices, `shaping=True`: "
+                                                       "what `afterlook fit` records")):
+                        fits = [_workloads.run_step(step, folder) for _ in range(args.runs)]
+                        # the grid is made inside the fit; its first read is added to be sure
+                        t_f = median([r["afterlook"] + r["grid_read"] for r in fits])
+                        r_f = median([r["reference"] for r in fits])
+                        say(f"| whole fit, {rows:,} x 40 DataFrame ({what}) | {load} | {t_f:.3f} | numpy.cov | "
+                            f"{r_f:.3f} | {t_f / r_f:.1f}x | {max(r['agreement'] for r in fits):.1e} |")
                 if "score" in parts:
                     scores = [_workloads.run_step("score", folder) for _ in range(args.runs)]
                     t_c, r_c = median([r["afterlook"] for r in scores]), median([r["reference"] for r in scores])
