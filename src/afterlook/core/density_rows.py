@@ -48,7 +48,7 @@ def full_log_density(X, mean: np.ndarray, chol: np.ndarray) -> np.ndarray:
     shrinks a singular S) into a second, squared and summed in place.
     """
     matrix = X if isinstance(X, np.ndarray) and X.ndim == 2 else None
-    columns = None if matrix is not None else _as_columns(X)
+    columns = None if matrix is not None else as_columns(X)
     n, d = matrix.shape if matrix is not None else (len(columns[0]) if columns else 0, len(columns))
     const = -0.5 * d * LOG_2PI - np.log(np.diag(chol)).sum()
     whiten = np.ascontiguousarray(triangular_inverse(chol).T)
@@ -73,8 +73,8 @@ def full_log_density(X, mean: np.ndarray, chol: np.ndarray) -> np.ndarray:
     return out
 
 
-def _as_columns(X) -> list[np.ndarray]:
-    """The columns of an (n, d) array as 1-D float64 arrays (views where possible), or a column sequence as is."""
+def as_columns(X) -> list[np.ndarray]:
+    """An (n, d) array's columns (views of a float64 one) or a sequence of d 1-D arrays, as a list of float64 arrays."""
     if isinstance(X, np.ndarray) and X.ndim == 2:
         X = X if X.dtype == np.float64 else X.astype(np.float64)
         return [X[:, j] for j in range(X.shape[1])]
@@ -119,7 +119,7 @@ class RowMoments:
         """
         matrix = None if isinstance(X, (list, tuple)) else X
         if matrix is None:  # d columns: centred a block at a time into the same buffer (the same numbers)
-            columns = _as_columns(X)
+            columns = as_columns(X)
             n, d = (len(columns[0]) if columns else 0), len(columns)
             if mean is None:
                 mean = np.array([c.mean() for c in columns])

@@ -29,7 +29,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from .density_rows import (  # noqa: F401  (full_log_density, triangular_inverse: public here too)
-    RowMoments, _as_columns, _independent_log_density_columns, full_log_density, triangular_inverse)
+    RowMoments, as_columns, _independent_log_density_columns, full_log_density, triangular_inverse)
 from .errors import AfterlookError
 from .numbers import refuse_overflow
 
@@ -346,7 +346,7 @@ class GaussianModel:
                 raise AfterlookError(f"expected {len(self.mean_)} feature columns, got {X.shape[-1] if X.ndim else 0}")
         elif len(X) != len(self.mean_):
             raise AfterlookError(f"expected {len(self.mean_)} feature columns, got {len(X)}")
-        columns = _as_columns(X)
+        columns = as_columns(X)
         with np.errstate(over="ignore", invalid="ignore"):
             if self.kind == "independent":
                 out = _independent_log_density_columns(columns, self.mean_, self.var_)

@@ -10,6 +10,7 @@ from typing import Mapping
 
 import numpy as np
 
+from .density_rows import as_columns
 from .gaussian import GaussianModel
 from .numbers import sample_rows
 
@@ -49,13 +50,6 @@ def seeded_subset(sample: Mapping[str, np.ndarray], size: int, random_state) -> 
         return sample
     rows = sample_rows(n, size, random_state)
     return {k: v[rows] for k, v in sample.items()}
-
-
-def as_columns(X) -> list[np.ndarray]:
-    """An (n, d) array's columns (views) or a sequence of d 1-D arrays, as a list of float64 arrays."""
-    if isinstance(X, np.ndarray) and X.ndim == 2:
-        return [X[:, j] for j in range(X.shape[1])]
-    return [np.asarray(c, dtype=np.float64) for c in X]
 
 
 def column_means(X) -> np.ndarray:
