@@ -233,6 +233,37 @@ def run_step(step: str, folder: Path, threads: str = "one", cache: str = "off") 
     return json.loads(out.stdout.strip().splitlines()[-1])
 
 
+@contextlib.contextmanager
+def printed_to(out: str | None, title: str, argv: list[str]):
+    """Within the block, what is printed also goes to a Markdown results file ``out`` (written at the end,
+    with the date, the command line, the machine and the 1-minute load average before and after)."""
+    import datetime
+    import io
+    import platform
+
+    load_before = os.getloadavg()[0]
+    printed = io.StringIO()
+
+    class Both:
+        def write(self, text: str) -> int:
+            sys.__stdout__.write(text)
+            return printed.write(text)
+
+        def flush(self) -> None:
+            sys.__stdout__.flush()
+
+    with contextlib.redirect_stdout(Both()):
+        yield
+    if out:
+        line = " ".join([Path(sys.argv[0]).name, *argv])
+        Path(out).write_text(
+            f"# {title}, {datetime.date.today().isoformat()}\n\n`{line}`, {os.cpu_count()} cores, Python "
+            f"{platform.python_version()}; 1-minute load average before the run {load_before:.1f}, after it "
+            f"{os.getloadavg()[0]:.1f}. Output as printed:\n\n```\n{printed.getvalue().rstrip()}\n```\n",
+            encoding="utf-8")
+        print(f"wrote {out}")
+
+
 def median(values):
     values = sorted(values)
     return values[len(values) // 2]

@@ -1,6 +1,6 @@
 """One BLAS thread against the default, for afterlook's tall-skinny products, idle and loaded.
 
-    .venv/bin/python benchmarks/bench_blas_threads.py [--quick] [--rows 200000] [--cols 40] [--runs 3]
+    .venv/bin/python benchmarks/bench_blas_threads.py [--quick] [--rows 200000] [--cols 40] [--runs 3] [--out FILE]
 
 Each measurement runs in a *fresh process* (every CLI command is one, and the
 slow calls were worst there): it builds the matrix, then times the first
@@ -34,6 +34,7 @@ import os
 import subprocess
 import sys
 import time
+from pathlib import Path
 
 # Timed cold: never served by shaping choices an earlier run (or the user) left in the cache folder.
 os.environ["AFTERLOOK_CACHE_DIR"] = "off"
@@ -83,9 +84,19 @@ def main(argv=None) -> int:
     ap.add_argument("--cols", type=int, default=40)
     ap.add_argument("--runs", type=int, default=3, help="fresh processes per setting")
     ap.add_argument("--quick", action="store_true", help="50,000 rows, one process per setting")
+    ap.add_argument("--out", help="also write what is printed, as Markdown, to this file (results_blas_threads.md)")
     args = ap.parse_args(argv)
     if args.quick:
         args.rows, args.runs = 50_000, 1
+    sys.path.insert(0, str(Path(__file__).resolve().parent))
+    import _workloads
+
+    with _workloads.printed_to(args.out, "BLAS threads benchmark", argv if argv is not None else sys.argv[1:]):
+        _run(args)
+    return 0
+
+
+def _run(args) -> None:
     cores = os.cpu_count() or 2
     print(f"X.T @ X, {args.rows:,} x {args.cols}, {cores} cores, {args.runs} fresh process(es) per setting")
     print("threads: one = OPENBLAS_NUM_THREADS=1 from the start; default = one per core; afterlook = the")
@@ -124,14 +135,11 @@ def main(argv=None) -> int:
           f"{ours['median'] / base['median']:.1f}x, worst {ours['worst'] / base['worst']:.1f}x, "
           f"first call {ours['first'] / base['first']:.1f}x")
     whole_operations(args)
-    return 0
 
 
 def whole_operations(args) -> None:
     import tempfile
-    from pathlib import Path
 
-    sys.path.insert(0, str(Path(__file__).resolve().parent))
     import _workloads
 
     with tempfile.TemporaryDirectory(prefix="afterlook-bench-") as tmp:

@@ -45,11 +45,7 @@ from __future__ import annotations
 
 import argparse
 import asyncio
-import contextlib
-import datetime
-import io
 import os
-import platform
 import statistics
 import subprocess
 import sys
@@ -329,10 +325,11 @@ def main(argv: list[str] | None = None) -> int:
     parts = {p.strip() for p in args.only.split(",")}
     n_cases = args.cases or (QUICK_CASES if args.quick else FULL_CASES)
     repeat = args.repeat or (3 if args.quick else 5)
-    load_before = os.getloadavg()[0]
-    printed = io.StringIO()
+    sys.path.insert(0, str(Path(__file__).resolve().parent))
+    import _workloads
+
     with tempfile.TemporaryDirectory(prefix="afterlook-bench-workbench-") as tmp, \
-            contextlib.redirect_stdout(_Both(sys.stdout, printed)):
+            _workloads.printed_to(args.out, "workbench benchmark", argv if argv is not None else sys.argv[1:]):
         folder = Path(tmp)
         if "first" in parts:
             bench_first_screen(folder, repeat)
@@ -342,31 +339,7 @@ def main(argv: list[str] | None = None) -> int:
             print()
         if "q" in parts:
             bench_q_latency(folder, args.quick, repeat)
-    if args.out:
-        line = " ".join(["bench_workbench.py", *(argv if argv is not None else sys.argv[1:])])
-        Path(args.out).write_text(
-            f"# workbench benchmark, {datetime.date.today().isoformat()}\n\n`{line}`, {os.cpu_count()} cores, "
-            f"Python {platform.python_version()}; 1-minute load average before the run {load_before:.1f}, "
-            f"after it {os.getloadavg()[0]:.1f}. Output as printed:\n\n```\n{printed.getvalue().rstrip()}\n```\n",
-            encoding="utf-8")
-        print(f"wrote {args.out}")
     return 0
-
-
-class _Both:
-    """A text stream writing to two (what is printed goes to the terminal and to the results file)."""
-
-    def __init__(self, *streams):
-        self.streams = streams
-
-    def write(self, text: str) -> int:
-        for st in self.streams:
-            st.write(text)
-        return len(text)
-
-    def flush(self) -> None:
-        for st in self.streams:
-            st.flush()
 
 
 if __name__ == "__main__":
