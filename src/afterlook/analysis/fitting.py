@@ -189,7 +189,7 @@ def _shaping_record(recipe: Recipe, raw: dict) -> dict:
     from . import shaping_choices
 
     try:
-        return shaping_choices.recorded(shaping_choices.fit_sample(recipe.transforms, raw, recipe.features))
+        return shaping_choices.recorded_for_fit(recipe.transforms, raw, recipe.features)
     except (AfterlookError, ValueError, TypeError, ArithmeticError):
         return {}
 

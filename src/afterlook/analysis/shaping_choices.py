@@ -29,7 +29,7 @@ import numpy as np
 
 from ..core.errors import AfterlookError
 
-__all__ = ["expressions", "fit_sample", "recorded", "entry_key"]
+__all__ = ["expressions", "recorded_for_fit", "entry_key"]
 
 #: Choices already made in this process, by column name and a digest of its values.
 _SHAPING_CACHE: dict[tuple[str, bytes], str | None] = {}
@@ -75,50 +75,23 @@ def expressions(transforms: Mapping, sample: Mapping[str, np.ndarray], recorded:
     ``progress``: optional callable(done) with done in [0, 1].
     """
     out = {name: t.expression for name, t in transforms.items() if t.kind == "expression"}
-    from ..store import cache
-
-    _tell(progress, 0.0)
-    keys = {name: (name, _digest(values)) for name, values in sample.items() if name not in out}
-    texts: dict[str, str | None] = {}
-    disk_keys = {}
-    for name, key in keys.items():
-        if key in _SHAPING_CACHE:
-            texts[name] = _SHAPING_CACHE[key]
-            continue
-        disk_keys[name] = entry_key(name, key[1])
-        found, text = _recorded_choice(recorded, name, disk_keys[name])
-        if not found:
-            remembered = cache.read("shaping", disk_keys[name])
-            found, text = _valid(remembered)
-        if found:
-            texts[name] = text
-            _remember(key, text)
-    todo = [name for name in keys if name not in texts]
-    if todo:
-        _tell(progress, 0.4)
-        chosen = _search({name: sample[name] for name in todo},
-                         progress=None if progress is None else lambda done: progress(0.4 + 0.6 * done))
-        for name in todo:
-            texts[name] = chosen[name]
-            _remember(keys[name], chosen[name])
-            cache.write("shaping", disk_keys[name], {"column": name, "expression": chosen[name]})
-    for name in keys:
-        if texts[name]:
-            out[name] = texts[name]
-    _tell(progress, 1.0)
+    chosen = _choices({name: v for name, v in sample.items() if name not in out}, recorded, folder=True,
+                      progress=progress)
+    out.update({name: text for name, (_, text) in chosen.items() if text})
     return out
 
 
-def fit_sample(transforms: Mapping, raw: Mapping[str, np.ndarray], names: list[str]) -> dict[str, np.ndarray]:
-    """The columns a search of a fit's normal rows would make its shaping choices on.
+def recorded_for_fit(transforms: Mapping, raw: Mapping[str, np.ndarray], names: list[str]) -> dict:
+    """What a fit records in its model file (``training.shaping``): ``{feature: {"key": ..., "expression":
+    text or None}}``.
 
     ``raw``: the fit's normal rows, features before the recipe's transforms
     (what a search's session reads). The sample is the search's own, with the
     default sample settings (:class:`afterlook.core.candidates.Settings`), so a
-    search of these rows with those settings finds every choice that
-    :func:`recorded` makes of it. Features the recipe shapes by an expression
-    are left out (the search keeps the recipe's own); empty when nothing is
-    to be chosen.
+    search of these rows with those settings finds every choice recorded here.
+    Features the recipe shapes by an expression are left out (the search keeps
+    the recipe's own). Choices are remembered in the process too, but not
+    written to the cache folder: the model file is their place.
     """
     from ..core.candidates import Settings
     from ..core.search_inputs import finite_sample
@@ -130,22 +103,43 @@ def fit_sample(transforms: Mapping, raw: Mapping[str, np.ndarray], names: list[s
     A = finite_sample(raw, names, settings.sample_size, settings.random_state)
     if A.shape[0] == 0:
         return {}
-    return {n: A[:, names.index(n)] for n in todo}
+    chosen = _choices({n: A[:, names.index(n)] for n in todo}, folder=False)
+    return {n: {"key": key, "expression": text} for n, (key, text) in chosen.items()}
 
 
-def recorded(columns: Mapping[str, np.ndarray]) -> dict:
-    """What a fit records in its model file (``training.shaping``) for the columns of :func:`fit_sample`:
-    ``{feature: {"key": ..., "expression": text or None}}``. Choices made here are remembered in the
-    process too, but not written to the cache folder: the model file is their place."""
-    digests = {n: _digest(v) for n, v in columns.items()}
-    known = {n: _SHAPING_CACHE[(n, d)] for n, d in digests.items() if (n, d) in _SHAPING_CACHE}
-    chosen = _search({n: v for n, v in columns.items() if n not in known})
-    out = {}
-    for n, d in digests.items():
-        text = known[n] if n in known else chosen[n]
-        _remember((n, d), text)
-        out[n] = {"key": entry_key(n, d), "expression": text}
-    return out
+def _choices(columns: Mapping[str, np.ndarray], recorded: Mapping | None = None, *, folder: bool,
+             progress=None) -> dict[str, tuple[str, str | None]]:
+    """``{name: (key, expression text or None)}`` for every column: from this process's memory, else
+    ``recorded`` (a model's ``training.shaping``), else (``folder``) the cache folder, else searched
+    (and then written to the folder when ``folder``)."""
+    from ..store import cache
+
+    _tell(progress, 0.0)
+    digests = {name: _digest(values) for name, values in columns.items()}
+    keys = {name: entry_key(name, d) for name, d in digests.items()}
+    texts: dict[str, str | None] = {}
+    for name, d in digests.items():
+        if (name, d) in _SHAPING_CACHE:
+            texts[name] = _SHAPING_CACHE[(name, d)]
+            continue
+        found, text = _recorded_choice(recorded, name, keys[name])
+        if not found and folder:
+            found, text = _valid(cache.read("shaping", keys[name]))
+        if found:
+            texts[name] = text
+            _remember((name, d), text)
+    todo = [name for name in columns if name not in texts]
+    if todo:
+        _tell(progress, 0.4)
+        chosen = _search({name: columns[name] for name in todo},
+                         progress=None if progress is None else lambda done: progress(0.4 + 0.6 * done))
+        for name in todo:
+            texts[name] = chosen[name]
+            _remember((name, digests[name]), chosen[name])
+            if folder:
+                cache.write("shaping", keys[name], {"column": name, "expression": chosen[name]})
+    _tell(progress, 1.0)
+    return {name: (keys[name], texts[name]) for name in columns}
 
 
 def _search(columns: dict[str, np.ndarray], progress=None) -> dict[str, str | None]:
