@@ -416,7 +416,7 @@ async def test_save_key_still_works_after_apply_and_after_a_cancelled_save(demo,
 @pytest.mark.asyncio
 async def test_q_during_a_search_exits_and_the_search_stops_at_its_next_report(demo, tmp_path, monkeypatch,
                                                                                wait_until):
-    # The real search runs; it is held at its first shaping report until q was
+    # The real search runs; it is held at its first screening report until q was
     # pressed, then it must stop at the very next report instead of running on
     # (an exiting app waits for its worker threads).
     from afterlook.analysis import workbench as wd
@@ -431,7 +431,7 @@ async def test_q_during_a_search_exits_and_the_search_stops_at_its_next_report(d
         seen["worker"] = get_current_worker()
 
         def report(stage, fraction):
-            if not started.is_set() and stage.startswith("shaping"):
+            if not started.is_set() and stage.startswith("screening"):
                 started.set()
                 quit_pressed.wait(timeout=60)
             if quit_pressed.is_set():
@@ -453,7 +453,7 @@ async def test_q_during_a_search_exits_and_the_search_stops_at_its_next_report(d
         await pilot.pause()
         case = app.selected_case
         await pilot.press("c")
-        await wait_until(pilot, started.is_set, what="the search to reach its shaping pass")
+        await wait_until(pilot, started.is_set, what="the search to reach its screening pass")
         assert app.candidates_running == case
         await pilot.press("q")
         await wait_until(pilot, lambda: seen["worker"].is_cancelled, what="the exit to cancel the search")
@@ -461,7 +461,7 @@ async def test_q_during_a_search_exits_and_the_search_stops_at_its_next_report(d
         await wait_until(pilot, lambda: seen["outcome"] is not None, what="the search to end")
     assert app.return_code == 0
     assert seen["outcome"] == "_Stale"  # stopped by the cancelled worker, not run to the end
-    assert seen["reports after q"] == ["shaping columns"]  # every column is shaped at once, one report before
+    assert seen["reports after q"] == ["screening candidates"]  # the held report itself, then none
     assert case not in app.candidates
 
 

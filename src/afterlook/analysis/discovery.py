@@ -21,6 +21,7 @@ from ..core.heldout import DEFAULT_FOLDS, DEFAULT_SEED, flagged_rate, kfold_gain
 from ..core.numbers import sample_rows
 from ..core.search_inputs import finite_sample, seeded_subset
 from ..core.recipe import free_name
+from ..core.beside import Beside
 from ..core.blas import with_limited_blas
 from . import shaping_choices
 from .added_refit import AddedFeatureRefit, Refitted
@@ -154,16 +155,28 @@ def suggest(model, cases, train=None, case_ids=None, top: int = 10, *,
     if not np.all(np.isfinite(T)):
         raise AfterlookError("a target case has NaN or infinite features; it cannot be searched")
 
-    shaped = (shaping_choices.expressions(model.recipe.transforms, sample, model.training.get("shaping"),
-                                          progress=_stage(progress, "shaping columns", 0.1, 0.15))
-              if shaping else {})
-    _report(progress, "screening candidates", 0.15)
-    screened = seeded_subset(sample, SCREEN_ROWS, settings.random_state)
-    candidates, tried, _ = cand.generate_and_screen(names, screened, T, shaped, settings, select=True,
-                                                    progress=_stage(progress, "screening candidates", 0.15, 0.3))
-    # with a unit column: unit-relative and change candidates (analysis/fleet_search.py), counted as tried
-    fleet = FleetSearch.prepare(session, names, settings)
-    fleet_found = fleet.screen(idx) if fleet is not None else []
+    # The shaping choices are made in a second thread while this one screens the candidates that need none
+    # and prepares the re-fits (on a free core the two overlap); the shaped candidates wait for them.
+    _report(progress, "screening candidates", 0.1)
+    beside = (Beside(shaping_choices.expressions, model.recipe.transforms, sample, model.training.get("shaping"),
+                     name="afterlook-shaping") if shaping else None)
+    try:
+        screened = seeded_subset(sample, SCREEN_ROWS, settings.random_state)
+        screen = cand.Screen(names, screened, T, progress=_stage(progress, "screening candidates", 0.1, 0.25))
+        # with a unit column: unit-relative and change candidates (analysis/fleet_search.py), counted as tried
+        fleet = FleetSearch.prepare(session, names, settings)
+        fleet_found = fleet.screen(idx) if fleet is not None else []
+        exact = max(top, EXACT_AT_LEAST) if exact is None else exact
+        fold_warnings: list[str] = []
+        folds = _folds(session, fold_warnings)
+        refitter = _Refitter(session, idx, folds, progress, max(exact, 0), stage=("screening candidates", 0.25))
+        shaped = (beside.result(check=lambda: _report(progress, "shaping columns", 0.25))
+                  if beside is not None else {})
+    finally:
+        if beside is not None:
+            beside.stop()  # a no-op once the choices are made; else (an error, a stale search) stops them
+    candidates, tried, _ = screen.finish(shaped, settings, select=True)
+    _report(progress, "screening candidates", 0.3)
     tried += fleet.tried if fleet is not None else 0
     _report(progress, "exact statistics", 0.35)
     candidates_other = labels & np.all(np.isfinite(C), axis=1)
@@ -172,7 +185,6 @@ def suggest(model, cases, train=None, case_ids=None, top: int = 10, *,
     other_cols = {n: C[other, k] for k, n in enumerate(names)}
     other_is_miss = miss_mask[other] if len(other) else np.zeros(0, bool)
     target_cols = {n: T[:, k] for k, n in enumerate(names)}
-    exact = max(top, EXACT_AT_LEAST) if exact is None else exact
     measure = cand.RobustMeasure(sample, target_cols, target_ids, other_cols, other_is_miss, tried, settings)
     ranked = cand.second_pass(candidates, tried, sample, target_cols, target_ids, other_cols, other_is_miss, settings,
                               progress=_stage(progress, "exact statistics", 0.3, 0.35), measure=measure,
@@ -187,10 +199,9 @@ def suggest(model, cases, train=None, case_ids=None, top: int = 10, *,
                         "features (a full covariance cannot take them)")
     beyond_total = sum(c.beyond_chance for c in ranked)
 
-    folds = _folds(session, warnings)
+    warnings += fold_warnings
     _report(progress, "preparing the re-fits", 0.4)
     n_exact = max(exact, 0)
-    refitter = _Refitter(session, idx, folds, progress, n_exact)
     ranked = cand.measured_whole(ranked, max(exact, top), settings)  # again after the affine check dropped some
     refitter.refit_many(ranked[:n_exact], spare=ranked[n_exact: n_exact + SPARE_REFITS])
     while True:  # the list is ranked by verdict, which needs the re-fit: re-fit what would be listed
@@ -333,7 +344,8 @@ class _Refitter:
     ``failed`` and a warning says why.
     """
 
-    def __init__(self, session: Session, idx: list[int], folds, progress, planned: int):
+    def __init__(self, session: Session, idx: list[int], folds, progress, planned: int,
+                 stage: tuple[str, float] = ("preparing the re-fits", 0.4)):
         self.session, self.idx, self.folds, self.progress, self.planned = session, idx, folds, progress, planned
         self.failed: set[int] = set()
         self.attempted: set[int] = set()
@@ -342,7 +354,8 @@ class _Refitter:
         self.base_conf = scored.confusion()
         labels = session.labels
         self.rate = flagged_rate(scored.log_density, session.model.threshold, labels) if labels is not None else 0.0
-        self.fast = AddedFeatureRefit.prepare(session, progress=_stage(progress, "preparing the re-fits", 0.4, 0.4))
+        # ``stage``: what its preparation reports (the search prepares it while the screen waits for shaping)
+        self.fast = AddedFeatureRefit.prepare(session, progress=_stage(progress, stage[0], stage[1], stage[1]))
 
     def refit_many(self, cands: list, spare: tuple | list = ()) -> None:
         """:meth:`refit` each, their training columns and cross-covariances computed together (with those

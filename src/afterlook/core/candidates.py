@@ -332,18 +332,33 @@ def generate_and_screen(
     -------
     (candidates, n_tried, correlation matrix)
     """
-    report = progress or (lambda fraction: None)
-    m = moments(names, sample, targets)
-    groups: list = []
-    report(0.1)
-    difference_and_product_groups(m, groups)
-    report(0.2)
-    ratio_groups(m, groups, tick=lambda: report(0.4))
-    report(0.6)
-    if shaped:
-        shaped_groups(m, sample, shaped, groups)
-    report(0.8)
-    return _first_pass(m, groups, settings, select)
+    return Screen(names, sample, targets, progress).finish(shaped, settings, select)
+
+
+class Screen:
+    """:func:`generate_and_screen` in two steps: the candidates that need no shaping choice are made at
+    construction, the shaped ones and every candidate's first-pass z by :meth:`finish` (so a caller can
+    make the shaping choices meanwhile, :class:`afterlook.core.beside.Beside`). The same candidates, in
+    the same order, as the one call."""
+
+    def __init__(self, names: list[str], sample: Mapping[str, np.ndarray], targets: np.ndarray, progress=None):
+        self._report = report = progress or (lambda fraction: None)
+        self._sample = sample
+        self._m = m = moments(names, sample, targets)
+        self._groups: list = []
+        report(0.1)
+        difference_and_product_groups(m, self._groups)
+        report(0.2)
+        ratio_groups(m, self._groups, tick=lambda: report(0.4))
+        report(0.6)
+
+    def finish(self, shaped: Mapping[str, str] | None = None, settings: Settings = Settings(),
+               select: bool = False) -> tuple[list[Candidate], int, np.ndarray]:
+        """The shaped candidates (``shaped``: name -> expression text) and the first pass of them all."""
+        if shaped:
+            shaped_groups(self._m, self._sample, shaped, self._groups)
+        self._report(0.8)
+        return _first_pass(self._m, self._groups, settings, select)
 
 
 def _first_pass(m, groups: list, settings: Settings, select: bool) -> tuple[list[Candidate], int, np.ndarray]:

@@ -1,0 +1,106 @@
+"""Work in a second thread (:class:`afterlook.core.beside.Beside`): its value, its errors, and stopping it.
+
+The work here is plain Python driven by events, so every check waits for a condition, never for a time.
+"""
+
+from __future__ import annotations
+
+import threading
+
+import pytest
+
+from afterlook.core.beside import Beside
+
+
+def test_the_value_and_the_errors_of_the_work_reach_the_caller():
+    assert Beside(lambda a, b, progress: a + b, 2, 3).result() == 5
+
+    def fails(progress):
+        raise ValueError("from the work")
+
+    with pytest.raises(ValueError, match="from the work"):
+        Beside(fails).result()
+
+
+def _steps(reached: threading.Event, release: threading.Event, done: list):
+    """Work that reports, waits to be released, then reports once per step for as long as it is let run."""
+
+    def work(progress):
+        progress(0.0)
+        reached.set()
+        release.wait(timeout=60)
+        for k in range(1, 1000):
+            progress(k / 1000)
+            done.append(k)
+        return "ran to the end"
+
+    return work
+
+
+def test_stop_ends_the_work_at_its_next_report_and_waits_for_it():
+    reached, release, done = threading.Event(), threading.Event(), []
+    job = Beside(_steps(reached, release, done))
+    assert reached.wait(timeout=60)
+    threading.Timer(0.0, release.set).start()  # released while stop() waits: it must not run on
+    job.stop()
+    assert done == []  # stopped at the first report after the release
+    assert not job._thread.is_alive()
+
+
+def test_a_check_that_raises_while_waiting_stops_the_work_and_is_raised():
+    reached, release, done = threading.Event(), threading.Event(), []
+    job = Beside(_steps(reached, release, done))
+    assert reached.wait(timeout=60)
+
+    class Gone(Exception):
+        pass
+
+    def check():
+        release.set()
+        raise Gone()
+
+    with pytest.raises(Gone):
+        job.result(check=check, every=0.001)
+    assert done == [] and not job._thread.is_alive()
+
+
+def test_a_search_that_fails_during_its_screen_leaves_no_shaping_thread_running(monkeypatch):
+    # afterlook.suggest makes its shaping choices in a second thread during the screen; an error in the
+    # screen (here: raised by the progress callback, as a stale workbench search is stopped) must stop
+    # that thread before the call returns.
+    import numpy as np
+    import pandas as pd
+
+    import afterlook
+    from afterlook.analysis import shaping_choices
+
+    rng = np.random.default_rng(0)
+    train = pd.DataFrame({"a": rng.lognormal(size=3000), "b": rng.lognormal(size=3000), "c": rng.normal(size=3000)})
+    cases = train.iloc[:40].copy()
+    cases["label"] = ["anomaly"] * 4 + ["normal"] * 36
+    cases.loc[cases.index[0], "a"] = 20.0
+    model = afterlook.fit(train, kind="full")
+    monkeypatch.setattr(shaping_choices, "_SHAPING_CACHE", {})
+    shaping_started, release = threading.Event(), threading.Event()
+    real = shaping_choices._search
+
+    def slow_search(columns, progress=None):
+        shaping_started.set()
+        release.wait(timeout=60)
+        progress(0.5)  # the search's own report: where a stopped search ends
+        return real(columns, progress=progress)
+
+    monkeypatch.setattr(shaping_choices, "_search", slow_search)
+
+    class Stop(Exception):
+        pass
+
+    def progress(stage, fraction):
+        if stage.startswith("screening") and fraction > 0.1 and shaping_started.wait(timeout=60):
+            release.set()
+            raise Stop()
+
+    with pytest.raises(Stop):
+        afterlook.suggest(model, cases, train=train, progress=progress)
+    assert not [t for t in threading.enumerate() if t.name == "afterlook-shaping"]
+    assert shaping_choices._SHAPING_CACHE == {}  # stopped before it made (and remembered) any choice
