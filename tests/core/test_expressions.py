@@ -591,3 +591,24 @@ def test_plain_identifiers_parse_as_columns_or_are_refused(name):
     except AfterlookError:
         return
     assert e.columns in ((name.strip(),), ())
+
+
+def test_a_memo_shared_by_expressions_on_the_same_rows_gives_their_own_fits():
+    # Reference: each expression fitted on its own (no memo); the memo only saves fitting a call twice.
+    rng = np.random.default_rng(5)
+    rows = {"a": rng.lognormal(size=500), "b": rng.normal(3.0, 2.0, 500), "c": rng.gamma(2.0, size=500)}
+    texts = ["zscore(a) - zscore(b)", "zscore(a) / zscore(c)", "zscore(log(a)) - zscore(log(c))",
+             "zscore(zscore(a) * b)", "a / b"]
+    memo: dict = {}
+    for text in texts:
+        with guarded():
+            shared = expressions.parse(text).fit(rows, memo=memo)
+            alone = expressions.parse(text).fit(rows)
+            assert shared.frozen == alone.frozen
+            np.testing.assert_array_equal(shared.evaluate(rows), alone.evaluate(rows))
+    assert set(memo) == {"zscore(a)", "zscore(b)", "zscore(c)", "zscore(log(a))", "zscore(log(c))",
+                         "zscore(zscore(a) * b)"}
+    # and it is read: statistics put in the memo are the ones used
+    memo["zscore(b)"] = {**memo["zscore(b)"], "mean": 0.0}
+    with guarded():
+        assert expressions.parse("zscore(b) + a").fit(rows, memo=memo).frozen["zscore(b)"]["mean"] == 0.0

@@ -15,6 +15,7 @@ import warnings
 from .. import _version
 from ..cautions import CAUTION
 from ..core.blas import environment_for_new_process, limited_blas, note_environment
+from ..core.heap import HUGEPAGE_ENV
 from ..core.errors import EXIT_BAD_INPUT, EXIT_CHECK_FAILED, EXIT_INTERNAL, EXIT_INTERRUPTED, EXIT_OK, AfterlookError
 from ..store.outputs import check_output
 from .allocator import keep_freed_memory
@@ -91,7 +92,9 @@ ENVIRONMENT = """environment:
                           remembers its shaping choices between runs; default
                           ~/.cache/afterlook or $XDG_CACHE_HOME/afterlook, off
                           for none; safe to delete at any time
-  AFTERLOOK_DEBUG         1: show the traceback of an internal error"""
+  AFTERLOOK_DEBUG         1: show the traceback of an internal error
+  NUMPY_MADVISE_HUGEPAGE  numpy's own huge-page advice for large arrays;
+                          afterlook turns it off (0) unless it is set"""
 
 
 #: The module that registers each command (this one registers demo, fit, misses and explain itself).
@@ -362,6 +365,7 @@ def entry() -> None:
     os.environ.update(environment_for_new_process())
     note_environment()  # every BLAS this process loads starts with that limit: no need to look for them later
     keep_freed_memory()  # the command's own process: temporaries reused, not page-faulted anew (cli/allocator.py)
+    os.environ.setdefault(HUGEPAGE_ENV, "0")  # before numpy loads: no huge-page advice (core/heap.py, small_pages)
     sys.exit(main())
 
 

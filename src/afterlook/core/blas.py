@@ -25,7 +25,7 @@ import sys
 import threading
 
 from .errors import AfterlookError
-from .heap import settle
+from .heap import settle, small_pages
 
 ENV = "AFTERLOOK_BLAS_THREADS"
 DEFAULT_THREADS = 1
@@ -108,12 +108,12 @@ def limited_blas():
 
 def with_limited_blas(fn):
     """Decorator form of :func:`limited_blas` for afterlook's operations (which also :func:`~afterlook.core.heap.settle`
-    the process's heap, once)."""
+    the process's heap, once, and run with numpy's huge-page advice off, :func:`~afterlook.core.heap.small_pages`)."""
 
     @functools.wraps(fn)
     def wrapper(*args, **kwargs):
         settle()  # once per process: glibc then keeps the operation's temporaries for reuse (core/heap.py)
-        with limited_blas():
+        with limited_blas(), small_pages():  # no huge-page advice meanwhile (core/heap.py)
             return fn(*args, **kwargs)
 
     return wrapper

@@ -89,19 +89,27 @@ class Expression:
             return self
         return replace(self, frozen={k: frozen[k] for k in self.calls if k in frozen})
 
-    def fit(self, normal: Mapping[str, np.ndarray]) -> "Expression":
+    def fit(self, normal: Mapping[str, np.ndarray], memo: dict | None = None) -> "Expression":
         """Freeze the statistics of every stateful call on ``normal`` (rows of the normal population).
 
         Inner calls are fitted first; each on the finite values of its
         argument. Returns a new expression (``self`` when there is no such call).
+        ``memo``: a dict the caller keeps for one ``normal`` (the same rows, unchanged)
+        across many expressions: a call's statistics depend only on its text and those
+        rows, so a call fitted for one expression is read from it, not fitted again.
         """
         if not self.calls:
             return self
+        if memo is not None and all(k in memo for k in self.calls):
+            return replace(self, frozen={k: memo[k] for k in self.calls})
         env, n = self._env(normal)
         context = row_context(normal)
         done: dict[str, dict] = {}
         with np.errstate(all="ignore"):
             for key in self.calls:
+                if memo is not None and key in memo:
+                    done[key] = memo[key]
+                    continue
                 node = self._call_nodes[key]
                 try:
                     values = Evaluator(env, done, self._call_keys, self.text, context).visit(node.args[0])
@@ -110,6 +118,8 @@ class Expression:
                                                       context[0])
                 except AfterlookError as exc:
                     raise AfterlookError(f"expression '{short(self.text)}': {exc.message}") from None
+                if memo is not None:
+                    memo[key] = done[key]
         return replace(self, frozen=done)
 
     def _env(self, columns: Mapping[str, np.ndarray]) -> tuple[dict, int | None]:

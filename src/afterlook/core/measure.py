@@ -53,6 +53,9 @@ class RobustMeasure:
         self.others = other_anomalies is not None and other_is_miss is not None and len(other_is_miss) > 0
         self.other_anomalies, self.other_is_miss = other_anomalies, other_is_miss
         self.n = len(next(iter(sample.values())))
+        # frozen statistics of the calls fitted so far (zscore(x) recurs in many candidates), per sample measured on
+        # (the whole one or the subset, both kept alive by this measure)
+        self._frozen: dict[int, dict] = {}
         # the targets and the other anomalies evaluated together, one call per candidate, when every
         # function is row by row (no unit labels, times or earlier readings in either mapping)
         self._both = None
@@ -83,7 +86,7 @@ class RobustMeasure:
             expr = c.parsed  # frozen before the search measured it (unit baselines: on the rows try freezes them on)
         else:
             # zscore(...) in a candidate is frozen on the normal rows it is measured on (never on the targets)
-            expr = c.parsed = expressions.parse(c.expression).fit(sample)
+            expr = c.parsed = expressions.parse(c.expression).fit(sample, memo=self._frozen.setdefault(id(sample), {}))
         v = expr.evaluate(sample)
         v = v[np.isfinite(v)]
         if v.size < 30 or v.std() == 0:
