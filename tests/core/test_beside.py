@@ -104,3 +104,41 @@ def test_a_search_that_fails_during_its_screen_leaves_no_shaping_thread_running(
         afterlook.suggest(model, cases, train=train, progress=progress)
     assert not [t for t in threading.enumerate() if t.name == "afterlook-shaping"]
     assert shaping_choices._SHAPING_CACHE == {}  # stopped before it made (and remembered) any choice
+
+
+def test_a_search_reports_progress_that_never_goes_back_while_it_waits_for_its_shaping(monkeypatch):
+    # The workbench draws these reports as one bar: the screen, the re-fit preparation and the wait for the
+    # shaping thread (here held until the wait has been reported) must not move it backwards.
+    import numpy as np
+    import pandas as pd
+
+    import afterlook
+    from afterlook.analysis import shaping_choices
+
+    rng = np.random.default_rng(1)
+    train = pd.DataFrame({"a": rng.lognormal(size=3000), "b": rng.lognormal(size=3000), "c": rng.normal(size=3000)})
+    cases = train.iloc[:40].copy()
+    cases["label"] = ["anomaly"] * 4 + ["normal"] * 36
+    cases.loc[cases.index[0], "a"] = 20.0
+    model = afterlook.fit(train, kind="full")
+    monkeypatch.setattr(shaping_choices, "_SHAPING_CACHE", {})
+    waited = threading.Event()
+    real = shaping_choices._search
+
+    def held_search(columns, progress=None):
+        waited.wait(timeout=60)
+        return real(columns, progress=progress)
+
+    monkeypatch.setattr(shaping_choices, "_search", held_search)
+    seen = []
+
+    def progress(stage, fraction):
+        seen.append((stage, fraction))
+        if stage == "shaping columns":
+            waited.set()
+
+    afterlook.suggest(model, cases, train=train, progress=progress)
+    fractions = [f for _, f in seen]
+    assert "shaping columns" in [s for s, _ in seen]
+    assert all(a <= b for a, b in zip(fractions, fractions[1:])), seen
+    assert seen[-1] == ("done", 1.0)

@@ -162,15 +162,15 @@ def suggest(model, cases, train=None, case_ids=None, top: int = 10, *,
                      name="afterlook-shaping") if shaping else None)
     try:
         screened = seeded_subset(sample, SCREEN_ROWS, settings.random_state)
-        screen = cand.Screen(names, screened, T, progress=_stage(progress, "screening candidates", 0.1, 0.25))
+        screen = cand.Screen(names, screened, T, progress=_stage(progress, "screening candidates", 0.1, 0.3))
         # with a unit column: unit-relative and change candidates (analysis/fleet_search.py), counted as tried
         fleet = FleetSearch.prepare(session, names, settings)
         fleet_found = fleet.screen(idx) if fleet is not None else []
         exact = max(top, EXACT_AT_LEAST) if exact is None else exact
         fold_warnings: list[str] = []
         folds = _folds(session, fold_warnings)
-        refitter = _Refitter(session, idx, folds, progress, max(exact, 0), stage=("screening candidates", 0.25))
-        shaped = (beside.result(check=lambda: _report(progress, "shaping columns", 0.25))
+        refitter = _Refitter(session, idx, folds, progress, max(exact, 0), stage=("screening candidates", 0.22))
+        shaped = (beside.result(check=lambda: _report(progress, "shaping columns", 0.22))
                   if beside is not None else {})
     finally:
         if beside is not None:
@@ -178,7 +178,7 @@ def suggest(model, cases, train=None, case_ids=None, top: int = 10, *,
     candidates, tried, _ = screen.finish(shaped, settings, select=True)
     _report(progress, "screening candidates", 0.3)
     tried += fleet.tried if fleet is not None else 0
-    _report(progress, "exact statistics", 0.35)
+    _report(progress, "exact statistics", 0.3)  # the stage starts where the second pass reports from
     candidates_other = labels & np.all(np.isfinite(C), axis=1)
     candidates_other[idx] = False
     other = np.flatnonzero(candidates_other)
