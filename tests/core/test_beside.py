@@ -41,7 +41,8 @@ def test_stop_ends_the_work_at_its_next_report_and_waits_for_it():
     reached, release, done = threading.Event(), threading.Event(), []
     job = Beside(_steps(reached, release, done))
     assert reached.wait(timeout=60)
-    threading.Timer(0.0, release.set).start()  # released while stop() waits: it must not run on
+    # released once stop() has asked it to stop, while stop() waits for it: it must not run on
+    threading.Thread(target=lambda: job._stop.wait(timeout=60) and release.set()).start()
     job.stop()
     assert done == []  # stopped at the first report after the release
     assert not job._thread.is_alive()
@@ -56,7 +57,8 @@ def test_a_check_that_raises_while_waiting_stops_the_work_and_is_raised():
         pass
 
     def check():
-        release.set()
+        # the work is released once the raise below has made result() ask it to stop
+        threading.Thread(target=lambda: job._stop.wait(timeout=60) and release.set()).start()
         raise Gone()
 
     with pytest.raises(Gone):
@@ -81,15 +83,22 @@ def test_a_search_that_fails_during_its_screen_leaves_no_shaping_thread_running(
     cases.loc[cases.index[0], "a"] = 20.0
     model = afterlook.fit(train, kind="full")
     monkeypatch.setattr(shaping_choices, "_SHAPING_CACHE", {})
-    shaping_started, release = threading.Event(), threading.Event()
+    shaping_started, asked_to_stop = threading.Event(), threading.Event()
     real = shaping_choices._search
+    real_stop = Beside.stop
+
+    def stop(self):
+        self._stop.set()
+        asked_to_stop.set()
+        real_stop(self)
 
     def slow_search(columns, progress=None):
         shaping_started.set()
-        release.wait(timeout=60)
+        asked_to_stop.wait(timeout=60)  # held until the search asks it to stop (it never would: a failure)
         progress(0.5)  # the search's own report: where a stopped search ends
         return real(columns, progress=progress)
 
+    monkeypatch.setattr(Beside, "stop", stop)
     monkeypatch.setattr(shaping_choices, "_search", slow_search)
 
     class Stop(Exception):
@@ -97,7 +106,6 @@ def test_a_search_that_fails_during_its_screen_leaves_no_shaping_thread_running(
 
     def progress(stage, fraction):
         if stage.startswith("screening") and fraction > 0.1 and shaping_started.wait(timeout=60):
-            release.set()
             raise Stop()
 
     with pytest.raises(Stop):

@@ -119,8 +119,9 @@ def fit(
     # all finite (the rows a streamed fit sees too), so both engines give the
     # same recipe; a running AND over the columns, no (n, d) copy.
     raw_ok = np.ones(len(normal_frame), dtype=bool)
-    for v in columns_map.values():
-        raw_ok &= np.isfinite(v)
+    for name, v in columns_map.items():
+        if name not in table.finite_columns:  # every value of those was found finite when the table was read
+            raw_ok &= np.isfinite(v)
     if time_col and not unit_col:
         raise AfterlookError("--time-col needs --unit-col (a time orders the readings of one unit)")
     if unit_col:
