@@ -88,3 +88,53 @@ def test_damaged_entries_are_searched_again(breast_cancer, tmp_path, monkeypatch
         p.write_text('{"key": "' + p.stem + '", "value": {"expression": 7}}')  # parses, but not an expression
     _fresh_process(monkeypatch)
     assert shaping_choices.expressions({}, breast_cancer) == reference
+
+
+def _stored(folder):
+    import json
+
+    return sorted(json.loads(p.read_text())["value"]["expression"] or "" for p in (folder / "shaping").glob("*.json"))
+
+
+def test_a_search_with_nothing_stored_searches_first_and_ends_as_a_lookup_first_search_does(
+        breast_cancer, tmp_path, monkeypatch):
+    # shaping_choices.Choices (what suggest runs beside its screen) searches at once when nothing stored could
+    # answer and computes the keys meanwhile; the reference is expressions(), which looks every column up first:
+    # the same choices, remembered in this process and written to the cache folder under the same keys.
+    reference_folder, folder = tmp_path / "reference", tmp_path / "choices"
+    monkeypatch.setenv("AFTERLOOK_CACHE_DIR", str(reference_folder))
+    _fresh_process(monkeypatch)
+    reference = shaping_choices.expressions({}, breast_cancer)
+    remembered = dict(shaping_choices._SHAPING_CACHE)
+
+    monkeypatch.setenv("AFTERLOOK_CACHE_DIR", str(folder))
+    _fresh_process(monkeypatch)
+    job = shaping_choices.Choices({}, breast_cancer)
+    assert job._search_first  # an empty process, no record, no folder yet
+    assert job.result() == reference
+    job.stop()
+    assert shaping_choices._SHAPING_CACHE == remembered
+    assert sorted(p.name for p in (folder / "shaping").glob("*.json")) == \
+        sorted(p.name for p in (reference_folder / "shaping").glob("*.json"))
+    assert _stored(folder) == _stored(reference_folder)
+
+
+def test_anything_stored_that_could_answer_makes_the_search_look_up_first(breast_cancer, tmp_path, monkeypatch):
+    monkeypatch.setenv("AFTERLOOK_CACHE_DIR", "off")
+    _fresh_process(monkeypatch)
+    name = next(iter(breast_cancer))
+    assert not shaping_choices._could_answer(breast_cancer, None)
+    assert shaping_choices._could_answer(breast_cancer, {name: {"key": "k", "expression": None}})  # a model record
+    shaping_choices._remember((name, b"other values"), None)  # a choice of this process under that name
+    assert shaping_choices._could_answer(breast_cancer, None)
+    _fresh_process(monkeypatch)
+    monkeypatch.setenv("AFTERLOOK_CACHE_DIR", str(tmp_path))
+    assert not shaping_choices._could_answer(breast_cancer, None)  # the folder does not exist yet
+    shaping_choices.expressions({}, {name: breast_cancer[name]})  # writes one entry
+    _fresh_process(monkeypatch)
+    assert shaping_choices._could_answer(breast_cancer, None)
+    job = shaping_choices.Choices({}, breast_cancer)
+    assert not job._search_first
+    got = job.result()
+    job.stop()
+    assert got == shaping_choices.expressions({}, breast_cancer)

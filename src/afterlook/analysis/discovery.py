@@ -21,7 +21,6 @@ from ..core.heldout import DEFAULT_FOLDS, DEFAULT_SEED, flagged_rate, kfold_gain
 from ..core.numbers import sample_rows
 from ..core.search_inputs import finite_sample, seeded_subset
 from ..core.recipe import free_name
-from ..core.beside import Beside
 from ..core.blas import with_limited_blas
 from . import shaping_choices
 from .added_refit import AddedFeatureRefit, Refitted
@@ -158,8 +157,8 @@ def suggest(model, cases, train=None, case_ids=None, top: int = 10, *,
     # The shaping choices are made in a second thread while this one screens the candidates that need none
     # and prepares the re-fits (on a free core the two overlap); the shaped candidates wait for them.
     _report(progress, "screening candidates", 0.1)
-    beside = (Beside(shaping_choices.expressions, model.recipe.transforms, sample, model.training.get("shaping"),
-                     name="afterlook-shaping") if shaping else None)
+    shaping_job = (shaping_choices.Choices(model.recipe.transforms, sample, model.training.get("shaping"))
+                   if shaping else None)
     try:
         screened = seeded_subset(sample, SCREEN_ROWS, settings.random_state)
         screen = cand.Screen(names, screened, T, progress=_stage(progress, "screening candidates", 0.1, 0.3))
@@ -170,11 +169,11 @@ def suggest(model, cases, train=None, case_ids=None, top: int = 10, *,
         fold_warnings: list[str] = []
         folds = _folds(session, fold_warnings)
         refitter = _Refitter(session, idx, folds, progress, max(exact, 0), stage=("screening candidates", 0.22))
-        shaped = (beside.result(check=lambda: _report(progress, "shaping columns", 0.22))
-                  if beside is not None else {})
+        shaped = (shaping_job.result(check=lambda: _report(progress, "shaping columns", 0.22))
+                  if shaping_job is not None else {})
     finally:
-        if beside is not None:
-            beside.stop()  # a no-op once the choices are made; else (an error, a stale search) stops them
+        if shaping_job is not None:
+            shaping_job.stop()  # a no-op once the choices are made; else (an error, a stale search) stops them
     candidates, tried, _ = screen.finish(shaped, settings, select=True)
     _report(progress, "screening candidates", 0.3)
     tried += fleet.tried if fleet is not None else 0

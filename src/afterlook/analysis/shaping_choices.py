@@ -23,13 +23,14 @@ error: a choice that cannot be read or made is searched, or left out.
 from __future__ import annotations
 
 import hashlib
+import os
 from collections.abc import Mapping
 
 import numpy as np
 
 from ..core.errors import AfterlookError
 
-__all__ = ["expressions", "recorded_for_fit", "entry_key"]
+__all__ = ["expressions", "Choices", "recorded_for_fit", "entry_key"]
 
 #: Choices already made in this process, by column name and a digest of its values.
 _SHAPING_CACHE: dict[tuple[str, bytes], str | None] = {}
@@ -79,6 +80,66 @@ def expressions(transforms: Mapping, sample: Mapping[str, np.ndarray], recorded:
                       progress=progress)
     out.update({name: text for name, (_, text) in chosen.items() if text})
     return out
+
+
+class Choices:
+    """:func:`expressions`, made in a second thread (:class:`afterlook.core.beside.Beside`) while the caller
+    goes on; :meth:`result` gives the same mapping, :meth:`stop` ends the thread (a no-op once it is done).
+
+    When nothing stored could answer for any of the columns (this process holds no choice under their
+    names, the model no record of them, and the cache folder is off or holds no shaping entry), the
+    thread searches at once and the caller computes the columns' digests, the keys the choices are
+    remembered under, while it waits in :meth:`result` (on a free core that takes them off the time
+    to the first choice); otherwise the thread looks every column up first, as :func:`expressions` does.
+    Either way the same choices end up in the same places.
+    """
+
+    def __init__(self, transforms: Mapping, sample: Mapping[str, np.ndarray], recorded: Mapping | None = None):
+        from ..core.beside import Beside
+
+        self._out = {name: t.expression for name, t in transforms.items() if t.kind == "expression"}
+        self._columns = {name: v for name, v in sample.items() if name not in self._out}
+        self._search_first = not _could_answer(self._columns, recorded)
+        if self._search_first:
+            self._beside = Beside(_search, self._columns, name="afterlook-shaping")
+        else:
+            self._beside = Beside(expressions, transforms, sample, recorded, name="afterlook-shaping")
+
+    def result(self, check=None) -> dict[str, str]:
+        """What :func:`expressions` gives; ``check``: as :meth:`Beside.result` (called while waiting)."""
+        if not self._search_first:
+            return self._beside.result(check=check)
+        from ..store import cache
+
+        digests = {name: _digest(values) for name, values in self._columns.items()}  # while the search runs
+        chosen = self._beside.result(check=check)
+        for name, d in digests.items():
+            _remember((name, d), chosen[name])
+            cache.write("shaping", entry_key(name, d), {"column": name, "expression": chosen[name]})
+        out = dict(self._out)
+        out.update({name: chosen[name] for name in self._columns if chosen[name]})
+        return out
+
+    def stop(self) -> None:
+        self._beside.stop()
+
+
+def _could_answer(columns: Mapping, recorded: Mapping | None) -> bool:
+    """Whether this process, ``recorded`` or the cache folder could hold a choice for any of ``columns``."""
+    from ..store import cache
+
+    if any(name in columns for name, _ in _SHAPING_CACHE):
+        return True
+    if isinstance(recorded, Mapping) and any(name in recorded for name in columns):
+        return True
+    base = cache.folder()
+    if base is None:
+        return False
+    try:
+        with os.scandir(base / "shaping") as entries:
+            return any(e.name.endswith(".json") for e in entries)
+    except OSError:  # no such folder yet (or unreadable: then nothing can be read from it either)
+        return False
 
 
 def recorded_for_fit(transforms: Mapping, raw: Mapping[str, np.ndarray], names: list[str]) -> dict:
