@@ -128,7 +128,7 @@ def _could_answer(columns: Mapping, recorded: Mapping | None) -> bool:
     """Whether this process, ``recorded`` or the cache folder could hold a choice for any of ``columns``."""
     from ..store import cache
 
-    if any(name in columns for name, _ in _SHAPING_CACHE):
+    if any(name in columns for name, _ in list(_SHAPING_CACHE)):  # a copy: another thread may be adding
         return True
     if isinstance(recorded, Mapping) and any(name in recorded for name in columns):
         return True
