@@ -57,3 +57,27 @@ def test_ties_nan_infinities_and_overflow(values, q):
         _same(order_stats.median(v), np.median(v))
         _same(order_stats.quantile(v, q), np.quantile(v, q))
         _same(order_stats.percentile(v, q * 100), np.percentile(v, q * 100))
+
+
+@pytest.mark.parametrize("n", [2, 3, 31, 5000, 50_000])
+@pytest.mark.parametrize("column", [0, 23])
+def test_a_pair_of_percentiles_from_one_copy_is_numpys_pair(n, column):
+    rng = np.random.default_rng(n + column)
+    v = load_breast_cancer().data[rng.integers(0, 569, n), column]
+    before = v.copy()
+    for high, low in ((75, 25), (99.5, 0.5), (50, 50), (100, 0), (25, 25), (90, 89.99)):
+        got = order_stats.percentile_pair(v, high, low)
+        _same(got[0], np.percentile(v, high))
+        _same(got[1], np.percentile(v, low))
+    np.testing.assert_array_equal(v, before)
+
+
+@settings(max_examples=400, deadline=None)
+@given(_values, st.floats(0.0, 100.0), st.floats(0.0, 100.0))
+def test_a_pair_of_percentiles_with_ties_nan_and_infinities(values, p, r):
+    v = np.array(values)
+    high, low = max(p, r), min(p, r)
+    with np.errstate(all="ignore"):
+        got = order_stats.percentile_pair(v, high, low)
+        _same(got[0], np.percentile(v, high))
+        _same(got[1], np.percentile(v, low))

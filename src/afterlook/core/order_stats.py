@@ -20,7 +20,7 @@ import math
 
 import numpy as np
 
-__all__ = ["median", "quantile", "percentile"]
+__all__ = ["median", "quantile", "percentile", "percentile_pair"]
 
 
 def _upper_and_lower(v: np.ndarray, hi: int) -> tuple[float, float, bool]:
@@ -69,3 +69,39 @@ def quantile(values, q: float) -> np.float64:
 def percentile(values, p: float) -> np.float64:
     """``np.percentile(values, p)``: :func:`quantile` at ``p / 100``, divided as numpy divides it."""
     return quantile(values, float(np.true_divide(p, 100)))
+
+
+def percentile_pair(values, high: float, low: float) -> tuple[np.float64, np.float64]:
+    """``(np.percentile(values, high), np.percentile(values, low))`` for ``low <= high``, from one copy.
+
+    The copy is partitioned for ``high``'s upper position; every value ``low`` needs
+    then lies left of it, and only that part is partitioned again (the shaping search
+    asks for the quartiles of every column). The same numbers as two :func:`percentile`
+    calls; those answer where this shortcut does not apply (fewer than two values, a
+    percentile outside 0..100, or one at the last value).
+    """
+    v = np.asarray(values, dtype=np.float64).ravel()
+    n = v.size
+    qh, ql = float(np.true_divide(high, 100)), float(np.true_divide(low, 100))
+    if n < 2 or not 0.0 <= ql <= qh <= 1.0 or (n - 1) * qh >= n - 1:
+        return percentile(v, high), percentile(v, low)
+    hi_h = int(math.floor((n - 1) * qh)) + 1
+    part = np.partition(v, hi_h)
+    if np.isnan(part[hi_h:]).any():  # numpy sorts NaN last: any NaN lies at or right of hi_h
+        return np.float64(np.nan), np.float64(np.nan)
+    b_h, a_h = part[hi_h], part[:hi_h].max()
+    hi_l = int(math.floor((n - 1) * ql)) + 1
+    if hi_l == hi_h:
+        b_l, a_l = b_h, a_h
+    else:  # the hi_h smallest values are left of hi_h: the low position is among them
+        left = part[:hi_h]
+        left.partition(hi_l)
+        b_l, a_l = left[hi_l], left[:hi_l].max()
+    return _lerp(a_h, b_h, (n - 1) * qh), _lerp(a_l, b_l, (n - 1) * ql)
+
+
+def _lerp(a: np.float64, b: np.float64, virtual: float) -> np.float64:
+    """numpy's _lerp between the order statistics either side of ``virtual``, as :func:`quantile` has it."""
+    g = virtual - int(math.floor(virtual))
+    diff = b - a
+    return b - diff * (1 - g) if g >= 0.5 else a + diff * g

@@ -37,7 +37,12 @@ def finite_sample(raw: Mapping[str, np.ndarray], names: list[str], size: int, ra
     rows = rows[sample_rows(rows.size, size, random_state)]
     A = np.empty((rows.size, len(names)), dtype=np.float64, order="F")
     for k, n in enumerate(names):
-        A[:, k] = raw[n][rows]
+        col = raw[n]
+        if isinstance(col, np.ndarray) and col.dtype == np.float64:
+            # straight into the column (mode "clip" is numpy's unbuffered one; every row index is in range)
+            np.take(col, rows, out=A[:, k], mode="clip")
+        else:
+            A[:, k] = col[rows]
     return A
 
 

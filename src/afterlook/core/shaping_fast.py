@@ -239,8 +239,8 @@ def _fast_choices(names: list[str], arrays: dict, sample_size: int, random_state
     cols = [arrays[n] for n in names]
     x_min = np.array([c.min() for c in cols])
     varies = (np.array([np.ptp(c) for c in cols]) > 0) & (np.ptp(S, axis=0) > 0)
-    # the numbers of np.percentile(X, [75, 25], axis=0), column by column (one-position partitions)
-    q75, q25 = np.array([(order_stats.percentile(c, 75), order_stats.percentile(c, 25)) for c in cols]).T
+    # the numbers of np.percentile(X, [75, 25], axis=0), column by column (one copy, one-position partitions)
+    q75, q25 = np.array([order_stats.percentile_pair(c, 75, 25) for c in cols]).T
     iqr = q75 - q25
     spread = np.array([iqr[k] if iqr[k] != 0 else cols[k].std() for k in range(len(cols))])
     # integer-valued: the sample rows first (a column with a fraction there is not), then every row

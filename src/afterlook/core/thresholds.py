@@ -150,6 +150,13 @@ def best_f1_threshold(log_density: np.ndarray, is_anomaly: np.ndarray) -> tuple[
     This is the best F1 on scikit-learn's ``precision_recall_curve`` for the
     score ``-log_density`` (tests check it).
     """
+    threshold = _best_f1_cut(log_density, is_anomaly)
+    ld = np.asarray(log_density, dtype=np.float64)
+    return threshold, confusion(flag(ld, threshold), np.asarray(is_anomaly, dtype=bool))
+
+
+def _best_f1_cut(log_density: np.ndarray, is_anomaly: np.ndarray) -> float:
+    """The threshold of :func:`best_f1_threshold` alone (what a policy needs, without the counts)."""
     ld = np.asarray(log_density, dtype=np.float64)
     y = np.asarray(is_anomaly, dtype=bool)
     ok = np.isfinite(ld)
@@ -179,7 +186,7 @@ def best_f1_threshold(log_density: np.ndarray, is_anomaly: np.ndarray) -> tuple[
             threshold = float(np.nextafter(cuts[best], np.inf))
     else:
         threshold = float(np.nextafter(cuts[best], np.inf))
-    return threshold, confusion(flag(ld, threshold), y)
+    return threshold
 
 
 def rate_threshold(normal_log_density: np.ndarray, rate: float) -> float:
@@ -193,13 +200,13 @@ def rate_threshold(normal_log_density: np.ndarray, rate: float) -> float:
     ld = np.asarray(normal_log_density, dtype=np.float64)
     always = int(np.isneginf(ld).sum())  # outside a feature's domain: flagged whatever the threshold
     n_scored = int((~np.isnan(ld)).sum())
-    ld = np.sort(ld[np.isfinite(ld)])
+    ld = ld[np.isfinite(ld)]
     if ld.size == 0:
         raise AfterlookError("false-alarm budget needs normal rows with a finite log-density")
     k = max(int(math.floor(rate * n_scored + 1e-9)) - always, 0)
     if k >= ld.size:
-        return float(np.nextafter(ld[-1], np.inf))
-    return float(ld[k])
+        return float(np.nextafter(ld.max(), np.inf))
+    return float(np.partition(ld, k)[k])  # the (k+1)-th smallest: one position, no sort
 
 
 def choose_threshold(
@@ -215,7 +222,7 @@ def choose_threshold(
     if policy.kind == "f1":
         if case_log_density is None or case_is_anomaly is None:
             raise AfterlookError("the f1 threshold needs labelled cases (--cases with a label column); or use --threshold rate:R")
-        return best_f1_threshold(case_log_density, case_is_anomaly)[0]
+        return _best_f1_cut(case_log_density, case_is_anomaly)
     if case_log_density is not None and case_is_anomaly is not None and np.any(~np.asarray(case_is_anomaly, bool)):
         normals = np.asarray(case_log_density)[~np.asarray(case_is_anomaly, bool)]
     elif normal_log_density is not None:
