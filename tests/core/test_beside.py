@@ -1,6 +1,7 @@
 """Work in a second thread (:class:`afterlook.core.beside.Beside`): its value, its errors, and stopping it.
 
 The work here is plain Python driven by events, so every check waits for a condition, never for a time.
+The searches read the Wisconsin diagnostic breast-cancer table bundled with scikit-learn.
 """
 
 from __future__ import annotations
@@ -66,22 +67,31 @@ def test_a_check_that_raises_while_waiting_stops_the_work_and_is_raised():
     assert done == [] and not job._thread.is_alive()
 
 
+def _breast_cancer_search():
+    """Training rows, labelled cases and a full model for a search: the first six columns of the Wisconsin
+    diagnostic breast-cancer table bundled with scikit-learn, its first 60 rows as cases (malignant =
+    anomaly; case "44" is one the model misses)."""
+    import pandas as pd
+    from sklearn.datasets import load_breast_cancer
+
+    import afterlook
+
+    data = load_breast_cancer()
+    names = [f"c{k:02d}" for k in range(6)]
+    train = pd.DataFrame(data.data[:, :6], columns=names)
+    cases = train.iloc[:60].copy()
+    cases["label"] = data.target[:60] == 0
+    return train, cases, afterlook.fit(train, kind="full")
+
+
 def test_a_search_that_fails_during_its_screen_leaves_no_shaping_thread_running(monkeypatch):
     # afterlook.suggest makes its shaping choices in a second thread during the screen; an error in the
     # screen (here: raised by the progress callback, as a stale workbench search is stopped) must stop
     # that thread before the call returns.
-    import numpy as np
-    import pandas as pd
-
     import afterlook
     from afterlook.analysis import shaping_choices
 
-    rng = np.random.default_rng(0)
-    train = pd.DataFrame({"a": rng.lognormal(size=3000), "b": rng.lognormal(size=3000), "c": rng.normal(size=3000)})
-    cases = train.iloc[:40].copy()
-    cases["label"] = ["anomaly"] * 4 + ["normal"] * 36
-    cases.loc[cases.index[0], "a"] = 20.0
-    model = afterlook.fit(train, kind="full")
+    train, cases, model = _breast_cancer_search()
     monkeypatch.setattr(shaping_choices, "_SHAPING_CACHE", {})
     shaping_started, asked_to_stop = threading.Event(), threading.Event()
     real = shaping_choices._search
@@ -109,7 +119,7 @@ def test_a_search_that_fails_during_its_screen_leaves_no_shaping_thread_running(
             raise Stop()
 
     with pytest.raises(Stop):
-        afterlook.suggest(model, cases, train=train, progress=progress)
+        afterlook.suggest(model, cases, train=train, case_ids=["44"], progress=progress)
     assert not [t for t in threading.enumerate() if t.name == "afterlook-shaping"]
     assert shaping_choices._SHAPING_CACHE == {}  # stopped before it made (and remembered) any choice
 
@@ -117,18 +127,10 @@ def test_a_search_that_fails_during_its_screen_leaves_no_shaping_thread_running(
 def test_a_search_reports_progress_that_never_goes_back_while_it_waits_for_its_shaping(monkeypatch):
     # The workbench draws these reports as one bar: the screen, the re-fit preparation and the wait for the
     # shaping thread (here held until the wait has been reported) must not move it backwards.
-    import numpy as np
-    import pandas as pd
-
     import afterlook
     from afterlook.analysis import shaping_choices
 
-    rng = np.random.default_rng(1)
-    train = pd.DataFrame({"a": rng.lognormal(size=3000), "b": rng.lognormal(size=3000), "c": rng.normal(size=3000)})
-    cases = train.iloc[:40].copy()
-    cases["label"] = ["anomaly"] * 4 + ["normal"] * 36
-    cases.loc[cases.index[0], "a"] = 20.0
-    model = afterlook.fit(train, kind="full")
+    train, cases, model = _breast_cancer_search()
     monkeypatch.setattr(shaping_choices, "_SHAPING_CACHE", {})
     waited = threading.Event()
     real = shaping_choices._search
@@ -145,7 +147,7 @@ def test_a_search_reports_progress_that_never_goes_back_while_it_waits_for_its_s
         if stage == "shaping columns":
             waited.set()
 
-    afterlook.suggest(model, cases, train=train, progress=progress)
+    afterlook.suggest(model, cases, train=train, case_ids=["44"], progress=progress)
     fractions = [f for _, f in seen]
     assert "shaping columns" in [s for s, _ in seen]
     assert all(a <= b for a, b in zip(fractions, fractions[1:])), seen
