@@ -75,7 +75,7 @@ def expressions(transforms: Mapping, sample: Mapping[str, np.ndarray], recorded:
     expression keeps it). ``recorded``: a model's ``training.shaping``.
     ``progress``: optional callable(done) with done in [0, 1].
     """
-    out = {name: t.expression for name, t in transforms.items() if t.kind == "expression"}
+    out = _recipe_own(transforms)
     chosen = _choices({name: v for name, v in sample.items() if name not in out}, recorded, folder=True,
                       progress=progress)
     out.update({name: text for name, (_, text) in chosen.items() if text})
@@ -97,7 +97,7 @@ class Choices:
     def __init__(self, transforms: Mapping, sample: Mapping[str, np.ndarray], recorded: Mapping | None = None):
         from ..core.beside import Beside
 
-        self._out = {name: t.expression for name, t in transforms.items() if t.kind == "expression"}
+        self._out = _recipe_own(transforms)
         self._columns = {name: v for name, v in sample.items() if name not in self._out}
         self._search_first = not _could_answer(self._columns, recorded)
         if self._search_first:
@@ -109,13 +109,10 @@ class Choices:
         """What :func:`expressions` gives; ``check``: as :meth:`Beside.result` (called while waiting)."""
         if not self._search_first:
             return self._beside.result(check=check)
-        from ..store import cache
-
         digests = {name: _digest(values) for name, values in self._columns.items()}  # while the search runs
         chosen = self._beside.result(check=check)
         for name, d in digests.items():
-            _remember((name, d), chosen[name])
-            cache.write("shaping", entry_key(name, d), {"column": name, "expression": chosen[name]})
+            _keep(name, d, entry_key(name, d), chosen[name], folder=True)
         out = dict(self._out)
         out.update({name: chosen[name] for name in self._columns if chosen[name]})
         return out
@@ -196,9 +193,7 @@ def _choices(columns: Mapping[str, np.ndarray], recorded: Mapping | None = None,
                          progress=None if progress is None else lambda done: progress(0.4 + 0.6 * done))
         for name in todo:
             texts[name] = chosen[name]
-            _remember((name, digests[name]), chosen[name])
-            if folder:
-                cache.write("shaping", keys[name], {"column": name, "expression": chosen[name]})
+            _keep(name, digests[name], keys[name], chosen[name], folder=folder)
     _tell(progress, 1.0)
     return {name: (keys[name], texts[name]) for name in columns}
 
@@ -240,6 +235,20 @@ def _valid(entry) -> tuple[bool, str | None]:
 def _tell(progress, done: float) -> None:
     if progress is not None:
         progress(done)
+
+
+def _recipe_own(transforms: Mapping) -> dict[str, str]:
+    """The columns the recipe itself shapes by an expression, with that expression (the search keeps them)."""
+    return {name: t.expression for name, t in transforms.items() if t.kind == "expression"}
+
+
+def _keep(name: str, digest: bytes, key: str, text: str | None, *, folder: bool) -> None:
+    """A searched choice remembered in this process and (``folder``) written to the cache folder."""
+    _remember((name, digest), text)
+    if folder:
+        from ..store import cache
+
+        cache.write("shaping", key, {"column": name, "expression": text})
 
 
 def _remember(key: tuple[str, bytes], text: str | None) -> None:
