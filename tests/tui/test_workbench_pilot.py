@@ -534,3 +534,52 @@ async def test_the_candidate_detail_keeps_its_verdict_on_an_80_column_screen(dem
             assert candidate_verdict(c) in text.plain and c.expression in text.plain
             dropped_a_name |= c.name not in text.plain
         assert dropped_a_name  # the case this guards: at least one needed the shorter form
+
+
+def test_every_is_true_first_then_once_per_interval():
+    from afterlook.tui.app import Every
+
+    now = [100.0]
+    due = Every(0.1, clock=lambda: now[0])
+    seen = []
+    for step in (0.0, 0.04, 0.05, 0.02, 0.2, 0.0):  # clock readings 100, 100.04, 100.09, 100.11, 100.31, 100.31
+        now[0] += step
+        seen.append(due())
+    assert seen == [True, False, False, True, True, False]
+
+
+@pytest.mark.asyncio
+async def test_a_search_redraws_its_bar_a_few_times_a_second_not_at_every_report(demo, tmp_path, monkeypatch,
+                                                                               wait_until):
+    # Every progress message redraws the bar in the interface's thread, which the search then waits for
+    # (Python's interpreter lock): with the interval made endless, only the first report and the end are
+    # shown, while the search itself keeps reporting (and so can still be stopped at any report).
+    from afterlook.analysis import workbench as wd
+    from afterlook.tui import app as app_module
+    from afterlook.tui.widgets.candidates_panel import CandidatesPanel
+
+    monkeypatch.setattr(app_module, "PROGRESS_EVERY", 1e9)
+    reports, shown = [], []
+    real = wd.find_candidates
+
+    def counted(session, case_id, *, top=10, progress=None):
+        def report(stage, fraction):
+            reports.append((stage, fraction))
+            progress(stage, fraction)
+
+        return real(session, case_id, top=top, progress=report)
+
+    monkeypatch.setattr(wd, "find_candidates", counted)
+    original_progress = CandidatesPanel.progress
+    monkeypatch.setattr(CandidatesPanel, "progress",
+                        lambda self, stage, fraction: (shown.append((stage, fraction)),
+                                                       original_progress(self, stage, fraction)))
+    app = create_app(demo.model, demo.cases, train_path=demo.train, casebook=tmp_path / "b.json",
+                     auto_candidates=False)
+    async with app.run_test(size=SIZE) as pilot:
+        await pilot.pause()
+        case = app.selected_case
+        await pilot.press("c")
+        await wait_until(pilot, lambda: case in app.candidates, what="the candidates")
+    assert len(reports) > 10
+    assert shown == [reports[0], reports[-1]] and reports[-1][1] == 1.0
