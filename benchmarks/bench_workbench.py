@@ -30,7 +30,12 @@
                  time from ``q`` to the app's exit is measured (an exiting app
                  waits for its worker thread, which stops at the search's next
                  progress report). Against: the whole search, what ``q`` would
-                 wait for without cooperative cancellation.
+                 wait for without cooperative cancellation. Beside it, the
+                 same search called directly in the same kind of process, the
+                 interface idle: the ratio is what drawing the interface costs
+                 the search (its thread shares Python's interpreter lock with the
+                 interface's). Each child is set up as the console script sets
+                 up ``afterlook review`` (``cli.main.prepare_process``).
 
 Numbers are printed (best and median of ``--repeat`` runs); nothing is
 asserted. Usage::
@@ -242,6 +247,8 @@ async def _in_app(model_path, cases_path, train_path, book, repeat: int) -> list
 
 Q_CHILD = r"""
 import asyncio, sys, time
+from afterlook.cli.main import prepare_process
+prepare_process()  # before numpy loads, as the console script (afterlook review) does
 from afterlook.tui import create_app
 
 delay = float(sys.argv[5])
@@ -253,6 +260,11 @@ async def main():
         app.select_case("miss")  # the case the search is for (what a highlight in the list does)
         await pilot.pause()
         start = time.perf_counter()
+        if delay == -2:  # the same search called directly, the interface idle: what the app adds to it
+            from afterlook.analysis import workbench as wd
+            wd.find_candidates(app.session, "miss", top=app.candidates_top)
+            print(f"{time.perf_counter() - start:.6f} direct")
+            return
         # what the c key runs; pilot.press would wait until the app is idle, which the search's stream of
         # progress messages postpones to its end (then no q could land mid-search)
         app.action_candidates()
@@ -297,6 +309,7 @@ def bench_q_latency(folder: Path, quick: bool, repeat: int) -> None:
         return float(seconds), state
 
     search = [child(-1.0)[0] for _ in range(max(1, repeat // 2))]
+    direct = [child(-2.0)[0] for _ in range(max(1, repeat // 2))]
     delays = (0.05, 0.15, 0.25, 0.35, 0.5, 0.7, 0.9) if not quick else (0.05, 0.1, 0.2)
     latencies = []
     for delay in delays:
@@ -305,6 +318,8 @@ def bench_q_latency(folder: Path, quick: bool, repeat: int) -> None:
             latencies.append(seconds)
     print(f"3. q during a candidate search ({'20,000' if quick else '200,000'} x 40 training rows, 3,000 cases)")
     print(f"   the whole search in the app (c -> list shown)  : {_stats(search)}")
+    print(f"   the same search called directly (no interface) : {_stats(direct)}")
+    print(f"   in the app / called directly                   : {statistics.median(search) / statistics.median(direct):.2f}x")
     if latencies:
         print(f"   q -> app exited, q pressed {len(latencies)} times mid-search : {_stats(latencies)}   "
               f"worst {max(latencies) * 1000:.1f} ms")

@@ -359,14 +359,20 @@ def python_warnings(caught) -> list[str]:
     return out
 
 
-def entry() -> None:
-    # Before numpy loads: OpenBLAS then starts with afterlook's thread count
-    # (one by default) instead of one thread per core (see core/blas.py).
+def prepare_process() -> None:
+    """What the console script sets up in its own process before numpy is imported (the benchmarks call it
+    too, to run the workbench as ``afterlook review`` runs it)."""
+    # OpenBLAS then starts with afterlook's thread count (one by default) instead of one thread per
+    # core (see core/blas.py).
     os.environ.update(environment_for_new_process())
     note_environment()  # every BLAS this process loads starts with that limit: no need to look for them later
     keep_freed_memory()  # the command's own process: temporaries reused, not page-faulted anew (cli/allocator.py)
     os.environ.setdefault(HUGEPAGE_ENV, "0")  # before numpy loads: no huge-page advice (core/heap.py, small_pages)
+
+
+def entry() -> None:
+    prepare_process()
     sys.exit(main())
 
 
-__all__ = ["main", "entry", "build_parser", "EXIT_OK", "EXIT_CHECK_FAILED", "EXIT_BAD_INPUT"]
+__all__ = ["main", "entry", "prepare_process", "build_parser", "EXIT_OK", "EXIT_CHECK_FAILED", "EXIT_BAD_INPUT"]
