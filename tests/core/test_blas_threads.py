@@ -52,9 +52,8 @@ def test_the_environment_chooses_another_number_or_leaves_it_alone(monkeypatch):
 
 def test_nested_and_overlapping_blocks_keep_the_limit_until_the_last_one_ends():
     # The workbench runs searches in threads; BLAS thread counts are process-wide,
-    # so a block ending in one thread must not lift the limit another still needs.
-    # Counts are read and changed from the main thread only: OpenBLAS started
-    # with OPENBLAS_NUM_THREADS=1 ignores a lower count set from another thread.
+    # so a block ending in one thread must not lift the limit another still needs,
+    # and the last block, whichever thread it ends in, puts the caller's setting back.
     import threading
 
     from afterlook.core import blas
@@ -79,7 +78,32 @@ def test_nested_and_overlapping_blocks_keep_the_limit_until_the_last_one_ends():
     t.join(timeout=60)
     assert seen == {"nested": {1}, "after the nested block": {1},
                     "the first block ended, the other thread is inside": {1}}
-    assert blas._depth == 0 and not blas._limiters  # the last block put the caller's setting back
+    assert blas._depth == 0 and not blas._limiters
+    assert _blas_threads() == {2}  # put back by the other thread, whose block ended last
+
+
+def test_a_block_in_another_thread_limits_after_one_in_this_thread():
+    # threadpoolctl 3.8 lets only one thread at a time change OpenBLAS's shared count and drops a change
+    # made from any other; afterlook hands that control back after each of its changes, so a search in
+    # a worker thread (the workbench) runs on one thread even after the main thread ran one.
+    import threading
+
+    with limited_blas():
+        pass
+    seen = {}
+
+    def in_a_thread():
+        with limited_blas():
+            seen["inside, read in that thread"] = _blas_threads()
+        seen["after, read in that thread"] = _blas_threads()
+
+    t = threading.Thread(target=in_a_thread)
+    t.start()
+    t.join(timeout=60)
+    assert seen == {"inside, read in that thread": {1}, "after, read in that thread": {2}}
+    with limited_blas():  # and the main thread can still change it afterwards
+        assert _blas_threads() == {1}
+    assert _blas_threads() == {2}
 
 
 def test_the_public_operations_run_on_one_thread(monkeypatch, demo_written):

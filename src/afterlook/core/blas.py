@@ -75,6 +75,7 @@ def _enter(n: int) -> None:
         paths = [lib.filepath for lib in blas.lib_controllers if lib.num_threads != n]
         if paths:
             _limiters.append(blas.select(filepath=paths).limit(limits=n))
+            _hand_back_control()
 
 
 def _exit() -> None:
@@ -84,7 +85,31 @@ def _exit() -> None:
         if _depth == 0:
             while _limiters:
                 _limiters.pop().restore_original_limits()
+            _hand_back_control()
             _modules_seen = -1
+
+
+def _hand_back_control() -> None:
+    """Let the next change of OpenBLAS's thread count come from any thread.
+
+    threadpoolctl (3.8.0, the locked version) lets only one thread change an
+    OpenBLAS pool that all threads share: the first to set a count, until that
+    is cleared; a count set from any other thread is silently dropped. Its own
+    ``threadpool_limits`` block clears it on leaving, but afterlook sets the
+    count when its first block starts and puts it back when its last one ends,
+    in whichever threads those are (the workbench searches in worker threads), so
+    every change it makes is followed by this. Without it, a search run in a
+    thread after any afterlook call in the main thread ran on every BLAS thread
+    (measured: the count read 2 inside the block, and an OpenBLAS thread worked
+    through the whole search), and a count put back from another thread stayed
+    at 1. Changes are made under ``_lock``, so afterlook's threads never race
+    each other; older threadpoolctl versions have no such rule and no method.
+    """
+    from threadpoolctl import OpenBLASController
+
+    clear = getattr(OpenBLASController, "clear_controlling_thread", None)
+    if clear is not None:
+        clear(force=True)
 
 
 @contextlib.contextmanager
