@@ -537,7 +537,7 @@ async def test_the_candidate_detail_keeps_its_verdict_on_an_80_column_screen(dem
 
 
 def test_every_is_true_first_then_once_per_interval():
-    from afterlook.tui.app import Every
+    from afterlook.tui.pace import Every
 
     now = [100.0]
     due = Every(0.1, clock=lambda: now[0])
@@ -555,10 +555,10 @@ async def test_a_search_redraws_its_bar_a_few_times_a_second_not_at_every_report
     # (Python's interpreter lock): with the interval made endless, only the first report and the end are
     # shown, while the search itself keeps reporting (and so can still be stopped at any report).
     from afterlook.analysis import workbench as wd
-    from afterlook.tui import app as app_module
+    from afterlook.tui import pace
     from afterlook.tui.widgets.candidates_panel import CandidatesPanel
 
-    monkeypatch.setattr(app_module, "PROGRESS_EVERY", 1e9)
+    monkeypatch.setattr(pace, "PROGRESS_EVERY", 1e9)
     reports, shown = [], []
     real = wd.find_candidates
 

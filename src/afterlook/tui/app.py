@@ -15,7 +15,6 @@ widgets only format it.
 from __future__ import annotations
 
 import os
-import time
 
 from textual import on, work
 from textual.app import App
@@ -32,6 +31,7 @@ from .casebook_flow import CasebookFlow
 from .histogram_flow import HistogramFlow
 from .pair_flow import PairFlow
 from .failures import internal_error
+from . import pace
 from .screens.help import HelpScreen
 from .screens.workbench_screen import WorkbenchScreen
 from .widgets.candidates_panel import CandidatesPanel
@@ -60,28 +60,6 @@ THEME = Theme(
 
 #: Seconds the cursor must rest on a miss before its candidate search starts.
 CANDIDATE_DELAY = 0.4
-
-#: Least seconds between two progress messages of a candidate search. Every message redraws the bar in
-#: the interface's thread, and that redraw holds Python's interpreter lock while the search (in its worker
-#: thread) waits for it: a search sends 60 or more reports in a third of a second, and showing every one
-#: made the same search take 0.8 s in the workbench against 0.31 s called directly (200,000 x 40, 2-core
-#: machine, 2026-12-03). A bar needs no more than a few frames a second.
-PROGRESS_EVERY = 0.1
-
-
-class Every:
-    """True on the first call, then at most once per ``seconds`` (``clock``: seconds, for the tests)."""
-
-    def __init__(self, seconds: float, clock=time.monotonic):
-        self.seconds, self._clock, self._last = seconds, clock, None
-
-    def __call__(self) -> bool:
-        now = self._clock()
-        if self._last is not None and now - self._last < self.seconds:
-            return False
-        self._last = now
-        return True
-
 
 class _Stale(Exception):
     """Raised inside a worker's progress callback once the worker was cancelled."""
@@ -386,7 +364,7 @@ class WorkbenchApp(CasebookFlow, HistogramFlow, PairFlow, App[int]):
     @work(thread=True, exclusive=True, group="candidates")
     def run_candidates(self, case_id: str) -> None:
         worker = get_current_worker()
-        due = Every(PROGRESS_EVERY)
+        due = pace.Every(pace.PROGRESS_EVERY)
 
         def progress(stage: str, fraction: float) -> None:
             if worker.is_cancelled:  # every report: a stale search stops at its next one
