@@ -583,3 +583,19 @@ async def test_a_search_redraws_its_bar_a_few_times_a_second_not_at_every_report
         await wait_until(pilot, lambda: case in app.candidates, what="the candidates")
     assert len(reports) > 10
     assert shown == [reports[0], reports[-1]] and reports[-1][1] == 1.0
+
+
+def test_the_workbench_does_not_animate_unless_the_user_asks(demo, tmp_path, monkeypatch):
+    # Every animation frame is a redraw that a running search waits for (tui/pace.py); Textual's own
+    # TEXTUAL_ANIMATIONS, when the user sets it, is left in charge.
+    monkeypatch.delenv("TEXTUAL_ANIMATIONS", raising=False)
+    app = create_app(demo.model, demo.cases, train_path=demo.train, casebook=tmp_path / "b.json",
+                     auto_candidates=False)
+    assert app.animation_level == "none"
+    monkeypatch.setenv("TEXTUAL_ANIMATIONS", "full")
+    import textual.constants
+
+    monkeypatch.setattr(textual.constants, "TEXTUAL_ANIMATIONS", "full", raising=False)
+    app = create_app(demo.model, demo.cases, train_path=demo.train, casebook=tmp_path / "b.json",
+                     auto_candidates=False)
+    assert app.animation_level == "full"

@@ -76,6 +76,8 @@ class WorkbenchApp(CasebookFlow, HistogramFlow, PairFlow, App[int]):
     def __init__(self, session: wd.WorkbenchSession, *, auto_candidates: bool = True,
                  candidate_delay: float = CANDIDATE_DELAY, candidates_top: int = 10) -> None:
         super().__init__()
+        if pace.ANIMATIONS_ENV not in os.environ:
+            self.animation_level = "none"  # see tui/pace.py; the user's TEXTUAL_ANIMATIONS wins
         self.session = session
         self.auto_candidates = auto_candidates
         self.candidate_delay = candidate_delay

@@ -3,7 +3,8 @@
 A worker thread (the candidate search) and the interface's thread share
 Python's interpreter lock: while the interface redraws, the work waits. So
 a worker's reports are passed on at a pace a person can read, not at the
-pace the work makes them (it still checks for cancellation at every one).
+pace the work makes them (it still checks for cancellation at every one),
+and the interface does not animate: every frame of an animation is a redraw.
 """
 
 from __future__ import annotations
@@ -30,3 +31,9 @@ class Every:
             return False
         self._last = now
         return True
+
+
+#: Textual's own switch for animations. Unless the user set it, the workbench runs without them: the
+#: tabs' sliding underline alone redrew the screen about 20 times in the 0.3 s after ``c``, 50 ms of the
+#: interface's 0.23 s of work while the search it had just started waited (measured 2026-12-03, 120 x 40).
+ANIMATIONS_ENV = "TEXTUAL_ANIMATIONS"
