@@ -94,7 +94,9 @@ ENVIRONMENT = """environment:
                           for none; safe to delete at any time
   AFTERLOOK_DEBUG         1: show the traceback of an internal error
   NUMPY_MADVISE_HUGEPAGE  numpy's own huge-page advice for large arrays;
-                          afterlook turns it off (0) unless it is set"""
+                          afterlook turns it off (0) unless it is set
+  TEXTUAL_ANIMATIONS      the workbench's animations: none unless it is set
+                          (full or basic bring them back)"""
 
 
 #: The module that registers each command (this one registers demo, fit, misses and explain itself).
