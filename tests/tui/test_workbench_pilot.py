@@ -30,6 +30,12 @@ def worst_miss(demo) -> str:
     return afterlook.misses(model, afterlook.load_table(demo.cases, require_labels=True)).misses[0].case
 
 
+def quiet_app(demo, tmp_path):
+    """The workbench on the demo with a casebook of its own and no search started by itself."""
+    return create_app(demo.model, demo.cases, train_path=demo.train, casebook=tmp_path / "b.json",
+                      auto_candidates=False)
+
+
 def cell(app, table_id: str, row_key: str, column_key: str) -> str:
     table = app.workbench.query_one(f"#{table_id}", DataTable)
     value = table.get_cell(row_key, column_key)
@@ -114,8 +120,7 @@ async def test_main_flow_worst_miss_candidates_apply_flip_and_save(demo, tmp_pat
 
 @pytest.mark.asyncio
 async def test_bad_expression_shows_the_error_and_changes_nothing(demo, tmp_path):
-    app = create_app(demo.model, demo.cases, train_path=demo.train, casebook=tmp_path / "b.json",
-                     auto_candidates=False)
+    app = quiet_app(demo, tmp_path)
     async with app.run_test(size=SIZE) as pilot:
         await pilot.pause()
         model_before = app.session.model.fingerprint()
@@ -152,8 +157,7 @@ async def test_toggles_and_filter_change_the_list(demo, session, tmp_path):
     from afterlook.analysis import workbench as wd
 
     counts = wd.case_counts(session)
-    app = create_app(demo.model, demo.cases, train_path=demo.train, casebook=tmp_path / "b.json",
-                     auto_candidates=False)
+    app = quiet_app(demo, tmp_path)
     async with app.run_test(size=SIZE) as pilot:
         await pilot.pause()
         table = app.workbench.query_one("#cases", DataTable)
@@ -177,8 +181,7 @@ async def test_toggles_and_filter_change_the_list(demo, session, tmp_path):
 
 @pytest.mark.asyncio
 async def test_histogram_of_the_highlighted_feature_and_the_shaped_switch(demo, tmp_path, wait_until):
-    app = create_app(demo.model, demo.cases, train_path=demo.train, casebook=tmp_path / "b.json",
-                     auto_candidates=False)
+    app = quiet_app(demo, tmp_path)
     async with app.run_test(size=SIZE) as pilot:
         await pilot.pause()
         ev = app.workbench.query_one("#evidence-table", DataTable)
@@ -200,8 +203,7 @@ async def test_histogram_of_the_highlighted_feature_and_the_shaped_switch(demo, 
 
 @pytest.mark.asyncio
 async def test_help_lists_every_key_and_q_quits(demo, tmp_path):
-    app = create_app(demo.model, demo.cases, train_path=demo.train, casebook=tmp_path / "b.json",
-                     auto_candidates=False)
+    app = quiet_app(demo, tmp_path)
     async with app.run_test(size=SIZE) as pilot:
         await pilot.pause()
         await pilot.press("question_mark")
@@ -225,8 +227,7 @@ async def test_a_panel_mounted_while_the_workbench_is_taken_down_is_ignored(demo
 
     from afterlook.tui.messages import PanelMounted
 
-    app = create_app(demo.model, demo.cases, train_path=demo.train, casebook=tmp_path / "b.json",
-                     auto_candidates=False)
+    app = quiet_app(demo, tmp_path)
     async with app.run_test(size=SIZE) as pilot:
         await pilot.pause()
         await app.workbench.query_one(TabbedContent).remove()
@@ -245,8 +246,7 @@ async def test_the_evidence_sets_a_strainer_miss_against_its_own_station(demo, t
     from afterlook.analysis import shown
 
     case = "PS-11/2026-04-20T17:00"
-    app = create_app(demo.model, demo.cases, train_path=demo.train, casebook=tmp_path / "b.json",
-                     auto_candidates=False)
+    app = quiet_app(demo, tmp_path)
     async with app.run_test(size=SIZE) as pilot:
         await pilot.pause()
         app.select_case(case)
@@ -274,8 +274,7 @@ async def test_stale_candidate_runs_are_dropped(demo, tmp_path, monkeypatch, wai
         return real(session, case_id, top=top, progress=progress)
 
     monkeypatch.setattr(wd, "find_candidates", gated)
-    app = create_app(demo.model, demo.cases, train_path=demo.train, casebook=tmp_path / "b.json",
-                     auto_candidates=False)
+    app = quiet_app(demo, tmp_path)
     async with app.run_test(size=SIZE) as pilot:
         await pilot.pause()
         first = app.selected_case
@@ -324,8 +323,7 @@ def test_create_app_rejects_bad_input_before_drawing(demo, tmp_path):
 
 @pytest.mark.asyncio
 async def test_a_try_that_cannot_be_fitted_is_a_notification_not_a_crash(demo, tmp_path, wait_until):
-    app = create_app(demo.model, demo.cases, train_path=demo.train, casebook=tmp_path / "b.json",
-                     auto_candidates=False)
+    app = quiet_app(demo, tmp_path)
     async with app.run_test(size=SIZE) as pilot:
         await pilot.pause()
         # valid as typed (known columns, good syntax) but constant: the re-fit refuses it
@@ -344,8 +342,7 @@ async def test_a_try_that_cannot_be_fitted_is_a_notification_not_a_crash(demo, t
 
 @pytest.mark.asyncio
 async def test_the_mouse_selects_cases_and_tabs_and_z_zooms(demo, tmp_path):
-    app = create_app(demo.model, demo.cases, train_path=demo.train, casebook=tmp_path / "b.json",
-                     auto_candidates=False)
+    app = quiet_app(demo, tmp_path)
     async with app.run_test(size=SIZE) as pilot:
         await pilot.pause()
         third = app.rows[2].case
@@ -447,8 +444,7 @@ async def test_q_during_a_search_exits_and_the_search_stops_at_its_next_report(d
         return result
 
     monkeypatch.setattr(wd, "find_candidates", held)
-    app = create_app(demo.model, demo.cases, train_path=demo.train, casebook=tmp_path / "b.json",
-                     auto_candidates=False)
+    app = quiet_app(demo, tmp_path)
     async with app.run_test(size=SIZE) as pilot:
         await pilot.pause()
         case = app.selected_case
@@ -467,8 +463,7 @@ async def test_q_during_a_search_exits_and_the_search_stops_at_its_next_report(d
 
 @pytest.mark.asyncio
 async def test_a_filter_matching_nothing_clears_the_last_case(demo, tmp_path):
-    app = create_app(demo.model, demo.cases, train_path=demo.train, casebook=tmp_path / "b.json",
-                     auto_candidates=False)
+    app = quiet_app(demo, tmp_path)
     async with app.run_test(size=(80, 24)) as pilot:
         await pilot.pause()
         worst = app.selected_case
@@ -489,8 +484,7 @@ async def test_a_filter_matching_nothing_clears_the_last_case(demo, tmp_path):
 
 @pytest.mark.asyncio
 async def test_a_notification_waits_while_the_help_is_open(demo, tmp_path):
-    app = create_app(demo.model, demo.cases, train_path=demo.train, casebook=tmp_path / "b.json",
-                     auto_candidates=False)
+    app = quiet_app(demo, tmp_path)
     async with app.run_test(size=(80, 24)) as pilot:
         await pilot.pause()
         app.clear_notifications()
@@ -574,8 +568,7 @@ async def test_a_search_redraws_its_bar_a_few_times_a_second_not_at_every_report
     monkeypatch.setattr(CandidatesPanel, "progress",
                         lambda self, stage, fraction: (shown.append((stage, fraction)),
                                                        original_progress(self, stage, fraction)))
-    app = create_app(demo.model, demo.cases, train_path=demo.train, casebook=tmp_path / "b.json",
-                     auto_candidates=False)
+    app = quiet_app(demo, tmp_path)
     async with app.run_test(size=SIZE) as pilot:
         await pilot.pause()
         case = app.selected_case
@@ -589,13 +582,11 @@ def test_the_workbench_does_not_animate_unless_the_user_asks(demo, tmp_path, mon
     # Every animation frame is a redraw that a running search waits for (tui/pace.py); Textual's own
     # TEXTUAL_ANIMATIONS, when the user sets it, is left in charge.
     monkeypatch.delenv("TEXTUAL_ANIMATIONS", raising=False)
-    app = create_app(demo.model, demo.cases, train_path=demo.train, casebook=tmp_path / "b.json",
-                     auto_candidates=False)
+    app = quiet_app(demo, tmp_path)
     assert app.animation_level == "none"
     monkeypatch.setenv("TEXTUAL_ANIMATIONS", "full")
     import textual.constants
 
     monkeypatch.setattr(textual.constants, "TEXTUAL_ANIMATIONS", "full", raising=False)
-    app = create_app(demo.model, demo.cases, train_path=demo.train, casebook=tmp_path / "b.json",
-                     auto_candidates=False)
+    app = quiet_app(demo, tmp_path)
     assert app.animation_level == "full"
