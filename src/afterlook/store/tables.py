@@ -126,6 +126,13 @@ class Table:
         One line each.
     finite_columns : frozenset of str
         The numeric columns with no missing or infinite value (seen while the table was read).
+
+    A Table describes its frame as it was read: treat it as read-only. The
+    fit and the candidate search trust ``finite_columns`` instead of looking
+    for non-finite values again, so a value changed in ``frame`` afterwards
+    is not seen by them; for another version of the data, load or build a
+    new Table (:func:`table_from_frame`), or pass the DataFrame itself
+    (read afresh on every call).
     """
 
     frame: pd.DataFrame = field(repr=False)
