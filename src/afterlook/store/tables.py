@@ -127,12 +127,8 @@ class Table:
     finite_columns : frozenset of str
         The numeric columns with no missing or infinite value (seen while the table was read).
 
-    A Table describes its frame as it was read: treat it as read-only. The
-    fit and the candidate search trust ``finite_columns`` instead of looking
-    for non-finite values again, so a value changed in ``frame`` afterwards
-    is not seen by them; for another version of the data, load or build a
-    new Table (:func:`table_from_frame`), or pass the DataFrame itself
-    (read afresh on every call).
+    Treat a Table as read-only: the fit and the search trust ``finite_columns``, so a value changed
+    in ``frame`` later goes unseen (for other data, build a new Table or pass the DataFrame itself).
     """
 
     frame: pd.DataFrame = field(repr=False)
