@@ -16,7 +16,7 @@ from ..store.columns import numeric_columns_of
 from ..core.thresholds import Confusion
 from ..core.blas import with_limited_blas
 from .unit_evidence import unit_context
-from .session import Session, case_context, prepare, table_name
+from .session import Session, case_context, case_contexts, prepare, table_name
 
 __all__ = ["Miss", "MissesResult", "misses", "ExplainResult", "explain", "explain_case"]
 
@@ -105,8 +105,10 @@ def misses(model, cases=None) -> MissesResult:
     finite = ~np.isnan(sc.log_density)  # scored; -inf (outside a feature's domain, or overflow) is flagged
     is_miss = y & ~sc.flagged & finite
     idx = np.flatnonzero(is_miss)
-    idx = idx[np.argsort(-sc.margin[idx], kind="mergesort")]
-    rows = [Miss(str(table.ids[i]), float(sc.log_density[i]), float(sc.margin[i]), case_context(table, i)) for i in idx]
+    margin = sc.margin  # one subtraction over every case, not one per miss
+    idx = idx[np.argsort(-margin[idx], kind="mergesort")]
+    rows = [Miss(str(table.ids[i]), float(sc.log_density[i]), float(margin[i]), context)
+            for i, context in zip(idx, case_contexts(table, idx))]
     unscored = [str(table.ids[i]) for i in np.flatnonzero(y & ~finite)]
     warnings = list(table.warnings)
     if (~finite).any():

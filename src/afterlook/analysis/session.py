@@ -67,10 +67,15 @@ def table_name(table: Table | None) -> str:
 
 def case_context(table: Table, i: int) -> dict:
     """The context (non-numeric, non-id, non-label) columns of row ``i`` as text (None when empty)."""
-    out = {}
-    for col in table.context_columns:
-        out[col] = context_text(table.frame[col].iloc[i])
-    return out
+    return case_contexts(table, [i])[0]
+
+
+def case_contexts(table: Table, rows) -> list[dict]:
+    """:func:`case_context` of every row in ``rows`` (positions), each column looked up once: a list of
+    1,700 misses among 100,000 cases took 0.2 s one cell at a time. ``Series.array[i]`` is the value
+    ``Series.iloc[i]`` gives (a Timestamp for a date, the object itself for a list cell)."""
+    columns = [(col, table.frame[col].array) for col in table.context_columns]
+    return [{col: context_text(values[i]) for col, values in columns} for i in rows]
 
 
 def context_text(value) -> str | None:

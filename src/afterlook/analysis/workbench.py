@@ -33,7 +33,7 @@ from ..store.tables import load_table
 from .discovery import SuggestResult, suggest
 from .evidence import ExplainResult, MissesResult, explain_case, misses
 from .model import load_model
-from .session import Session, case_context
+from .session import Session, case_contexts
 from .trial import TrialView, TryResult, trial_view, try_features  # noqa: F401 - the app's names
 from .wording import (  # noqa: F401 - the app's names
     BAR_FULL_SCALE,
@@ -216,20 +216,21 @@ def case_rows(session: WorkbenchSession, *, near: bool = False, false_alarms: bo
         gap = near_catch_gap(session)
         idx = np.flatnonzero(y & sc.flagged & finite & (margin >= -gap))
         idx = idx[np.argsort(-margin[idx], kind="mergesort")]
-        rows += [_row(session, i, KIND_NEAR) for i in idx]
+        rows += _rows(sc, idx, margin, KIND_NEAR)
     if false_alarms:
         idx = np.flatnonzero(~y & sc.flagged & finite)
         idx = idx[np.argsort(margin[idx], kind="mergesort")]
-        rows += [_row(session, i, KIND_FALSE_ALARM) for i in idx]
+        rows += _rows(sc, idx, margin, KIND_FALSE_ALARM)
     needle = text.strip().lower()
     if needle:
         rows = [r for r in rows if needle in _haystack(r)]
     return rows
 
 
-def _row(session: WorkbenchSession, i: int, kind: str) -> CaseRow:
-    sc = session.scored
-    return CaseRow(str(sc.table.ids[i]), kind, float(sc.log_density[i]), float(sc.margin[i]), case_context(sc.table, i))
+def _rows(sc, idx, margin: np.ndarray, kind: str) -> list[CaseRow]:
+    """Case-list rows of cases ``idx`` (``margin``: ``sc.margin``, computed once by the caller)."""
+    return [CaseRow(str(sc.table.ids[i]), kind, float(sc.log_density[i]), float(margin[i]), context)
+            for i, context in zip(idx, case_contexts(sc.table, idx))]
 
 
 def _haystack(row: CaseRow) -> str:
