@@ -75,3 +75,21 @@ def test_a_single_value_has_a_tail_as_gpd_tail_gives():
     d = Deviations(np.array([3.0]))
     with np.errstate(all="ignore"), pytest.warns(RuntimeWarning):
         assert d.tail(10.0) == tail_probability(np.array([3.0]), 10.0)
+
+
+@pytest.mark.parametrize("n", [30, 569, 8192])
+def test_many_targets_at_once_answer_as_one_at_a_time(n):
+    # Reference: tail_probability per target. Above SCAN_TARGETS targets Deviations.tails counts from
+    # one sorted copy of the deviations; the targets include every value itself (a target equal to a
+    # deviation counts it: ties), values far beyond the normal ones (the Pareto tail) and repeats.
+    from afterlook.core.tails import SCAN_TARGETS
+
+    rng = np.random.default_rng(n)
+    v = load_breast_cancer().data[rng.integers(0, 569, n), 3]
+    med = np.median(v)
+    targets = np.r_[v[: min(n, 200)], 2 * med - v[:50], v.max() + np.ptp(v) * np.linspace(0.01, 3, 20), v[:5]]
+    assert targets.size > SCAN_TARGETS
+    expected = [tail_probability(v, float(t)) for t in targets]
+    assert Deviations(v).tails(targets) == expected
+    assert Deviations(v).tails(targets[:SCAN_TARGETS]) == expected[:SCAN_TARGETS]  # the scanning path
+    assert Deviations(v).tails(np.array([])) == []

@@ -103,12 +103,13 @@ class RobustMeasure:
         if self.others:
             spread.prepare(1.0 - settings.alarm_rate)  # the alarm quantile of the deviations
         zs = spread.robust_z(tv)
-        tails = [spread.tail(float(t)) for t in tv]
-        guard = chance_verdict(np.array([t[0] for t in tails]), self.n_tried)
-        best = int(np.argmin([t[0] for t in tails]))
+        tails = spread.tails(tv)
+        probs = [t[0] for t in tails]  # Python floats
+        guard = chance_verdict(np.array(probs), self.n_tried)
+        best = int(np.argmin(probs))
         ids = self.target_ids
-        c.case_z_by_case = {cid: float(z) for cid, z in zip(ids, zs)}
-        c.tail_by_case = {cid: float(tl[0]) for cid, tl in zip(ids, tails)}
+        c.case_z_by_case = dict(zip(ids, np.asarray(zs, dtype=np.float64).tolist()))
+        c.tail_by_case = dict(zip(ids, probs))
         c.case_z = float(np.median(zs)) if len(zs) > 1 else float(zs[0])
         c.tail, c.tail_method = float(tails[best][0]), tails[best][1]
         c.adjusted_tail = guard.adjusted_tail

@@ -18,6 +18,9 @@ from . import order_stats
 
 MAD_TO_SD = 1.4826  # consistency constant of the MAD for a normal distribution
 MIN_TAIL_COUNT = 1  # any normal row as extreme as the target: no extrapolation
+#: Targets up to which :meth:`Deviations.tails` scans the deviations once per target (a sort of 8,192
+#: deviations costs about as much as 13 scans of them).
+SCAN_TARGETS = 16
 TAIL_FRACTION = 0.05  # share of rows in the generalized Pareto tail fit
 MIN_EXCESSES = 50  # at least this many excesses in the tail fit
 
@@ -154,6 +157,27 @@ class Deviations:
         if self._pareto is None:  # one fit for every target: it depends on the deviations only
             self._pareto = ParetoTail.fit(self.dev)
         return self._pareto.probability(t), "pareto tail", count
+
+    def tails(self, targets) -> list[tuple[float, str, int]]:
+        """:meth:`tail` of every target, the same answers in the same order. Up to :data:`SCAN_TARGETS`
+        targets each scans the deviations; more, and the counts come from one sorted copy of them (the
+        count at or above ``t`` is the number of sorted values from the first that is not below ``t``), so
+        1,700 targets cost one sort instead of 1,700 scans."""
+        targets = np.asarray(targets, dtype=np.float64)
+        if targets.size <= SCAN_TARGETS:
+            return [self.tail(float(t)) for t in targets]
+        t = np.abs(targets - self.median)
+        counts = self.dev.size - np.searchsorted(np.sort(self.dev), t, side="left")
+        n = self.values.size
+        # (count + 1) / (n + 1): small whole numbers are exact in float64 and one division rounds as
+        # Python's does, so the same probabilities as tail()'s
+        probs = ((counts + 1) / (n + 1)).tolist()
+        methods = ["empirical"] * len(probs)
+        for j in np.flatnonzero(counts < MIN_TAIL_COUNT).tolist():
+            if self._pareto is None:
+                self._pareto = ParetoTail.fit(self.dev)
+            probs[j], methods[j] = self._pareto.probability(float(t[j])), "pareto tail"
+        return list(zip(probs, methods, counts.tolist()))
 
     def quantile(self, q: float) -> float:
         if q not in self._quantiles:
