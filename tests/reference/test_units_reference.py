@@ -228,6 +228,25 @@ def test_remembered_label_codes_follow_each_array():
         np.testing.assert_array_equal(apply_baseline(params, labels, len(labels), "k"), want)
 
 
+def test_remembered_row_orders_follow_each_pair_of_arrays():
+    # lag remembers each (unit, time) pair's row order (by identity); arrays made and dropped in a loop
+    # reuse ids, and one pair serves many value columns. Reference: pandas' groupby shift in time order.
+    from afterlook.core.units import lag
+
+    rng = np.random.default_rng(5)
+    for _ in range(100):
+        n = int(rng.integers(1, 40))
+        units = rng.choice(["A", "B", "C"], n).astype(object)
+        times = rng.permutation(n).astype(np.int64)
+        frame = pd.DataFrame({"unit": units, "t": times})
+        ordered = frame.sort_values(["unit", "t"], kind="mergesort")
+        for k in (1, 2):
+            values = rng.normal(size=n)
+            want = ordered.assign(x=values[ordered.index]).groupby("unit")["x"].shift(k).reindex(frame.index)
+            got = lag(values, k, units, times)
+            np.testing.assert_array_equal(got, want.to_numpy())
+
+
 def test_numeric_unit_and_time_columns_are_keys_not_readings():
     # A numeric unit id or time key groups and orders the rows; modelled, a later period's times would sit
     # beyond the training range and look anomalous. Named explicitly (--columns) they are modelled.

@@ -89,8 +89,7 @@ class Evaluator(ast.NodeVisitor):
                 earlier = np.broadcast_to(np.asarray(before.visit(node.args[0]), dtype=np.float64), (len(past_units),))
                 m = earlier.shape[0]
                 values = np.concatenate([earlier, values])
-                units = np.concatenate([np.asarray(past_units, dtype=object), np.asarray(units, dtype=object)])
-                times = np.concatenate([np.asarray(past_times), np.asarray(times)])
+                units, times = unit_stats.with_past(past_units, past_times, units, times)
             return fn(values, int(number_of(node.args[1])), units, times, f"{name}() in '{short(self.text)}'")[m:]
         args = [self.visit(a) for a in node.args]
         if name in frozen_calls.STATEFUL:
