@@ -71,11 +71,13 @@ def case_context(table: Table, i: int) -> dict:
 
 
 def case_contexts(table: Table, rows) -> list[dict]:
-    """:func:`case_context` of every row in ``rows`` (positions), each column looked up once: a list of
-    1,700 misses among 100,000 cases took 0.2 s one cell at a time. ``Series.array[i]`` is the value
-    ``Series.iloc[i]`` gives (a Timestamp for a date, the object itself for a list cell)."""
-    columns = [(col, table.frame[col].array) for col in table.context_columns]
-    return [{col: context_text(values[i]) for col, values in columns} for i in rows]
+    """:func:`case_context` of every row in ``rows`` (positions), each column taken once for all of them: a
+    list of 1,700 misses among 100,000 cases took 0.2 s one cell at a time. The values of a column's
+    ``array.take(rows)`` are what ``Series.iloc[i]`` gives (a Timestamp for a date, the object itself for
+    a list cell, NA for a missing Arrow string)."""
+    rows = np.asarray(rows, dtype=np.intp)
+    columns = [(col, list(table.frame[col].array.take(rows))) for col in table.context_columns]
+    return [{col: context_text(values[j]) for col, values in columns} for j in range(rows.size)]
 
 
 def context_text(value) -> str | None:
