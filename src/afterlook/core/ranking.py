@@ -21,8 +21,20 @@ import numpy as np
 __all__ = ["roc_auc", "average_precision"]
 
 
+def _sort_kind(score: np.ndarray) -> str | None:
+    """numpy's default sort when every score is finite, else a stable one.
+
+    Equal scores share their mid-rank, and average precision reads the counts at the end of each run of
+    equal scores: neither depends on the order within a run, so the default sort (a fifth of a stable
+    one's time on 100,000 scores) gives the same numbers to the last bit. Runs are found by ``np.diff``,
+    which does not see two equal infinities as equal (inf - inf is NaN): with such scores the order within
+    them counts, and the stable order is the one scikit-learn's counting follows too.
+    """
+    return None if np.isfinite(score).all() else "mergesort"
+
+
 def _mid_ranks(score: np.ndarray) -> np.ndarray:
-    order = np.argsort(score, kind="mergesort")
+    order = np.argsort(score, kind=_sort_kind(score))
     s = score[order]
     # first and last position of each run of equal scores
     starts = np.r_[0, np.flatnonzero(np.diff(s)) + 1]
@@ -47,7 +59,7 @@ def average_precision(y: np.ndarray, score: np.ndarray) -> float:
     """Average precision of ``score`` for the positives ``y`` (at least one positive)."""
     y = np.asarray(y, dtype=bool)
     score = np.asarray(score, dtype=np.float64)
-    order = np.argsort(-score, kind="mergesort")
+    order = np.argsort(-score, kind=_sort_kind(score))
     s, t = score[order], y[order]
     last = np.r_[np.flatnonzero(np.diff(s)), s.size - 1]  # the last row of each distinct threshold
     tp = np.cumsum(t)[last]
