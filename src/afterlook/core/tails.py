@@ -154,9 +154,7 @@ class Deviations:
         n = self.values.size
         if count >= MIN_TAIL_COUNT:
             return (count + 1) / (n + 1), "empirical", count
-        if self._pareto is None:  # one fit for every target: it depends on the deviations only
-            self._pareto = ParetoTail.fit(self.dev)
-        return self._pareto.probability(t), "pareto tail", count
+        return self._beyond(t), "pareto tail", count
 
     def tails(self, targets) -> list[tuple[float, str, int]]:
         """:meth:`tail` of every target, the same answers in the same order. Up to :data:`SCAN_TARGETS`
@@ -174,10 +172,15 @@ class Deviations:
         probs = ((counts + 1) / (n + 1)).tolist()
         methods = ["empirical"] * len(probs)
         for j in np.flatnonzero(counts < MIN_TAIL_COUNT).tolist():
-            if self._pareto is None:
-                self._pareto = ParetoTail.fit(self.dev)
-            probs[j], methods[j] = self._pareto.probability(float(t[j])), "pareto tail"
+            probs[j], methods[j] = self._beyond(float(t[j])), "pareto tail"
         return list(zip(probs, methods, counts.tolist()))
+
+    def _beyond(self, t: float) -> float:
+        """The Pareto tail's probability for a deviation ``t`` no normal row reaches (one fit for every
+        target: it depends on the deviations only)."""
+        if self._pareto is None:
+            self._pareto = ParetoTail.fit(self.dev)
+        return self._pareto.probability(t)
 
     def quantile(self, q: float) -> float:
         if q not in self._quantiles:

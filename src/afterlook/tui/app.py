@@ -61,6 +61,7 @@ THEME = Theme(
 #: Seconds the cursor must rest on a miss before its candidate search starts.
 CANDIDATE_DELAY = 0.4
 
+
 class _Stale(Exception):
     """Raised inside a worker's progress callback once the worker was cancelled."""
 
