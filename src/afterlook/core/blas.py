@@ -83,9 +83,10 @@ def _exit() -> None:
     with _lock:
         _depth -= 1
         if _depth == 0:
-            while _limiters:
-                _limiters.pop().restore_original_limits()
-            _hand_back_control()
+            if _limiters:  # nothing changed, nothing to put back (and threadpoolctl need not be imported)
+                while _limiters:
+                    _limiters.pop().restore_original_limits()
+                _hand_back_control()
             _modules_seen = -1
 
 
