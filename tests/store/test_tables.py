@@ -28,6 +28,7 @@ from afterlook.store.tables import (
     LABEL_VALUES,
     load_table,
     sha256_file,
+    table_from_frame,
     write_table,
 )
 
@@ -289,6 +290,23 @@ def test_mostly_numeric_text_column_warns(tmp_path):
     t = load_table(write_text(tmp_path / "t.csv", "a,b\n" + rows))
     assert t.context_columns == ["b"]
     assert any("'b'" in w and "mostly numbers" in w and "'?'" in w for w in t.warnings)
+
+
+@pytest.mark.parametrize("bad_first, warned", [(100, True), (101, False)])
+def test_mostly_numeric_text_threshold_with_the_bad_values_first(bad_first, warned):
+    # The rule: a text column warns as "mostly numbers" when at least 90% of its first 1,000 values parse.
+    # With the failures first, 100 of 1,000 is exactly 90% parsed (warns), 101 is not (the early stop
+    # after the first 101 values must agree with parsing all of them).
+    b = ["n/a-" + str(i) for i in range(bad_first)] + [str(i * 0.5) for i in range(1000 - bad_first)]
+    t = table_from_frame(pd.DataFrame({"a": np.arange(1000.0), "b": b}))
+    assert t.context_columns == ["b"]
+    assert any("'b'" in w and "mostly numbers" in w for w in t.warnings) is warned
+
+
+def test_numbers_stored_as_text_found_whatever_the_first_value():
+    t = table_from_frame(pd.DataFrame({"a": [1.0, 2.0, 3.0], "b": ["1.5", "2", "3e2"], "c": ["x", "2", "3"]}))
+    assert any("'b'" in w and "numbers stored as text" in w for w in t.warnings)
+    assert not any("'c'" in w and "numbers stored as text" in w for w in t.warnings)
 
 
 def test_nan_and_inf_warn_with_row_count(tmp_path):

@@ -349,6 +349,30 @@ def _read_decimal_commas(frame: pd.DataFrame) -> pd.DataFrame:
     return frame
 
 
+def _looks_numeric_text(series: pd.Series) -> tuple[int, Any] | None:
+    """For a text column that is mostly numbers, return (bad count, example)."""
+    values = series.dropna()
+    if values.empty:
+        return None
+    sample = values.iloc[:1000]
+    try:
+        # when more than a tenth of the sample fails among its first values, 90% cannot be reached: a text
+        # column of names or dates is settled there, without parsing the rest
+        head = sample.iloc[: len(sample) // 10 + 1]
+        if pd.to_numeric(head.astype(str), errors="coerce").isna().all():
+            return None
+        parsed = pd.to_numeric(sample.astype(str), errors="coerce")
+    except (TypeError, ValueError):
+        return None
+    if parsed.notna().mean() < 0.9:
+        return None
+    full = pd.to_numeric(values.astype(str), errors="coerce")
+    bad = values[full.isna().to_numpy()]
+    if bad.empty:
+        return None
+    return len(bad), bad.iloc[0]
+
+
 def _text_kind(series: pd.Series) -> str | None:
     """'numbers' when every value of a text column is a plain number, 'decimal-comma' for ``10,5``."""
     values = series.dropna()
@@ -358,7 +382,9 @@ def _text_kind(series: pd.Series) -> str | None:
     if not isinstance(values.dtype, pd.StringDtype) and not values.map(lambda v: isinstance(v, str)).all():
         return None
     sample = values.iloc[:2000]
-    if pd.to_numeric(sample, errors="coerce").notna().all() and pd.to_numeric(values, errors="coerce").notna().all():
+    if (pd.to_numeric(sample.iloc[:1], errors="coerce").notna().all()  # a first value that is no number settles it
+            and pd.to_numeric(sample, errors="coerce").notna().all()
+            and pd.to_numeric(values, errors="coerce").notna().all()):
         return "numbers"
     # At least 90% must match: when more than a tenth of the sample already fails among its first
     # values, the rest cannot change the answer (a text column of names is settled in a few hundred).

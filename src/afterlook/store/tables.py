@@ -57,6 +57,7 @@ from afterlook.store.table_files import (
     _check_file,
     _fail,
     _read_decimal_commas,
+    _looks_numeric_text,
     _text_kind,
     check_delimiter,
     check_encoding,
@@ -292,25 +293,6 @@ def _make_labels(frame: pd.DataFrame, label_col: str, name: str) -> np.ndarray:
         )
     lookup = np.array(mapped, dtype=bool)
     return lookup[codes] if len(lookup) else np.zeros(len(frame), dtype=bool)
-
-
-def _looks_numeric_text(series: pd.Series) -> tuple[int, Any] | None:
-    """For a text column that is mostly numbers, return (bad count, example)."""
-    values = series.dropna()
-    if values.empty:
-        return None
-    sample = values.iloc[:1000]
-    try:
-        parsed = pd.to_numeric(sample.astype(str), errors="coerce")
-    except (TypeError, ValueError):
-        return None
-    if parsed.notna().mean() < 0.9:
-        return None
-    full = pd.to_numeric(values.astype(str), errors="coerce")
-    bad = values[full.isna().to_numpy()]
-    if bad.empty:
-        return None
-    return len(bad), bad.iloc[0]
 
 
 def load_table(
