@@ -16,6 +16,11 @@ baselines and changes), in this process, after one untimed warm-up of each:
             held-out gains, stability over folds).
             There is no plain alternative for this one: the time per miss is printed
             beside it, and the number of misses.
+3. workbench  the case list of ``afterlook review`` on the same files (Textual's headless
+            driver, 120 x 40): ``n`` pressed to show and hide the near catches (the list is
+            built again each time), each press until it is drawn again. Against the same app with Textual's own
+            ``DataTable`` in place of the case list's ``FixedWidthTable`` (which skips
+            measuring the cells of new rows when every column has its width).
 
 Numbers are printed (best and median of ``--repeat`` runs); nothing is asserted.
 
@@ -107,7 +112,56 @@ def main(argv: list[str] | None = None) -> int:
               "candidates tried)")
         print(f"   afterlook.suggest                         : {_stats(sug_t)}")
         print(f"   per miss (median / misses)                : {statistics.median(sug_t) / n_miss * 1000:.2f} ms")
+        print()
+
+        model.save(folder / "model.json")
+        from textual.widgets import DataTable
+
+        from afterlook.tui.widgets.case_list import FixedWidthTable
+
+        ours_rows, ours_t = _workbench_toggles(folder, FixedWidthTable, args.repeat)
+        plain_rows, plain_t = _workbench_toggles(folder, DataTable, args.repeat)
+        print(f"3. workbench case list, 'n' pressed (near catches shown / hidden: {max(ours_rows):,} / "
+              f"{min(ours_rows):,} rows listed)")
+        print(f"   FixedWidthTable (afterlook)               : {_stats(ours_t)}")
+        print(f"   Textual's DataTable                       : {_stats(plain_t)}")
+        print(f"   afterlook / plain (medians)               : "
+              f"{statistics.median(ours_t) / statistics.median(plain_t):.2f}x   same rows: {ours_rows == plain_rows}")
     return 0
+
+
+def _workbench_toggles(folder: Path, table_class, repeat: int) -> tuple[list[int], list[float]]:
+    """Rows listed after each press and the seconds from pressing ``n`` to the redrawn list, with
+    ``table_class`` as the case list's table; one untimed press first."""
+    import asyncio
+
+    from afterlook.tui import create_app
+    from afterlook.tui.widgets import case_list
+
+    saved = case_list.FixedWidthTable
+    case_list.FixedWidthTable = table_class  # what CaseList.compose builds the list with
+    rows: list[int] = []
+    times: list[float] = []
+
+    async def run() -> None:
+        app = create_app(str(folder / "model.json"), str(folder / "cases.csv"), train_path=str(folder / "train.csv"),
+                         casebook=str(folder / "book.json"), auto_candidates=False)
+        async with app.run_test(size=(120, 40)) as pilot:
+            await pilot.pause()
+            await pilot.press("n")
+            await pilot.pause()
+            for _ in range(2 * repeat):
+                start = time.perf_counter()
+                await pilot.press("n")
+                await pilot.pause()
+                times.append(time.perf_counter() - start)
+                rows.append(app.query_one("#cases").row_count)
+
+    try:
+        asyncio.run(run())
+    finally:
+        case_list.FixedWidthTable = saved
+    return rows, times
 
 
 if __name__ == "__main__":
