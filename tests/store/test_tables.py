@@ -309,6 +309,19 @@ def test_numbers_stored_as_text_found_whatever_the_first_value():
     assert not any("'c'" in w and "numbers stored as text" in w for w in t.warnings)
 
 
+def test_finite_columns_whatever_their_sum():
+    # finite_columns is read from each column's sum (NaN and infinities carry into it); a column of
+    # finite values whose sum overflows, and one whose +inf and -inf would cancel into NaN, must still
+    # be judged value by value. Reference: numpy.isfinite on every value.
+    big = [1e308, 1e308, -1e308, 1.0]
+    frame = pd.DataFrame({"big": big, "both": [np.inf, -np.inf, 1.0, 2.0], "nan": [1.0, np.nan, 2.0, 3.0],
+                          "ints": pd.array([1, 2, None, 4], dtype="Int64"), "fine": [0.5, 1.5, 2.5, 3.5]})
+    t = table_from_frame(frame)
+    expected = {c for c in frame.columns if np.isfinite(frame[c].to_numpy(dtype=float, na_value=np.nan)).all()}
+    assert t.finite_columns == expected == {"big", "fine"}
+    assert any("missing or infinite" in w and "'both': 2" in w for w in t.warnings)
+
+
 def test_nan_and_inf_warn_with_row_count(tmp_path):
     p = write_text(tmp_path / "t.csv", "a,b,c\n1,2,x\n,3,y\n4,inf,z\nnan,-inf,w\n5,6,v\n")
     t = load_table(p)

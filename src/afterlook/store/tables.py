@@ -439,15 +439,20 @@ def _build_table(frame: pd.DataFrame, name: str, *, id_col, label_col, require_l
             hint = f" ({_quote_list(commas)} look like numbers with a decimal comma: add --decimal ',')"
         raise _fail(f"{name} has no numeric columns (columns: {_quote_list(frame.columns)}){hint}")
 
-    values = frame[numeric_columns]
     finite = np.ones(len(frame), dtype=bool)
     per_column: list[tuple[int, str]] = []
     finite_columns = set()
     for col in numeric_columns:
-        series = values[col]
+        series = frame[col]
         # float64 holds NaN for missing: read it in place instead of converting a copy
-        ok = np.isfinite(series.to_numpy(copy=False) if series.dtype == np.float64
-                         else series.to_numpy(dtype=np.float64, na_value=np.nan))
+        column = (series.to_numpy(copy=False) if series.dtype == np.float64
+                  else series.to_numpy(dtype=np.float64, na_value=np.nan))
+        with np.errstate(over="ignore", invalid="ignore"):  # a sum that overflows is checked value by value
+            total = np.add.reduce(column)
+        if np.isfinite(total):  # NaN and infinities carry into the sum: a finite one has none
+            finite_columns.add(col)
+            continue
+        ok = np.isfinite(column)
         n_bad = len(ok) - np.count_nonzero(ok)
         if n_bad:
             per_column.append((n_bad, col))
