@@ -62,8 +62,7 @@ def quantile(values, q: float) -> np.float64:
         if nan:
             return np.float64(np.nan)
         g = virtual - lo
-    diff = b - a  # numpy's _lerp, written out for scalars
-    return b - diff * (1 - g) if g >= 0.5 else a + diff * g
+    return _lerp(a, b, g)
 
 
 def percentile(values, p: float) -> np.float64:
@@ -97,11 +96,11 @@ def percentile_pair(values, high: float, low: float) -> tuple[np.float64, np.flo
         left = part[:hi_h]
         left.partition(hi_l)
         b_l, a_l = left[hi_l], left[:hi_l].max()
-    return _lerp(a_h, b_h, (n - 1) * qh), _lerp(a_l, b_l, (n - 1) * ql)
+    vh, vl = (n - 1) * qh, (n - 1) * ql
+    return _lerp(a_h, b_h, vh - math.floor(vh)), _lerp(a_l, b_l, vl - math.floor(vl))
 
 
-def _lerp(a: np.float64, b: np.float64, virtual: float) -> np.float64:
-    """numpy's _lerp between the order statistics either side of ``virtual``, as :func:`quantile` has it."""
-    g = virtual - int(math.floor(virtual))
+def _lerp(a: np.float64, b: np.float64, g: float) -> np.float64:
+    """numpy's _lerp, written out for scalars: ``g`` of the way from ``a`` to ``b``."""
     diff = b - a
     return b - diff * (1 - g) if g >= 0.5 else a + diff * g
